@@ -1,0 +1,313 @@
+"""Catalogues on disk -> validated, unit-free arrays (:class:`LadderData`).
+
+This is the only place that sees astropy units: ECSV column units are checked against the
+expected physical kind and converted to the working units (days, mag, dex); CSV columns are
+taken to be in those units. Everything downstream gets plain float64 numpy arrays.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+
+__all__ = ["LadderData", "read_table", "load_catalogues", "ROLES"]
+
+#: Allowed values of the hosts table's ``role`` column.
+ROLES = ("anchor", "host")
+_BAND_RE = re.compile(r"^mag_([A-Za-z0-9]+(?:_[A-Za-z0-9]+)*?)$")
+
+
+@dataclass(frozen=True, eq=False)
+class LadderData:
+    """Validated inputs as unit-free arrays.
+
+    Shapes: ``n_hosts`` galaxies, ``n_stars`` Cepheids, ``n_bands`` bands.
+
+    Attributes
+    ----------
+    host_names, host_roles : tuple of str, (n_hosts,)
+    mu_geo, mu_geo_err : ndarray (n_hosts,), mag; NaN for non-anchors
+    host_oh : ndarray (n_hosts,), dex; NaN where not given
+    star_names : tuple of str, (n_stars,)
+    star_host : ndarray of int (n_stars,), index into the hosts
+    log_period : ndarray (n_stars,), log10(P / day)
+    bands : tuple of str, (n_bands,)
+    mag, mag_err : ndarray (n_stars, n_bands), mag; NaN where the star has no measurement
+    oh : ndarray (n_stars,), dex; the star's own value, else its host's, else NaN
+    files : dict, role of each input ('cepheids', 'hosts') -> path
+    """
+
+    host_names: tuple[str, ...]
+    host_roles: tuple[str, ...]
+    mu_geo: np.ndarray
+    mu_geo_err: np.ndarray
+    host_oh: np.ndarray
+    star_names: tuple[str, ...]
+    star_host: np.ndarray
+    log_period: np.ndarray
+    bands: tuple[str, ...]
+    mag: np.ndarray
+    mag_err: np.ndarray
+    oh: np.ndarray
+    files: dict[str, str] = field(default_factory=dict)
+    star_rows: np.ndarray | None = None  # zero-based row of each star in its file
+
+    @property
+    def n_hosts(self) -> int:
+        return len(self.host_names)
+
+    @property
+    def n_stars(self) -> int:
+        return len(self.star_names)
+
+    @property
+    def is_anchor(self) -> np.ndarray:
+        return np.array([r == "anchor" for r in self.host_roles])
+
+    @property
+    def n_cepheids(self) -> np.ndarray:
+        """Cepheids per host, (n_hosts,)."""
+        return np.bincount(self.star_host, minlength=self.n_hosts)
+
+    def band_index(self, band: str) -> int:
+        return self.bands.index(band)
+
+    def summary(self) -> str:
+        """Human-readable summary (what ``ladder check`` prints)."""
+        n = self.n_cepheids
+        lines = [
+            f"{self.n_hosts} galaxies ({int(self.is_anchor.sum())} anchors), {self.n_stars} Cepheids, "
+            f"bands: {', '.join(self.bands)}",
+            f"periods {10 ** self.log_period.min():.3g} - {10 ** self.log_period.max():.3g} d",
+        ]
+        for j, b in enumerate(self.bands):
+            m = self.mag[:, j]
+            ok = np.isfinite(m)
+            if ok.any():
+                lines.append(f"mag_{b}: {ok.sum()} stars, {np.nanmin(m):.2f} - {np.nanmax(m):.2f} mag, "
+                             f"median error {np.nanmedian(self.mag_err[:, j]):.3f} mag")
+        width = max(len(h) for h in self.host_names)
+        lines.append(f"{'galaxy':<{width}}  role    n_cep  mu_geo")
+        for i, h in enumerate(self.host_names):
+            geo = f"{self.mu_geo[i]:.3f} +/- {self.mu_geo_err[i]:.3f}" if self.is_anchor[i] else "-"
+            lines.append(f"{h:<{width}}  {self.host_roles[i]:<6}  {n[i]:>5}  {geo}")
+        return "\n".join(lines)
+
+
+# ----------------------------------------------------------------------------- table reading
+def read_table(path: str | Path):
+    """Read an ECSV or CSV table with astropy; any failure is an :class:`InputError` naming the file."""
+    from astropy.table import Table
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError("file not found", file=str(path))
+    fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
+    try:
+        return Table.read(path, format=fmt)
+    except Exception as exc:  # astropy raises many kinds; the user needs one message
+        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"could not be read as {fmt.split('.')[1].upper()}: {msg}", file=str(path)) from None
+
+
+def _require(table, cols, file):
+    for c in cols:
+        if c not in table.colnames:
+            raise InputError(f"required column is missing (columns present: {', '.join(table.colnames)})",
+                             file=file, key=c)
+
+
+def _strings(table, col, file, *, required=True) -> np.ndarray:
+    c = table[col]
+    mask = np.asarray(getattr(c, "mask", np.zeros(len(c), bool)), bool)
+    vals = np.array([str(v).strip() for v in np.asarray(c.filled("") if hasattr(c, "filled") else c)], dtype=object)
+    empty = mask | (vals == "")
+    if required and empty.any():
+        raise InputError("empty value", file=file, key=col, rows=np.flatnonzero(empty))
+    vals[empty] = ""
+    return vals
+
+
+def _numbers(table, col, file, unit, *, allow_missing: bool) -> np.ndarray:
+    """Column -> float64 in ``unit``; NaN where empty (masked). Empty cells are errors unless allowed."""
+    import astropy.units as u
+
+    c = table[col]
+    mask = np.asarray(getattr(c, "mask", np.zeros(len(c), bool)), bool).copy()
+    raw = np.asarray(c.filled(0) if hasattr(c, "filled") and mask.any() else c)
+    if raw.dtype.kind in "US O".replace(" ", ""):
+        out = np.empty(len(raw))
+        bad = []
+        for i, v in enumerate(raw):
+            s = str(v).strip()
+            if mask[i] or s == "" or s == "--":
+                mask[i] = True
+                out[i] = np.nan
+                continue
+            try:
+                out[i] = float(s)
+            except ValueError:
+                bad.append(i)
+        if bad:
+            examples = ", ".join(repr(str(raw[i])) for i in bad[:3])
+            raise InputError(f"non-numeric value(s) {examples}", file=file, key=col, rows=bad)
+    elif raw.dtype.kind in "iufb":
+        if raw.dtype.kind == "b":
+            raise InputError("must be numeric, found true/false values", file=file, key=col)
+        out = raw.astype(float)
+    else:
+        raise InputError(f"must be numeric, found {raw.dtype}", file=file, key=col)
+    out[mask] = np.nan
+    nan_given = np.isnan(out) & ~mask
+    if nan_given.any():
+        raise InputError("NaN is not a value (leave the cell empty where a value is optional)",
+                         file=file, key=col, rows=np.flatnonzero(nan_given))
+    inf = np.isinf(out)
+    if inf.any():
+        raise InputError("infinite value", file=file, key=col, rows=np.flatnonzero(inf))
+    if not allow_missing and mask.any():
+        raise InputError("empty value", file=file, key=col, rows=np.flatnonzero(mask))
+    if c.unit is not None and unit is not None:
+        target = u.Unit(unit)
+        try:
+            given = u.Unit(c.unit)
+        except Exception:  # pragma: no cover - astropy already parsed it
+            raise InputError(f"unknown unit {c.unit!s}", file=file, key=col) from None
+        if given != target:
+            try:
+                out = (out * given).to_value(target) if not isinstance(target, u.FunctionUnitBase) \
+                    else _function_unit(out, given, target)
+            except (u.UnitConversionError, TypeError, ValueError):
+                raise InputError(f"unit {given} cannot be converted to {target}", file=file, key=col) from None
+    return out
+
+
+def _function_unit(values, given, target):
+    import astropy.units as u
+
+    if given.is_equivalent(target):
+        return u.Quantity(values, given).to_value(target)
+    raise u.UnitConversionError(f"{given} -> {target}")
+
+
+def _positive(values, file, col):
+    bad = np.flatnonzero(values <= 0)
+    if bad.size:
+        raise InputError("must be > 0", file=file, key=col, rows=bad)
+
+
+def _unique(values, file, col, what):
+    seen: dict[str, int] = {}
+    dup = []
+    for i, v in enumerate(values):
+        if v in seen:
+            dup.append(i)
+        else:
+            seen[v] = i
+    if dup:
+        raise InputError(f"duplicate {what} {values[dup[0]]!r}", file=file, key=col, rows=dup)
+
+
+# ----------------------------------------------------------------------------- the two catalogues
+def _read_hosts(path: Path):
+    file = str(path)
+    t = read_table(path)
+    _require(t, ["host", "role"], file)
+    names = _strings(t, "host", file)
+    _unique(names, file, "host", "host")
+    roles = np.array([r.lower() for r in _strings(t, "role", file)], dtype=object)
+    bad = np.flatnonzero(~np.isin(roles, ROLES))
+    if bad.size:
+        raise InputError(f"unknown role {roles[bad[0]]!r}; use one of {', '.join(ROLES)}",
+                         file=file, key="role", rows=bad)
+    anchor = roles == "anchor"
+    if not anchor.any():
+        raise InputError("no anchor: at least one galaxy needs role 'anchor' with mu_geo and mu_geo_err",
+                         file=file, key="role")
+    n = len(t)
+    geo = {}
+    for col in ("mu_geo", "mu_geo_err"):
+        if col not in t.colnames:
+            raise InputError("required column for anchors is missing", file=file, key=col)
+        geo[col] = _numbers(t, col, file, "mag", allow_missing=True)
+        miss = np.flatnonzero(anchor & np.isnan(geo[col]))
+        if miss.size:
+            raise InputError(f"anchor without {col}", file=file, key=col, rows=miss)
+        # Non-anchors carry no geometric distance in the fit.
+        geo[col] = np.where(anchor, geo[col], np.nan)
+    bad = np.flatnonzero(anchor & ~(geo["mu_geo_err"] > 0))
+    if bad.size:
+        raise InputError("must be > 0", file=file, key="mu_geo_err", rows=bad)
+    oh = _numbers(t, "oh", file, "dex", allow_missing=True) if "oh" in t.colnames else np.full(n, np.nan)
+    return t, names, roles, geo["mu_geo"], geo["mu_geo_err"], oh
+
+
+def _bands(t, file) -> list[str]:
+    bands = []
+    for c in t.colnames:
+        m = _BAND_RE.match(c)
+        if m and not c.endswith("_err"):
+            bands.append(m.group(1))
+    for b in bands:
+        if f"mag_{b}_err" not in t.colnames:
+            raise InputError(f"band {b} has no error column mag_{b}_err", file=file, key=f"mag_{b}_err")
+    for c in t.colnames:
+        if c.startswith("mag_") and c.endswith("_err") and c[4:-4] not in bands:
+            raise InputError(f"error column without its magnitude column mag_{c[4:-4]}", file=file, key=c)
+    if not bands:
+        raise InputError("no band: need at least one mag_<B> column with its mag_<B>_err", file=file, key="mag_<B>")
+    return bands
+
+
+def load_catalogues(cepheids: str | Path, hosts: str | Path) -> LadderData:
+    """Read, validate and convert the cepheids and hosts tables.
+
+    Raises
+    ------
+    InputError
+        naming the file, the column and the first offending rows.
+    """
+    hosts, cepheids = Path(hosts), Path(cepheids)
+    _, hnames, roles, mu_geo, mu_geo_err, host_oh = _read_hosts(hosts)
+    file = str(cepheids)
+    t = read_table(cepheids)
+    _require(t, ["star", "host", "period"], file)
+    stars = _strings(t, "star", file)
+    _unique(stars, file, "star", "star")
+    shost = _strings(t, "host", file)
+    index = {h: i for i, h in enumerate(hnames)}
+    unknown = [i for i, h in enumerate(shost) if h not in index]
+    if unknown:
+        raise InputError(f"host {shost[unknown[0]]!r} is not in the hosts table {hosts}",
+                         file=file, key="host", rows=unknown)
+    star_host = np.array([index[h] for h in shost], dtype=np.int64)
+    empty = np.flatnonzero(np.bincount(star_host, minlength=len(hnames)) == 0)
+    if empty.size:
+        raise InputError(f"host {hnames[empty[0]]!r} has no Cepheids in {file}", file=str(hosts), key="host",
+                         rows=empty)
+    period = _numbers(t, "period", file, "d", allow_missing=False)
+    _positive(period, file, "period")
+    bands = _bands(t, file)
+    mag = np.column_stack([_numbers(t, f"mag_{b}", file, "mag", allow_missing=True) for b in bands])
+    err = np.column_stack([_numbers(t, f"mag_{b}_err", file, "mag", allow_missing=True) for b in bands])
+    for j, b in enumerate(bands):
+        bad = np.flatnonzero(np.isfinite(err[:, j]) & (err[:, j] <= 0))
+        if bad.size:
+            raise InputError("must be > 0", file=file, key=f"mag_{b}_err", rows=bad)
+        lonely = np.flatnonzero(np.isfinite(mag[:, j]) != np.isfinite(err[:, j]))
+        if lonely.size:
+            raise InputError(f"mag_{b} and mag_{b}_err must be given together", file=file, key=f"mag_{b}_err",
+                             rows=lonely)
+    star_oh = _numbers(t, "oh", file, "dex", allow_missing=True) if "oh" in t.colnames else np.full(len(t), np.nan)
+    oh = np.where(np.isfinite(star_oh), star_oh, host_oh[star_host])
+    return LadderData(
+        host_names=tuple(hnames), host_roles=tuple(roles), mu_geo=mu_geo, mu_geo_err=mu_geo_err, host_oh=host_oh,
+        star_names=tuple(stars), star_host=star_host, log_period=np.log10(period), bands=tuple(bands),
+        mag=mag, mag_err=err, oh=oh, files={"cepheids": file, "hosts": str(hosts)},
+        star_rows=np.arange(len(t)),
+    )

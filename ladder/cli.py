@@ -1,0 +1,131 @@
+"""Command line: a thin skin over the Python API.
+
+``ladder fit RUN.toml --out DIR [--strict] [--force]``, ``ladder check RUN.toml``,
+``ladder simulate --out DIR [--seed N] ...``. Exit codes: 0 ok, 2 bad input, 3 failed
+diagnostics under ``--strict``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from .errors import InputError
+
+__all__ = ["main", "EXIT_OK", "EXIT_BAD_INPUT", "EXIT_DIAGNOSTICS"]
+
+EXIT_OK, EXIT_BAD_INPUT, EXIT_DIAGNOSTICS = 0, 2, 3
+
+
+def _say(msg: str) -> None:
+    print(msg, file=sys.stderr, flush=True)
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="ladder", description="Bayesian inference of the Cepheid distance ladder.")
+    p.add_argument("--version", action="version", version=f"ladder {_version()}")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    f = sub.add_parser("fit", help="sample the joint posterior and write the result set")
+    f.add_argument("run", metavar="RUN.toml", help="run file")
+    f.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
+    f.add_argument("--force", action="store_true", help="replace an existing non-empty output directory")
+    f.add_argument("--strict", action="store_true", help="exit 3 when the diagnostics fail")
+    f.add_argument("--no-plots", action="store_true", help="skip the PNG figures")
+
+    c = sub.add_parser("check", help="validate the inputs of a run file and print a summary")
+    c.add_argument("run", metavar="RUN.toml", help="run file")
+
+    s = sub.add_parser("simulate", help="write a mock universe (catalogues, run file, truth)")
+    s.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
+    s.add_argument("--force", action="store_true", help="replace an existing non-empty output directory")
+    s.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    s.add_argument("--hosts", type=int, default=None, metavar="N", help="galaxies in all, anchors included")
+    s.add_argument("--anchors", type=int, default=None, metavar="N", help="anchors among them")
+    s.add_argument("--cepheids", type=int, default=None, metavar="N", help="Cepheids in all")
+    return p
+
+
+def _version() -> str:
+    from . import __version__
+
+    return __version__
+
+
+def _fit(args) -> int:
+    from . import fit, load_data, load_run
+    from .outputs import check_out_dir, write_outputs
+
+    cfg = load_run(args.run)
+    check_out_dir(args.out, args.force)
+    data = load_data(cfg)
+    s = cfg.sampler
+    _say(f"ladder: {data.n_hosts} galaxies ({int(data.is_anchor.sum())} anchors), {data.n_stars} Cepheids; "
+         f"NUTS {s.chains} chains x ({s.warmup} warm-up + {s.draws} draws), seed {s.seed}")
+    result = fit(data, cfg.model, cfg.sampler, cfg.diagnostics)
+    _say(result.diagnostics.report())
+    out = write_outputs(result, args.out, config=cfg, force=args.force, argv=["ladder", *sys.argv[1:]],
+                        plots=not args.no_plots)
+    _say(f"ladder: wrote {out}")
+    print(_headline(result))
+    if not result.diagnostics.passed:
+        _say("ladder: WARNING: the sampler diagnostics failed; do not use these numbers before fixing the run "
+             "(more warm-up/draws, higher target_accept, or a better-posed model).")
+        if args.strict:
+            return EXIT_DIAGNOSTICS
+    return EXIT_OK
+
+
+def _headline(result) -> str:
+    lines = []
+    for row in result.parameters:
+        lines.append(f"{row['name']:>18s} = {row['q50']:.4f} (+{row['q84'] - row['q50']:.4f} -{row['q50'] - row['q16']:.4f})")
+    return "\n".join(lines)
+
+
+def _check(args) -> int:
+    from . import load_data, load_run
+
+    cfg = load_run(args.run)
+    data = load_data(cfg)
+    print(f"run file {cfg.path}: OK")
+    print(data.summary())
+    return EXIT_OK
+
+
+def _simulate(args) -> int:
+    from dataclasses import replace
+
+    from .outputs import check_out_dir
+    from .simulate import MockSettings, simulate, write_mock
+
+    check_out_dir(args.out, args.force)
+    settings = MockSettings()
+    for key, value in (("n_hosts", args.hosts), ("n_anchors", args.anchors), ("n_cepheids", args.cepheids)):
+        if value is not None:
+            settings = replace(settings, **{key: value})
+    try:
+        mock = simulate(settings, seed=args.seed)
+    except ValueError as exc:
+        raise InputError(str(exc), key="simulate") from None
+    paths = write_mock(mock, args.out, run_overrides={"seed": args.seed})
+    for p in paths.values():
+        print(p)
+    return EXIT_OK
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point; returns the exit code (``sys.exit(main())`` in the console script)."""
+    args = _parser().parse_args(argv)
+    try:
+        return {"fit": _fit, "check": _check, "simulate": _simulate}[args.command](args)
+    except InputError as exc:
+        _say(f"ladder: error: {exc}")
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        _say("ladder: interrupted; nothing was written")
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

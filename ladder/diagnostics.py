@@ -1,0 +1,86 @@
+"""Convergence diagnostics with ArviZ.
+
+Rank-normalised split R-hat and bulk/tail effective sample sizes (Vehtari et al. 2021,
+Bayesian Analysis 16, 667), divergent transitions of NUTS, and the energy Bayesian fraction of
+missing information E-BFMI (Betancourt 2016, arXiv:1604.00695). A run passes when
+max R-hat <= 1.01, min bulk ESS >= 400 and there are no divergences; E-BFMI below 0.3
+(common practice) is reported as a warning.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from .config import DiagnosticThresholds
+
+__all__ = ["Diagnostics", "diagnose"]
+
+
+@dataclass(frozen=True)
+class Diagnostics:
+    divergences: int
+    max_r_hat: float
+    min_ess_bulk: float
+    min_ess_tail: float
+    min_bfmi: float
+    chains: int
+    draws: int
+    wall_seconds: float
+    passed: bool
+    problems: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["problems"] = list(self.problems)
+        d["warnings"] = list(self.warnings)
+        return d
+
+    def report(self) -> str:
+        head = "diagnostics PASSED" if self.passed else "DIAGNOSTICS FAILED"
+        lines = [f"{head}: max R-hat {self.max_r_hat:.4f}, min bulk ESS {self.min_ess_bulk:.0f}, "
+                 f"min tail ESS {self.min_ess_tail:.0f}, divergences {self.divergences}, min E-BFMI {self.min_bfmi:.2f} "
+                 f"({self.chains} chains x {self.draws} draws, {self.wall_seconds:.1f} s)"]
+        lines += [f"  FAIL: {p}" for p in self.problems]
+        lines += [f"  warning: {w}" for w in self.warnings]
+        return "\n".join(lines)
+
+
+def _worst(ds, reducer) -> tuple[float, str]:
+    vals = {k: float(reducer(np.asarray(v))) for k, v in ds.data_vars.items()}
+    if not vals:
+        return float("nan"), ""
+    name = (max if reducer is np.nanmax else min)(vals, key=vals.get)
+    return vals[name], name
+
+
+def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = DiagnosticThresholds()) -> Diagnostics:
+    """Compute the diagnostics of a fit and judge them against ``limits``."""
+    import arviz as az
+
+    post = idata.posterior
+    chains, draws = post.sizes["chain"], post.sizes["draw"]
+    rhat = az.rhat(post, method="rank")
+    ess_b = az.ess(post, method="bulk")
+    ess_t = az.ess(post, method="tail")
+    max_rhat, rhat_name = _worst(rhat, np.nanmax)
+    min_bulk, bulk_name = _worst(ess_b, np.nanmin)
+    min_tail, _ = _worst(ess_t, np.nanmin)
+    div = int(np.asarray(idata.sample_stats["diverging"]).sum())
+    bfmi = float(np.min(az.bfmi(idata))) if draws > 1 else float("nan")
+    problems, warnings = [], []
+    if chains < 2:
+        warnings.append("a single chain: R-hat cannot detect chains stuck in different places; run >= 4 chains")
+    if not max_rhat <= limits.max_r_hat:
+        problems.append(f"R-hat {max_rhat:.4f} > {limits.max_r_hat} (worst: {rhat_name})")
+    if not min_bulk >= limits.min_ess_bulk:
+        problems.append(f"bulk ESS {min_bulk:.0f} < {limits.min_ess_bulk:.0f} (worst: {bulk_name})")
+    if div > limits.max_divergences:
+        problems.append(f"{div} divergent transitions (limit {limits.max_divergences}); the posterior may be biased")
+    if bfmi < limits.min_bfmi:
+        warnings.append(f"E-BFMI {bfmi:.2f} < {limits.min_bfmi}: momentum resampling explores the energy poorly")
+    return Diagnostics(divergences=div, max_r_hat=max_rhat, min_ess_bulk=min_bulk, min_ess_tail=min_tail,
+                       min_bfmi=bfmi, chains=int(chains), draws=int(draws), wall_seconds=float(wall_seconds),
+                       passed=not problems, problems=tuple(problems), warnings=tuple(warnings))
