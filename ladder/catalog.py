@@ -112,7 +112,46 @@ def read_table(path: str | Path):
         return Table.read(path, format=fmt)
     except Exception as exc:  # astropy raises many kinds; the user needs one message
         msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(f"could not be read as {fmt.split('.')[1].upper()}: {msg}", file=str(path)) from None
+        failure = InputError(f"could not be read as {fmt.split('.')[1].upper()}: {msg}", file=str(path))
+    if fmt == "ascii.ecsv":
+        _raise_bad_ecsv_cells(path)  # a more precise message (column and rows) when one can be found
+    raise failure
+
+
+def _raise_bad_ecsv_cells(path: Path) -> None:
+    """After a failed ECSV read: raise for cells that are not numbers in columns the header declares numeric.
+
+    Re-reads the data as text (delimiter from the header) only to locate the rows; returns quietly when
+    nothing is found or the file cannot be re-read.
+    """
+    from astropy.io import ascii
+    from astropy.table import meta
+
+    try:
+        lines = path.read_text(encoding="utf-8").splitlines()
+        header = meta.get_header_from_yaml([ln[2:] if ln.startswith("# ") else ln[1:]
+                                            for ln in lines if ln.startswith("#")])
+        text = ascii.read(path, format="basic", delimiter=header.get("delimiter", " "), comment=r"\s*#",
+                          guess=False, fast_reader=False, converters={"*": [ascii.convert_numpy(str)]})
+    except Exception:
+        return
+    for col in header.get("datatype", []):
+        name, kind = col.get("name"), str(col.get("datatype", ""))
+        if name not in text.colnames or not kind.startswith(("float", "int", "uint")):
+            continue
+        c = text[name]
+        mask = np.asarray(getattr(c, "mask", np.zeros(len(c), bool)), bool)
+        bad = []
+        for i, v in enumerate(np.asarray(c, dtype=str)):
+            if not mask[i]:
+                try:
+                    float(v)
+                except ValueError:
+                    bad.append(i)
+        if bad:
+            examples = ", ".join(repr(str(c[i])) for i in bad[:3])
+            raise InputError(f"non-numeric value(s) {examples} (the header declares {kind})",
+                             file=str(path), key=name, rows=bad)
 
 
 def _require(table, cols, file):
@@ -178,6 +217,9 @@ def _numbers(table, col, file, unit, *, allow_missing: bool) -> np.ndarray:
             given = u.Unit(c.unit)
         except Exception:  # pragma: no cover - astropy already parsed it
             raise InputError(f"unknown unit {c.unit!s}", file=file, key=col) from None
+        if isinstance(given, u.UnrecognizedUnit):
+            raise InputError(f"unit {str(given)!r} is not a recognised unit; use {target} or one convertible to it",
+                             file=file, key=col)
         if given != target:
             try:
                 out = (out * given).to_value(target) if not isinstance(target, u.FunctionUnitBase) \
@@ -210,7 +252,9 @@ def _unique(values, file, col, what):
         else:
             seen[v] = i
     if dup:
-        raise InputError(f"duplicate {what} {values[dup[0]]!r}", file=file, key=col, rows=dup)
+        first = seen[values[dup[0]]]
+        raise InputError(f"duplicate {what} {values[dup[0]]!r} (first in data row {first + 1})",
+                         file=file, key=col, rows=dup)
 
 
 # ----------------------------------------------------------------------------- the two catalogues

@@ -9,6 +9,7 @@ Unknown keys are errors: a typo must never be silently ignored.
 from __future__ import annotations
 
 import dataclasses
+import difflib
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -197,6 +198,9 @@ class RunConfig:
 
 
 # ----------------------------------------------------------------------------- parsing helpers
+_TYPE_NAMES = {int: "an integer", str: "a string", bool: "true or false", list: "a list", dict: "a table"}
+
+
 class _Section:
     """Typed access to one TOML table; tracks which keys were used so that leftovers are errors."""
 
@@ -211,7 +215,9 @@ class _Section:
     def check_keys(self, allowed: set[str]) -> None:
         unknown = sorted(set(self.raw) - allowed)
         if unknown:
-            raise InputError(f"unknown key {unknown[0]!r} (allowed: {', '.join(sorted(allowed))})",
+            close = difflib.get_close_matches(unknown[0], sorted(allowed), n=1, cutoff=0.75)
+            hint = f"did you mean {close[0]!r}? " if close else ""
+            raise InputError(f"unknown key {unknown[0]!r}; {hint}allowed: {', '.join(sorted(allowed))}",
                              file=self.file, key=self._key(unknown[0]))
 
     def get(self, k: str, kind: type | tuple[type, ...], default: Any) -> Any:
@@ -221,8 +227,8 @@ class _Section:
         kinds = kind if isinstance(kind, tuple) else (kind,)
         ok = isinstance(v, kinds) and not (isinstance(v, bool) and bool not in kinds)
         if not ok:
-            names = " or ".join("number" if t in (int, float) else t.__name__ for t in kinds)
-            raise InputError(f"must be a {names}, got {v!r}", file=self.file, key=self._key(k))
+            names = "a number" if float in kinds else " or ".join(_TYPE_NAMES.get(t, t.__name__) for t in kinds)
+            raise InputError(f"must be {names}, got {v!r}", file=self.file, key=self._key(k))
         if isinstance(v, float) and not math.isfinite(v):
             raise InputError(f"must be finite, got {v!r}", file=self.file, key=self._key(k))
         return v
@@ -251,6 +257,9 @@ def _parse_wesenheit(sec: _Section) -> WesenheitSettings:
     bands = sec.get("bands", list, None)
     if bands is None or len(bands) != 3 or not all(isinstance(b, str) and b for b in bands):
         raise InputError("bands must list three band names [m1, m2, m3] for W = m1 - R (m2 - m3)",
+                         file=sec.file, key=sec._key("bands"))
+    if bands[1] == bands[2]:
+        raise InputError("m2 and m3 must be different bands (the colour m2 - m3 would be zero)",
                          file=sec.file, key=sec._key("bands"))
     if "r" not in sec.raw:
         raise InputError("r (the Wesenheit ratio R) is required", file=sec.file, key=sec._key("r"))
@@ -358,4 +367,8 @@ def load_run(path: str | Path) -> RunConfig:
     except UnicodeDecodeError:
         raise InputError("not a UTF-8 text file", file=str(path)) from None
     cfg = parse_run(raw, base=path.parent, file=str(path))
+    for key, table in (("data.cepheids", cfg.cepheids), ("data.hosts", cfg.hosts)):
+        if not table.is_file():
+            what = "is not a file" if table.exists() else "not found"
+            raise InputError(f"table {what}: {table}", file=str(path), key=key)
     return dataclasses.replace(cfg, path=path)

@@ -1,4 +1,4 @@
-"""Distance modulus <-> luminosity distance (unit-free, Mpc).
+r"""Distance modulus <-> luminosity distance (unit-free, Mpc).
 
 .. math:: \mu = 5 \log_{10}(d / 10\,\mathrm{pc}) = 5 \log_{10}(d / \mathrm{Mpc}) + 25
 """
@@ -11,7 +11,7 @@ __all__ = ["modulus_to_mpc", "mpc_to_modulus"]
 
 
 def modulus_to_mpc(mu):
-    """Distance in Mpc for distance modulus ``mu`` (mag): :math:`d = 10^{\mu/5 - 5}` Mpc."""
+    r"""Distance in Mpc for distance modulus ``mu`` (mag): :math:`d = 10^{\mu/5 - 5}` Mpc."""
     return np.power(10.0, np.asarray(mu, float) / 5.0 - 5.0)
 
 

@@ -1,4 +1,4 @@
-"""The joint distance-ladder posterior as a numpyro model, composed from :mod:`ladder.terms`.
+r"""The joint distance-ladder posterior as a numpyro model, composed from :mod:`ladder.terms`.
 
 .. math::
 
@@ -131,7 +131,8 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, n_hosts:
         spec = PriorSpec("normal", (("loc", w.r), ("scale", w.r_err))) if w.free else PriorSpec("fixed", (("value", w.r),))
         r = sample_parameter("wesenheit_r", spec)
         obs = wesenheit_index(arrays.mag[:, 0], arrays.mag[:, 1], arrays.mag[:, 2], r)
-        err = wesenheit_error(arrays.mag_err[:, 0], arrays.mag_err[:, 1], arrays.mag_err[:, 2], r)
+        err = wesenheit_error(arrays.mag_err[:, 0], arrays.mag_err[:, 1], arrays.mag_err[:, 2], r,
+                              w.bands[0] == w.bands[1], w.bands[0] == w.bands[2])
 
     predict = jax.vmap(_star_magnitude, in_axes=(0, 0, 0, None, None, None, None))
     pred = predict(mu[arrays.star_host], arrays.log_period, arrays.oh, zero_point, slope, gamma, settings.solar_oh)

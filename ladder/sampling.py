@@ -23,9 +23,8 @@ _EXTRA_FIELDS = ("diverging", "energy", "num_steps", "accept_prob", "potential_e
 
 def initial_values(arrays: ModelArrays, settings: ModelSettings, n_hosts: int) -> dict[str, np.ndarray]:
     """A starting point from weighted least squares of the linear part (scatter 0.1 mag, R at its prior mean)."""
-    r = settings.wesenheit.r if settings.wesenheit else None
     X, y, sd = design_matrix(arrays, n_hosts, metallicity=settings.metallicity, solar_oh=settings.solar_oh,
-                             scatter=0.1, r=r)
+                             scatter=0.1, wesenheit=settings.wesenheit)
     theta, _ = weighted_least_squares(X, y, sd)
     init = {"mu": theta[:n_hosts], "pl_zero_point": theta[n_hosts], "pl_slope": theta[n_hosts + 1]}
     if settings.metallicity:

@@ -1,0 +1,54 @@
+"""Shared test helpers: small in-memory data sets and the one recovery check."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ladder.catalog import LadderData
+from tolerances import RECOVERY_Z
+
+
+def small_data(seed=0, n_hosts=5, n_anchors=2, n_per=60, scatter=0.06, metallicity_coef=-0.2,
+               zero_point=-5.9, slope=-3.3, err=0.08) -> tuple[LadderData, dict]:
+    """A small linear-Gaussian data set in memory (for closed-form checks, not a physical mock)."""
+    rng = np.random.default_rng(seed)
+    mu = np.concatenate([rng.uniform(18.0, 19.0, n_anchors), rng.uniform(29.0, 32.0, n_hosts - n_anchors)])
+    host = np.repeat(np.arange(n_hosts), n_per)
+    lp = rng.uniform(0.4, 1.8, host.size)
+    oh = rng.uniform(8.2, 9.0, host.size)
+    e = np.full(host.size, err)
+    m = mu[host] + zero_point + slope * (lp - 1) + metallicity_coef * (oh - 8.69) \
+        + rng.normal(0, np.sqrt(e**2 + scatter**2))
+    geo_err = np.where(np.arange(n_hosts) < n_anchors, 0.03, np.nan)
+    geo = np.where(np.arange(n_hosts) < n_anchors, mu + rng.normal(0, 0.03, n_hosts), np.nan)
+    names = tuple(f"g{i}" for i in range(n_hosts))
+    data = LadderData(
+        host_names=names, host_roles=tuple("anchor" if i < n_anchors else "host" for i in range(n_hosts)),
+        mu_geo=geo, mu_geo_err=geo_err, host_oh=np.full(n_hosts, np.nan),
+        star_names=tuple(f"s{i}" for i in range(host.size)), star_host=host, log_period=lp,
+        bands=("W",), mag=m[:, None], mag_err=e[:, None], oh=oh)
+    truth = {"pl_zero_point": zero_point, "pl_slope": slope, "metallicity_coef": metallicity_coef,
+             "scatter": scatter, "mu": dict(zip(names, mu))}
+    return data, truth
+
+
+def assert_recovers(result, truth: dict, names=None, z=RECOVERY_Z):
+    """The one recovery check: every named truth within ``z`` posterior sds of the posterior mean.
+
+    ``truth`` maps global names to values and may hold ``mu``: {galaxy: value}. Returns the z-scores.
+    """
+    post = result.idata.posterior
+    zs = {}
+    for name in names or [k for k in truth if k != "mu"]:
+        if name not in post:
+            continue
+        x = np.asarray(post[name]).ravel()
+        zs[name] = (x.mean() - truth[name]) / x.std()
+    if "mu" in truth:
+        mu = np.asarray(post["mu"]).reshape(-1, post.sizes["host"])
+        for i, h in enumerate(post["host"].values):
+            if h in truth["mu"]:
+                zs[f"mu[{h}]"] = (mu[:, i].mean() - truth["mu"][h]) / mu[:, i].std()
+    bad = {k: round(float(v), 2) for k, v in zs.items() if abs(v) > z}
+    assert not bad, f"truth outside {z} posterior sd for {bad}"
+    return zs

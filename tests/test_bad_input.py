@@ -1,0 +1,463 @@
+"""Bad input -> one clear message (file, column or key, data rows), exit code 2, no traceback, nothing written.
+
+Drives ``ladder.cli.main`` in-process (and once as a subprocess). Each case starts from a small valid
+run (two tables and a run file in ``tmp_path``) and breaks one thing. ``ladder fit`` must refuse the
+input at validation, before any sampling, so every case takes milliseconds.
+
+Fixture data are real, not invented: 10 fundamental-mode Cepheids each in the Large and the Small
+Magellanic Cloud from the OGLE-IV Collection of Variable Stars (Soszynski, I., et al. 2015, Acta
+Astronomica 65, 297; rows copied from /work/shared/data/ogle4_{lmc,smc}_cepheids.csv), with both
+clouds as geometric anchors (distance moduli from detached eclipsing binaries, cited at HOSTS).
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import os
+import re
+import subprocess
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.table import Column, MaskedColumn, Table
+
+from ladder.cli import EXIT_BAD_INPUT, EXIT_OK, main
+
+REPO = Path(__file__).resolve().parents[1]
+
+# --- real data: OGLE-IV classical Cepheids (Soszynski et al. 2015, AcA 65, 297), mode F ---
+# (id, period [d], V [mag], I [mag]), intensity-mean magnitudes as published.
+LMC_CEPHEIDS = [
+    ("OGLE-LMC-CEP-0002", 3.118149, 16.42, 15.691),
+    ("OGLE-LMC-CEP-0005", 5.6119491, 15.425, 14.651),
+    ("OGLE-LMC-CEP-0017", 3.6772904, 15.899, 15.237),
+    ("OGLE-LMC-CEP-0018", 4.0478369, 15.994, 15.181),
+    ("OGLE-LMC-CEP-0021", 5.4579579, 15.494, 14.709),
+    ("OGLE-LMC-CEP-0025", 3.7334902, 16.131, 15.338),
+    ("OGLE-LMC-CEP-0027", 3.5229124, 15.641, 15.037),
+    ("OGLE-LMC-CEP-0033", 7.1807603, 15.216, 14.386),
+    ("OGLE-LMC-CEP-0034", 11.2552749, 14.673, 13.751),
+    ("OGLE-LMC-CEP-0035", 6.9435423, 15.154, 14.376),
+]
+SMC_CEPHEIDS = [
+    ("OGLE-SMC-CEP-0014", 4.4165259, 16.201, 15.491),
+    ("OGLE-SMC-CEP-0016", 4.8298084, 15.961, 15.335),
+    ("OGLE-SMC-CEP-0019", 3.1148307, 16.292, 15.694),
+    ("OGLE-SMC-CEP-0029", 6.6913506, 15.672, 14.92),
+    ("OGLE-SMC-CEP-0040", 3.3838318, 16.68, 15.952),
+    ("OGLE-SMC-CEP-0041", 4.6739541, 16.033, 15.341),
+    ("OGLE-SMC-CEP-0060", 3.2138986, 16.57, 15.877),
+    ("OGLE-SMC-CEP-0067", 4.6594634, 16.011, 15.37),
+    ("OGLE-SMC-CEP-0078", 4.6677202, 16.043, 15.355),
+    ("OGLE-SMC-CEP-0082", 5.267144, 16.092, 15.324),
+]
+# The catalogue gives no per-star errors; its README: mean magnitudes good to about 0.01-0.02 mag.
+MAG_ERR = 0.02
+# (host, role, mu_geo [mag], mu_geo_err [mag]):
+# LMC 18.477 +/- 0.004 (stat) +/- 0.026 (sys) (Pietrzynski, G., et al. 2019, Nature 567, 200);
+# SMC 18.977 +/- 0.016 (stat) +/- 0.028 (sys) (Graczyk, D., et al. 2020, ApJ 904, 13; from memory).
+# Errors: stat and sys in quadrature.
+HOSTS = [("LMC", "anchor", 18.477, 0.026), ("SMC", "anchor", 18.977, 0.032)]
+# Reddening-free Wesenheit W_I = I - 1.55 (V - I) for OGLE V, I photometry (common practice).
+W_I_RATIO = 1.55
+
+
+# ----------------------------------------------------------------------------- the fixture
+@dataclass
+class Run:
+    """A run in a directory: two tables and a run file; mutate, then :meth:`write`."""
+
+    dir: Path
+    fmt: str = "ecsv"
+    cepheids: Table = field(init=False)
+    hosts: Table = field(init=False)
+    doc: dict = field(init=False)  # the run file as a mapping
+    run_text: str | None = None  # when set, written verbatim instead of ``doc``
+    edits: list = field(default_factory=list)  # (table, star_or_host, old, new): text edits after writing
+
+    def __post_init__(self):
+        rows = [(x[0], "LMC", *x[1:]) for x in LMC_CEPHEIDS] + [(x[0], "SMC", *x[1:]) for x in SMC_CEPHEIDS]
+        star, host, period, v, i = (list(c) for c in zip(*rows))
+        n = len(rows)
+        self.cepheids = Table([
+            Column(star, name="star"),
+            Column(host, name="host"),
+            Column(period, name="period", unit=u.day),
+            Column(v, name="mag_V", unit=u.mag),
+            Column(np.full(n, MAG_ERR), name="mag_V_err", unit=u.mag),
+            Column(i, name="mag_I", unit=u.mag),
+            Column(np.full(n, MAG_ERR), name="mag_I_err", unit=u.mag),
+        ])
+        h, role, mu, mu_err = (list(c) for c in zip(*HOSTS))
+        self.hosts = Table([
+            Column(h, name="host"),
+            Column(role, name="role"),
+            MaskedColumn(mu, name="mu_geo", unit=u.mag),
+            MaskedColumn(mu_err, name="mu_geo_err", unit=u.mag),
+        ])
+        self.doc = {
+            "data": {"cepheids": f"cepheids.{self.fmt}", "hosts": f"hosts.{self.fmt}"},
+            "model": {"metallicity": False, "wesenheit": {"bands": ["I", "V", "I"], "r": W_I_RATIO}},
+            "sampler": {"chains": 1, "warmup": 10, "draws": 10, "seed": 1, "progress": False},
+        }
+
+    @property
+    def path(self) -> Path:
+        return self.dir / "run.toml"
+
+    def write(self) -> Path:
+        self.dir.mkdir(parents=True, exist_ok=True)
+        fmt = {"ecsv": "ascii.ecsv", "csv": "ascii.csv"}[self.fmt]
+        files = {"cepheids": self.dir / f"cepheids.{self.fmt}", "hosts": self.dir / f"hosts.{self.fmt}"}
+        self.cepheids.write(files["cepheids"], format=fmt, overwrite=True)
+        self.hosts.write(files["hosts"], format=fmt, overwrite=True)
+        for table, row_name, old, new in self.edits:
+            _edit_row(files[table], row_name, old, new)
+        self.path.write_text(self.run_text if self.run_text is not None else _toml(self.doc), encoding="utf-8")
+        return self.path
+
+
+def _edit_row(path: Path, row_name: str, old: str, new: str) -> None:
+    """Replace one cell's text on the data line that starts with ``row_name`` (a hand edit)."""
+    lines = path.read_text(encoding="utf-8").splitlines(keepends=True)
+    hits = [k for k, ln in enumerate(lines) if ln.startswith(row_name + " ") or ln.startswith(row_name + ",")]
+    assert len(hits) == 1, (row_name, hits)
+    assert old in lines[hits[0]], (old, lines[hits[0]])
+    lines[hits[0]] = lines[hits[0]].replace(old, new, 1)
+    path.write_text("".join(lines), encoding="utf-8")
+
+
+def _toml(doc: dict) -> str:
+    """Tiny TOML writer for the run files here (tables, strings, numbers, booleans, lists)."""
+
+    def value(v):
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, (int, float)):
+            return repr(v)
+        if isinstance(v, str):
+            return json.dumps(v)  # a TOML basic string for plain text
+        if isinstance(v, list):
+            return "[" + ", ".join(value(x) for x in v) + "]"
+        raise TypeError(type(v))
+
+    lines: list[str] = []
+
+    def table(prefix, d):
+        scalars = {k: v for k, v in d.items() if not isinstance(v, dict)}
+        subs = {k: v for k, v in d.items() if isinstance(v, dict)}
+        if prefix and (scalars or not subs):
+            lines.append(f"[{prefix}]")
+        lines.extend(f"{k} = {value(v)}" for k, v in scalars.items())
+        for k, v in subs.items():
+            table(f"{prefix}.{k}" if prefix else k, v)
+
+    table("", doc)
+    return "\n".join(lines) + "\n"
+
+
+def _snapshot(root: Path) -> dict:
+    return {str(p.relative_to(root)): p.stat().st_mtime_ns for p in sorted(root.rglob("*"))}
+
+
+def _run_cli(argv, capsys):
+    code = main([str(a) for a in argv])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+# ----------------------------------------------------------------------------- mutations
+def _set(table, col, row, value):
+    def f(r: Run):
+        getattr(r, table)[col][row] = value
+    return f
+
+
+def _drop(table, col):
+    def f(r: Run):
+        getattr(r, table).remove_column(col)
+    return f
+
+
+def _unit(col, unit):
+    def f(r: Run):
+        r.cepheids[col].unit = unit
+    return f
+
+
+def _text_cell(col, row, text):
+    """Make a numeric cell non-numeric: a hand edit in ECSV, a string column in CSV."""
+    def f(r: Run):
+        if r.fmt == "ecsv":
+            r.edits.append(("cepheids", r.cepheids["star"][row], repr(float(r.cepheids[col][row])), text))
+        else:
+            vals = [repr(float(x)) for x in r.cepheids[col]]
+            vals[row] = text
+            r.cepheids.replace_column(col, Column(vals, name=col))
+    return f
+
+
+def _mask(table, col, row):
+    def f(r: Run):
+        getattr(r, table)[col].mask[row] = True
+    return f
+
+
+def _doc(path, value):
+    """Set (or with value None delete) a dotted key of the run file."""
+    def f(r: Run):
+        *parents, last = path.split(".")
+        d = r.doc
+        for p in parents:
+            d = d.setdefault(p, {})
+        if value is None:
+            d.pop(last, None)
+        else:
+            d[last] = value
+    return f
+
+
+def _both(*fs):
+    def f(r: Run):
+        for g in fs:
+            g(r)
+    return f
+
+
+def _add_host(name, role):
+    def f(r: Run):
+        r.hosts.add_row([name, role, 0.0, 0.0], mask=[False, False, True, True])
+    return f
+
+
+def _duplicate_host(row):
+    def f(r: Run):
+        r.hosts.add_row(list(r.hosts[row]))
+    return f
+
+
+def _all_roles(role):
+    def f(r: Run):
+        r.hosts["role"] = [role] * len(r.hosts)
+    return f
+
+
+def _run_text(text):
+    def f(r: Run):
+        r.run_text = text
+    return f
+
+
+def _unchanged(r: Run):
+    """Keep the valid run (the case gives the command another file name)."""
+
+
+@dataclass(frozen=True)
+class Case:
+    id: str
+    mutate: object
+    file: str  # basename that must appear in the message
+    key: str | None  # column or key that must appear (quoted as the message quotes it)
+    rows: tuple[int, ...] = ()  # one-based data rows that must appear
+    also: tuple[str, ...] = ()  # further text the message must contain
+    absent: tuple[str, ...] = ()  # text the message must not contain
+    formats: tuple[str, ...] = ("ecsv", "csv")
+    commands: tuple[str, ...] = ("check", "fit")
+    run_name: str = "run.toml"  # the run file the command is given
+
+
+# Rows of the fixture: LMC stars are data rows 1-10, SMC stars 11-20; hosts LMC row 1, SMC row 2.
+CEP, HOST = "cepheids.{fmt}", "hosts.{fmt}"
+TABLE_CASES = [
+    # missing files
+    Case("run-file-missing", _unchanged, "nosuch.toml", None, run_name="nosuch.toml", also=("not found",)),
+    Case("cepheids-file-missing", _doc("data.cepheids", "nosuch_cepheids.ecsv"), "nosuch_cepheids.ecsv",
+         "data.cepheids", also=("run.toml", "not found")),
+    Case("hosts-file-missing", _doc("data.hosts", "nosuch_hosts.ecsv"), "nosuch_hosts.ecsv", "data.hosts",
+         also=("run.toml", "not found")),
+    # missing columns
+    Case("column-period-missing", _drop("cepheids", "period"), CEP, "period", also=("missing",)),
+    Case("column-host-missing", _drop("cepheids", "host"), CEP, "host", also=("missing",)),
+    Case("column-star-missing", _drop("cepheids", "star"), CEP, "star", also=("missing",)),
+    Case("column-mag_I_err-missing", _drop("cepheids", "mag_I_err"), CEP, "mag_I_err"),
+    Case("column-role-missing", _drop("hosts", "role"), HOST, "role", also=("missing",)),
+    Case("column-mu_geo_err-missing", _drop("hosts", "mu_geo_err"), HOST, "mu_geo_err", also=("missing",)),
+    # bad values
+    Case("period-non-numeric", _text_cell("period", 3, "n/a"), CEP, "period", rows=(4,), also=("'n/a'",)),
+    Case("mag_I-non-numeric", _text_cell("mag_I", 14, "15,3"), CEP, "mag_I", rows=(15,), also=("'15,3'",)),
+    Case("mag_V-nan", _both(_set("cepheids", "mag_V", 3, np.nan), _set("cepheids", "mag_V", 12, np.nan)),
+         CEP, "mag_V", rows=(4, 13), also=("NaN",)),
+    Case("period-zero", _set("cepheids", "period", 0, 0.0), CEP, "period", rows=(1,), also=("> 0",)),
+    Case("period-negative", _set("cepheids", "period", 17, -4.6677202), CEP, "period", rows=(18,),
+         also=("> 0",)),
+    Case("mag_I_err-zero", _set("cepheids", "mag_I_err", 7, 0.0), CEP, "mag_I_err", rows=(8,), also=("> 0",)),
+    Case("mag_V_err-negative", _set("cepheids", "mag_V_err", 19, -0.02), CEP, "mag_V_err", rows=(20,),
+         also=("> 0",)),
+    Case("mu_geo_err-zero", _set("hosts", "mu_geo_err", 1, 0.0), HOST, "mu_geo_err", rows=(2,), also=("> 0",)),
+    Case("unknown-host", _set("cepheids", "host", 14, "LMX"), CEP, "host", rows=(15,), also=("'LMX'",)),
+    Case("duplicate-star", _set("cepheids", "star", 11, "OGLE-LMC-CEP-0017"), CEP, "star", rows=(12,),
+         also=("'OGLE-LMC-CEP-0017'", "row 3")),
+    Case("duplicate-host", _duplicate_host(0), HOST, "host", rows=(3,), also=("'LMC'", "row 1")),
+    Case("anchor-without-mu_geo_err", _mask("hosts", "mu_geo_err", 1), HOST, "mu_geo_err", rows=(2,),
+         also=("anchor",)),
+    Case("anchor-without-mu_geo", _mask("hosts", "mu_geo", 0), HOST, "mu_geo", rows=(1,), also=("anchor",)),
+    Case("host-without-cepheids", _add_host("M33", "host"), HOST, "host", rows=(3,), also=("'M33'",)),
+    Case("unknown-role", _set("hosts", "role", 1, "anker"), HOST, "role", rows=(2,), also=("'anker'",)),
+    Case("no-anchor", _all_roles("host"), HOST, "role", also=("anchor",)),
+    # what the model needs, named by the run file
+    Case("band-not-in-table", _both(_doc("model.wesenheit", None), _doc("model.band", "H")), CEP, "mag_H",
+         also=("band H",)),
+    Case("wesenheit-band-not-in-table", _doc("model.wesenheit.bands", ["I", "V", "K"]), CEP, "mag_K"),
+    Case("metallicity-without-oh", _doc("model.metallicity", True), CEP, "oh", rows=(1, 2, 3, 4, 5),
+         also=("metallicity",)),
+]
+
+# Units only mean something in ECSV headers.
+UNIT_CASES = [
+    Case("period-in-metres", _unit("period", u.m), CEP, "period", also=(" m ",), formats=("ecsv",)),
+    Case("mag_V-in-jansky", _unit("mag_V", u.Jy), CEP, "mag_V", also=("Jy",), formats=("ecsv",)),
+    Case("mag_I_err-in-days", _unit("mag_I_err", u.day), CEP, "mag_I_err", formats=("ecsv",)),
+    Case("period-unit-unrecognised", _unit("period", u.Unit("days", parse_strict="silent")), CEP, "period",
+         also=("'days'", "not a recognised unit"), formats=("ecsv",)),
+]
+
+RUN = "run.toml"
+TomlCase = functools.partial(Case, formats=("ecsv",))  # the run file does not depend on the table format
+_GOOD_TOP = ('[data]\ncepheids = "cepheids.ecsv"\nhosts = "hosts.ecsv"\n'
+             '[model]\nmetallicity = false\n[model.wesenheit]\nbands = ["I", "V", "I"]\nr = 1.55\n')
+TOML_CASES = [
+    TomlCase("toml-malformed", _run_text(_GOOD_TOP + "[sampler\nchains = 2\n"), RUN, None, also=("TOML", "line 9")),
+    TomlCase("toml-unclosed-string", _run_text('[data]\ncepheids = "cepheids.ecsv\n'), RUN, None,
+         also=("TOML", "line 2")),
+    TomlCase("toml-unknown-top-key", _doc("output", "out"), RUN, "output", also=("unknown key",)),
+    TomlCase("toml-unknown-table", _doc("plots.dpi", 100), RUN, "plots", also=("unknown key",)),
+    TomlCase("toml-unknown-model-key", _doc("model.slope", -3.3), RUN, "model.slope", also=("unknown key",)),
+    TomlCase("toml-unknown-sampler-key", _doc("sampler.thin", 2), RUN, "sampler.thin", also=("unknown key",),
+             absent=("did you mean",)),
+    TomlCase("toml-typo-chians", _doc("sampler.chians", 2), RUN, "sampler.chians", also=("'chains'",)),
+    TomlCase("toml-typo-in-data", _doc("data.cepheid", "cepheids.ecsv"), RUN, "data.cepheid", also=("'cepheids'",)),
+    TomlCase("toml-unknown-prior", _doc("model.priors.slope", {"dist": "flat"}), RUN, "model.priors.slope",
+         also=("'pl_slope'",)),
+    TomlCase("toml-chains-string", _doc("sampler.chains", "four"), RUN, "sampler.chains", also=("integer",)),
+    TomlCase("toml-chains-float", _doc("sampler.chains", 2.5), RUN, "sampler.chains", also=("integer",)),
+    TomlCase("toml-metallicity-string", _doc("model.metallicity", "yes"), RUN, "model.metallicity",
+         also=("true or false",)),
+    TomlCase("toml-target_accept-string", _doc("sampler.target_accept", "high"), RUN, "sampler.target_accept",
+         also=("number",)),
+    TomlCase("toml-data-path-number", _doc("data.hosts", 3), RUN, "data.hosts", also=("string",)),
+    TomlCase("toml-model-not-a-table", _doc("model", "W"), RUN, "model", also=("table",)),
+    TomlCase("toml-warmup-zero", _doc("sampler.warmup", 0), RUN, "sampler.warmup", also=(">= 1",)),
+]
+
+
+def _expand(cases):
+    for c in cases:
+        for fmt in c.formats:
+            for cmd in c.commands:
+                yield pytest.param(c, fmt, cmd, id=f"{c.id}-{fmt}-{cmd}")
+
+
+ALL_CASES = list(_expand(TABLE_CASES + UNIT_CASES + TOML_CASES))
+
+
+def _assert_one_clear_error(code, out, err, case: Case, fmt: str):
+    assert code == EXIT_BAD_INPUT, (code, err)
+    assert "Traceback" not in err, err
+    assert out == "", out
+    error_lines = [ln for ln in err.splitlines() if "error:" in ln]
+    assert len(error_lines) == 1, err
+    msg = error_lines[0]
+    assert err.strip() == msg.strip(), f"more than the one message on stderr:\n{err}"
+    assert case.file.format(fmt=fmt) in msg, msg
+    if case.key is not None:
+        assert f"'{case.key}'" in msg, msg
+    if case.rows:
+        word = "row" if len(case.rows) == 1 else "rows"
+        assert f"data {word} {', '.join(map(str, case.rows))}" in msg, msg
+    for text in case.also:
+        assert text in msg, msg
+    for text in case.absent:
+        assert text not in msg, msg
+
+
+@pytest.mark.parametrize(("case", "fmt", "command"), ALL_CASES)
+def test_bad_input_gives_one_clear_error(case, fmt, command, tmp_path, capsys):
+    run = Run(tmp_path / "run", fmt=fmt)
+    case.mutate(run)
+    run.write()
+    out_dir = tmp_path / "out"
+    before = _snapshot(tmp_path)
+    argv = [command, run.dir / case.run_name] + (["--out", out_dir] if command == "fit" else [])
+    code, out, err = _run_cli(argv, capsys)
+    _assert_one_clear_error(code, out, err, case, fmt)
+    assert not out_dir.exists()
+    assert _snapshot(tmp_path) == before
+
+
+def test_out_dir_not_empty_without_force(tmp_path, capsys):
+    run = Run(tmp_path / "run")
+    run.write()
+    out_dir = tmp_path / "previous"
+    out_dir.mkdir()
+    (out_dir / "keep.txt").write_text("an earlier result\n")
+    before = _snapshot(tmp_path)
+    code, out, err = _run_cli(["fit", run.path, "--out", out_dir], capsys)
+    case = Case("out-dir-not-empty", None, "previous", "--out", also=("--force",))
+    _assert_one_clear_error(code, out, err, case, "ecsv")
+    assert _snapshot(tmp_path) == before
+
+
+def test_out_path_is_a_file(tmp_path, capsys):
+    run = Run(tmp_path / "run")
+    run.write()
+    out_file = tmp_path / "result.txt"
+    out_file.write_text("not a directory\n")
+    before = _snapshot(tmp_path)
+    code, out, err = _run_cli(["fit", run.path, "--out", out_file], capsys)
+    _assert_one_clear_error(code, out, err, Case("out-is-file", None, "result.txt", "--out"), "ecsv")
+    assert _snapshot(tmp_path) == before
+
+
+@pytest.mark.parametrize("fmt", ["ecsv", "csv"])
+def test_good_fixture_passes_check(fmt, tmp_path, capsys):
+    run = Run(tmp_path / "run", fmt=fmt)
+    run.write()
+    code, out, err = _run_cli(["check", run.path], capsys)
+    assert code == EXIT_OK, err
+    assert "error" not in err
+    assert "2 galaxies (2 anchors), 20 Cepheids" in out, out
+    assert re.search(r"^LMC\s+anchor\s+10\s+18\.477", out, re.M), out
+
+
+def test_good_fixture_with_a_plain_host_passes_check(tmp_path, capsys):
+    # The SMC as a Cepheid host without a geometric distance: its mu_geo cells stay empty.
+    run = Run(tmp_path / "run")
+    run.hosts["role"][1] = "host"
+    run.hosts["mu_geo"].mask[1] = True
+    run.hosts["mu_geo_err"].mask[1] = True
+    run.write()
+    code, out, err = _run_cli(["check", run.path], capsys)
+    assert code == EXIT_OK, err
+    assert "2 galaxies (1 anchors), 20 Cepheids" in out, out
+
+
+def test_bad_input_as_a_real_process(tmp_path):
+    run = Run(tmp_path / "run")
+    _set("cepheids", "host", 14, "LMX")(run)
+    run.write()
+    out_dir = tmp_path / "out"
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(REPO), os.environ.get("PYTHONPATH", "")])}
+    proc = subprocess.run([sys.executable, "-m", "ladder", "fit", str(run.path), "--out", str(out_dir)],
+                          capture_output=True, text=True, env=env, cwd=tmp_path, timeout=120)
+    assert proc.returncode == EXIT_BAD_INPUT, proc.stderr
+    assert "Traceback" not in proc.stderr, proc.stderr
+    assert proc.stdout == ""
+    error_lines = [ln for ln in proc.stderr.splitlines() if "error:" in ln]
+    assert len(error_lines) == 1, proc.stderr
+    assert "cepheids.ecsv" in error_lines[0] and "'host'" in error_lines[0] and "data row 15" in error_lines[0]
+    assert not out_dir.exists()

@@ -1,0 +1,42 @@
+"""Test tolerances, one constant per check with its reason (append only)."""
+
+# --- reddening laws (tests/test_reddening.py) ---
+CCM89_VS_EXTINCTION_RTOL = 1e-4  # same CCM89 coefficients as `extinction`; float64 code agrees to ~1e-15, 1e-4 is the required bar
+F99_VS_EXTINCTION_RTOL = 1e-3  # spline/anchors reimplemented; measured ~1e-14, 1e-3 is the required bar
+CCM89_V_NORM_ATOL = 1e-12  # a(1.82)=1, b(1.82)=0 exactly in CCM89; only float64 rounding remains
+CCM89_0549_ATOL = 2e-3  # 0.549 um is x=1.8215, 0.0015/um off the normalisation point; slope ~0.63 gives ~9e-4
+GRAD_FD_RTOL = 1e-6  # central difference with step 1e-5 in R_V: truncation ~1e-10, rounding ~1e-11 relative
+GRAD_FD_ATOL = 1e-9  # same difference where the derivative is ~0 (e.g. CCM89 near V, b(x)~0)
+
+# --- kinematic cosmography (tests/test_cosmography.py) ---
+COSMO_DL_TAYLOR_RTOL = 1e-4  # third-order series vs flat LCDM at z<=0.15; measured max 5.1e-5 at z=0.15 (O(z^3) remainder)
+COSMO_LOWZ_RTOL = 1e-6  # at z=1e-6 d_L exceeds cz/H0 only by the first-order term (1-q0)z/2 = 7.8e-7
+PEC_VEL_LINEAR_RTOL = 1e-3  # at z=1e-3 the leading-order sigma_mu misses the (1-q0)z/2 ~ 7.8e-4 correction
+
+# --- distances (tests/test_distance.py) ---
+DISTANCE_RTOL = 1e-12  # same closed form as astropy.coordinates.Distance; float64 rounding only
+
+# --- exact Gaussian posterior (tests/test_gls.py) ---
+# NUTS means/sds vs the closed-form GLS posterior: Monte-Carlo error of a mean is sd/sqrt(ESS);
+# with ESS >= ~1000 a 5-sigma band is 0.16 sd. Sds: relative MC error ~1/sqrt(2 ESS) ~ 2.2%, 5 sigma ~ 11%.
+GLS_MEAN_IN_SD = 0.16
+GLS_SD_RTOL = 0.11
+
+# --- real data (tests/test_real_ogle.py) ---
+OGLE_LMC_WI_SLOPE_TOL = 0.02  # the published value's quoted precision, -3.31 +/- 0.02 (from memory)
+OGLE_LMC_WI_INTERCEPT_TOL = 0.02  # the published 15.888 (from memory); our fit's sd ~0.003
+
+# --- recovery on mocks (tests/recovery.py) ---
+RECOVERY_Z = 3.5  # |posterior mean - truth| / posterior sd; per-parameter false-alarm ~5e-4 under correct calibration
+COVERAGE_68_BAND = (0.45, 0.90)  # binomial 3-sigma band for the 68% interval over ~20 hosts
+
+# --- mock universes (tests/test_simulate.py) ---
+MOCK_CLOSED_FORM_ATOL = 1e-12  # noise-free W vs its closed form; magnitudes ~30 carry float64 rounding ~1e-14
+MOCK_SLOPE_SIGMA = 4.0  # OLS slope of a default mock within 4 standard errors of the truth (common practice for a fixed-seed check)
+MOCK_CCM89_RATIO_ATOL = 0.03  # the mock's A_B/A_V are rounded from memory; CCM89 moves ~0.02 across a band's width
+
+# --- figures (tests/test_plots.py) ---
+PL_RESIDUAL_ATOL = 1e-10  # same float64 arithmetic in two orders; differences are rounding, ~1e-14 mag
+LMC_WI_PL_SCATTER_MAX = 0.12  # robust (MAD) scatter of LMC W_I PL residuals ~0.075 mag here; ~0.08 mag published (from memory)
+PNG_MIN_BYTES = 20_000  # a drawn figure at 120 dpi is >= ~50 kB; an empty canvas is ~5 kB (measured)
+PNG_MAX_BYTES = 1_500_000  # "modest" file size at 120 dpi; a 40-galaxy PL grid measured ~0.7 MB, the test figures ~0.1 MB
