@@ -43,6 +43,9 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--hosts", type=int, default=None, metavar="N", help="galaxies in all, anchors included")
     s.add_argument("--anchors", type=int, default=None, metavar="N", help="anchors among them")
     s.add_argument("--cepheids", type=int, default=None, metavar="N", help="Cepheids in all")
+    for name, default in (("chains", 4), ("warmup", 500), ("draws", 1000)):
+        s.add_argument(f"--{name}", type=int, default=None, metavar="N",
+                       help=f"[sampler] {name} written into the mock's run file (default {default})")
     return p
 
 
@@ -108,7 +111,8 @@ def _simulate(args) -> int:
         mock = simulate(settings, seed=args.seed)
     except ValueError as exc:
         raise InputError(str(exc), key="simulate") from None
-    paths = write_mock(mock, args.out, run_overrides={"seed": args.seed})
+    sampler = {k: getattr(args, k) for k in ("chains", "warmup", "draws") if getattr(args, k) is not None}
+    paths = write_mock(mock, args.out, run_overrides={"sampler": sampler} if sampler else None)
     for p in paths.values():
         print(p)
     return EXIT_OK

@@ -124,6 +124,12 @@ def pl_residuals(result) -> np.ndarray:
     return pl_points(result).residual
 
 
+def _nice_below(x: float) -> float:
+    """Largest 1, 2, 2.5 or 5 times a power of ten that is <= x (x > 0)."""
+    e = 10.0 ** np.floor(np.log10(x))
+    return float(max(m * e for m in (1.0, 2.0, 2.5, 5.0) if m * e <= x))
+
+
 def _host_order(data) -> list[int]:
     """Anchors first, then the other hosts, each group in data order."""
     return [i for i in range(data.n_hosts) if data.is_anchor[i]] + \
@@ -188,6 +194,7 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
     r_abs = np.abs(pts.residual)
     r_lim = 1.15 * max(3.0 * scatter, float(np.quantile(r_abs, 0.995)) if r_abs.size else 0.1, 0.05)
 
+    r_tick = _nice_below(0.75 * r_lim)  # symmetric residual ticks kept off the panel edges
     bottom_of_column = {c: max(k for k in range(n) if k % ncol == c) for c in range(ncol)}
     for k, i in enumerate(order):
         row, col = divmod(k, ncol)
@@ -214,19 +221,19 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
         ax.tick_params(labelsize=small, labelbottom=False, length=2.5, pad=1.5)
 
         res = pts.residual[sel]
-        clipped = np.clip(res, -r_lim * 0.97, r_lim * 0.97)
+        clipped = np.clip(res, -r_lim * 0.9, r_lim * 0.9)
         out = clipped != res
         axr.axhspan(-scatter, scatter, color="0.55", alpha=0.3, lw=0)
         axr.axhline(0.0, color="k", lw=0.7)
         axr.errorbar(pts.log_period[sel][~out], res[~out], yerr=pts.error[sel][~out], fmt="o", ms=1.6, mew=0,
                      color=color, ecolor=color, elinewidth=0.4, alpha=0.75)
-        if out.any():  # off-scale residuals drawn at the edge as arrows; down is fainter (axis inverted)
-            axr.scatter(pts.log_period[sel][out], clipped[out], marker="^", s=9, lw=0,
-                        c=np.where(clipped[out] > 0, "#555555", "#555555"))
+        for side, marker in ((clipped > res, "^"), (clipped < res, "v")):  # off-scale: arrows at the edge
+            if side.any():  # (axis inverted: "^" at the top is too bright, "v" at the bottom too faint)
+                axr.plot(pts.log_period[sel][side], clipped[side], marker, ls="", ms=3.2, mew=0, color="0.25")
         axr.set_ylim(r_lim, -r_lim)
         axr.set_xlim(grid[0], grid[-1])
         axr.tick_params(labelsize=small, length=2.5, pad=1.5)
-        axr.locator_params(axis="y", nbins=3)
+        axr.set_yticks([-r_tick, 0.0, r_tick])
         axr.xaxis.set_major_locator(MaxNLocator(4, steps=[1, 2, 2.5, 5, 10]))
         if col == 0:
             ax.set_ylabel("fitted mag [mag]", fontsize=small)
@@ -308,11 +315,9 @@ def plot_corner(result, path, truths: dict | None = None, *, bins: int = 30) -> 
         w = hi - lo if hi > lo else abs(lo) * 1e-3 + 1e-6
         ranges[p] = (lo - 0.08 * w, hi + 0.08 * w)
     fs = 7.5
-    axes = {}
     for a, pa in enumerate(names):
         for b, pb in enumerate(names[: a + 1]):
             ax = fig.add_subplot(gs[a, b])
-            axes[(a, b)] = ax
             xa = draws[pb]
             med_x = np.median(xa)
             if a == b:
@@ -364,7 +369,7 @@ def plot_corner(result, path, truths: dict | None = None, *, bins: int = 30) -> 
             elif a != b:
                 ax.tick_params(labelleft=False)
     n_samp = len(next(iter(draws.values())))
-    note = f"{n_samp} posterior draws; median (solid), 68% (dashed)"
+    note = f"{n_samp} posterior draws; median (solid), 68% (dashed); contours: 39% and 86%"
     if truths:
         note += "; truth in green"
     fig.text(0.98, 0.985, note, ha="right", va="top", fontsize=fs)
