@@ -286,6 +286,9 @@ def _parse_model(sec: _Section | None) -> ModelSettings:
         psec.check_keys(set(DEFAULT_PRIORS))
         for k, raw in psec.raw.items():
             priors[k] = PriorSpec.parse(raw, file=sec.file, key=f"model.priors.{k}", positive=k in _POSITIVE)
+        if priors["mu"].dist == "fixed":
+            raise InputError("the distance moduli are what the fit is for; mu cannot be fixed",
+                             file=sec.file, key="model.priors.mu")
     return ModelSettings(
         band=band if not wes else "W",
         metallicity=sec.get("metallicity", bool, True),
