@@ -18,7 +18,7 @@ from .errors import InputError
 __all__ = ["LadderData", "read_table", "load_catalogues", "ROLES"]
 
 #: Allowed values of the hosts table's ``role`` column.
-ROLES = ("anchor", "host")
+ROLES = ("anchor", "host", "parallax")
 _BAND_RE = re.compile(r"^mag_([A-Za-z0-9]+(?:_[A-Za-z0-9]+)*?)$")
 
 
@@ -39,6 +39,9 @@ class LadderData:
     bands : tuple of str, (n_bands,)
     mag, mag_err : ndarray (n_stars, n_bands), mag; NaN where the star has no measurement
     oh : ndarray (n_stars,), dex; the star's own value, else its host's, else NaN
+    parallax, parallax_err : ndarray (n_stars,), mas; stars of ``parallax`` groups only (NaN elsewhere)
+    host_bias, host_bias_err : ndarray (n_hosts,), mag; photometric bias estimates (NaN where not given)
+    supernovae : SupernovaData or None
     files : dict, role of each input ('cepheids', 'hosts') -> path
     """
 
@@ -56,6 +59,11 @@ class LadderData:
     oh: np.ndarray
     files: dict[str, str] = field(default_factory=dict)
     star_rows: np.ndarray | None = None  # zero-based row of each star in its file
+    parallax: np.ndarray | None = None  # (n_stars,), mas; NaN outside parallax groups
+    parallax_err: np.ndarray | None = None
+    host_bias: np.ndarray | None = None  # (n_hosts,), mag; NaN where not given
+    host_bias_err: np.ndarray | None = None
+    supernovae: object | None = None  # ladder.supernovae.SupernovaData
 
     @property
     def n_hosts(self) -> int:
@@ -68,6 +76,15 @@ class LadderData:
     @property
     def is_anchor(self) -> np.ndarray:
         return np.array([r == "anchor" for r in self.host_roles])
+
+    @property
+    def is_parallax_group(self) -> np.ndarray:
+        return np.array([r == "parallax" for r in self.host_roles])
+
+    @property
+    def has_distance(self) -> np.ndarray:
+        """Galaxies with one distance modulus in the fit (all but parallax groups)."""
+        return ~self.is_parallax_group
 
     @property
     def n_cepheids(self) -> np.ndarray:
@@ -270,9 +287,9 @@ def _read_hosts(path: Path):
         raise InputError(f"unknown role {roles[bad[0]]!r}; use one of {', '.join(ROLES)}",
                          file=file, key="role", rows=bad)
     anchor = roles == "anchor"
-    if not anchor.any():
-        raise InputError("no anchor: at least one galaxy needs role 'anchor' with mu_geo and mu_geo_err",
-                         file=file, key="role")
+    if not (anchor | (roles == "parallax")).any():
+        raise InputError("no anchor: at least one galaxy needs role 'anchor' with mu_geo and mu_geo_err "
+                         "(or role 'parallax' with star parallaxes)", file=file, key="role")
     n = len(t)
     geo = {}
     for col in ("mu_geo", "mu_geo_err"):
@@ -288,7 +305,26 @@ def _read_hosts(path: Path):
     if bad.size:
         raise InputError("must be > 0", file=file, key="mu_geo_err", rows=bad)
     oh = _numbers(t, "oh", file, "dex", allow_missing=True) if "oh" in t.colnames else np.full(n, np.nan)
-    return t, names, roles, geo["mu_geo"], geo["mu_geo_err"], oh
+    bias, bias_err = _optional_pair(t, "bias", "bias_err", file, n)
+    return t, names, roles, geo["mu_geo"], geo["mu_geo_err"], oh, bias, bias_err
+
+
+def _optional_pair(t, col, err_col, file, n, unit="mag"):
+    """Optional value/error columns: both or neither; NaN where empty; errors > 0 where given."""
+    if col not in t.colnames and err_col not in t.colnames:
+        return np.full(n, np.nan), np.full(n, np.nan)
+    for a, b in ((col, err_col), (err_col, col)):
+        if a in t.colnames and b not in t.colnames:
+            raise InputError(f"column {a} needs its companion column {b}", file=file, key=b)
+    v = _numbers(t, col, file, unit, allow_missing=True)
+    e = _numbers(t, err_col, file, unit, allow_missing=True)
+    lonely = np.flatnonzero(np.isfinite(v) != np.isfinite(e))
+    if lonely.size:
+        raise InputError(f"{col} and {err_col} must be given together", file=file, key=err_col, rows=lonely)
+    bad = np.flatnonzero(np.isfinite(e) & ~(e > 0))
+    if bad.size:
+        raise InputError("must be > 0", file=file, key=err_col, rows=bad)
+    return v, e
 
 
 def _bands(t, file) -> list[str]:
@@ -308,8 +344,8 @@ def _bands(t, file) -> list[str]:
     return bands
 
 
-def load_catalogues(cepheids: str | Path, hosts: str | Path) -> LadderData:
-    """Read, validate and convert the cepheids and hosts tables.
+def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | Path | None = None) -> LadderData:
+    """Read, validate and convert the cepheids and hosts tables (and the supernovae table if given).
 
     Raises
     ------
@@ -317,7 +353,7 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path) -> LadderData:
         naming the file, the column and the first offending rows.
     """
     hosts, cepheids = Path(hosts), Path(cepheids)
-    _, hnames, roles, mu_geo, mu_geo_err, host_oh = _read_hosts(hosts)
+    _, hnames, roles, mu_geo, mu_geo_err, host_oh, bias, bias_err = _read_hosts(hosts)
     file = str(cepheids)
     t = read_table(cepheids)
     _require(t, ["star", "host", "period"], file)
@@ -349,9 +385,24 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path) -> LadderData:
                              rows=lonely)
     star_oh = _numbers(t, "oh", file, "dex", allow_missing=True) if "oh" in t.colnames else np.full(len(t), np.nan)
     oh = np.where(np.isfinite(star_oh), star_oh, host_oh[star_host])
+    parallax, parallax_err = _optional_pair(t, "parallax", "parallax_err", file, len(t), unit="mas")
+    in_group = np.asarray(roles, dtype=object)[star_host] == "parallax"
+    for col, values in (("parallax", parallax), ("parallax_err", parallax_err)):
+        miss = np.flatnonzero(in_group & ~np.isfinite(values))
+        if miss.size:
+            raise InputError(f"stars of a parallax group need {col}", file=file, key=col, rows=miss)
+    parallax = np.where(in_group, parallax, np.nan)
+    parallax_err = np.where(in_group, parallax_err, np.nan)
+    sne = None
+    if supernovae is not None:
+        from .supernovae import load_supernovae
+
+        sne = load_supernovae(supernovae, tuple(hnames), tuple(roles))
     return LadderData(
         host_names=tuple(hnames), host_roles=tuple(roles), mu_geo=mu_geo, mu_geo_err=mu_geo_err, host_oh=host_oh,
         star_names=tuple(stars), star_host=star_host, log_period=np.log10(period), bands=tuple(bands),
-        mag=mag, mag_err=err, oh=oh, files={"cepheids": file, "hosts": str(hosts)},
-        star_rows=np.arange(len(t)),
+        mag=mag, mag_err=err, oh=oh, files={"cepheids": file, "hosts": str(hosts),
+                                            **({"supernovae": str(supernovae)} if supernovae is not None else {})},
+        star_rows=np.arange(len(t)), parallax=parallax, parallax_err=parallax_err, host_bias=bias,
+        host_bias_err=bias_err, supernovae=sne,
     )

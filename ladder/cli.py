@@ -46,6 +46,20 @@ def _parser() -> argparse.ArgumentParser:
     for name, default in (("chains", 4), ("warmup", 500), ("draws", 1000)):
         s.add_argument(f"--{name}", type=int, default=None, metavar="N",
                        help=f"[sampler] {name} written into the mock's run file (default {default})")
+    # further effects, each off by default; values are checked by _simulate (a bad value -> exit 2)
+    for flag, metavar, help_ in (
+        ("--parallax", "N", "Cepheids with parallaxes in a Milky Way group (default 0: none)"),
+        ("--outlier-fraction", "F", "fraction of host Cepheids that are blends (default 0)"),
+        ("--pl-break-period", "P", "period of a PL break in days (default: no break)"),
+        ("--pl-slope-long", "B", "W slope above the break (required with --pl-break-period)"),
+        ("--scatter-spread", "S", "spread of the per-galaxy intrinsic scatter, log scale (default 0)"),
+        ("--bias-sd", "S", "sd of the per-galaxy photometric bias in mag (default 0)"),
+        ("--hubble-flow", "N", "supernovae in the Hubble flow, plus one per host galaxy (default 0: none)"),
+        ("--h0", "H", "true Hubble constant in km/s/Mpc (default 73)"),
+        ("--reddening-law", "LAW", "extinction ratios from ccm89 or fitzpatrick99 (default none: fixed ratios)"),
+        ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
+    ):
+        s.add_argument(flag, default=None, metavar=metavar, help=help_)
     return p
 
 
@@ -97,17 +111,39 @@ def _check(args) -> int:
 
 
 def _simulate(args) -> int:
+    import math
     from dataclasses import replace
 
     from .outputs import check_out_dir
     from .simulate import MockSettings, simulate, write_mock
 
     check_out_dir(args.out, args.force)
-    settings = MockSettings()
-    for key, value in (("n_hosts", args.hosts), ("n_anchors", args.anchors), ("n_cepheids", args.cepheids)):
-        if value is not None:
-            settings = replace(settings, **{key: value})
+    changes = {k: v for k, v in (("n_hosts", args.hosts), ("n_anchors", args.anchors),
+                                 ("n_cepheids", args.cepheids)) if v is not None}
+    fields = {  # option dest -> (MockSettings field, type)
+        "parallax": ("n_parallax", int), "outlier_fraction": ("outlier_fraction", float),
+        "pl_break_period": ("pl_break_period", float), "pl_slope_long": ("pl_slope_long", float),
+        "scatter_spread": ("scatter_spread", float), "bias_sd": ("bias_sd", float),
+        "hubble_flow": ("n_hubble_flow", int), "h0": ("h0", float), "reddening_law": ("reddening_law", str),
+        "r_v": ("r_v", float),
+    }
+    for dest, (key, kind) in fields.items():
+        text = getattr(args, dest)
+        if text is None:
+            continue
+        flag = "--" + dest.replace("_", "-")
+        if kind is str:
+            changes[key] = None if text.strip().lower() == "none" else text.strip().lower()
+            continue
+        try:
+            value = kind(text)
+        except ValueError:
+            raise InputError(f"needs {'an integer' if kind is int else 'a number'}, got {text!r}", key=flag) from None
+        if kind is float and not math.isfinite(value):
+            raise InputError(f"needs a finite number, got {text!r}", key=flag)
+        changes[key] = value
     try:
+        settings = replace(MockSettings(), **changes)
         mock = simulate(settings, seed=args.seed)
     except ValueError as exc:
         raise InputError(str(exc), key="simulate") from None

@@ -20,6 +20,9 @@ from .errors import InputError
 
 __all__ = [
     "PriorSpec",
+    "ReddeningSettings",
+    "ParallaxSettings",
+    "SupernovaSettings",
     "WesenheitSettings",
     "ModelSettings",
     "SamplerSettings",
@@ -103,21 +106,73 @@ DEFAULT_PRIORS: dict[str, PriorSpec] = {
     "pl_slope": _p("normal", loc=-3.0, scale=2.0),
     "metallicity_coef": _p("normal", loc=0.0, scale=0.5),
     "scatter": _p("halfnormal", scale=0.3),
+    "scatter_spread": _p("halfnormal", scale=0.5),
+    "pl_slope_long": _p("normal", loc=-3.0, scale=2.0),
+    "r_v": _p("normal", loc=3.1, scale=0.5),  # only used through [model.reddening] rv, rv_err
+    "ebv_mean": _p("halfnormal", scale=0.3),
+    "parallax_offset": _p("normal", loc=0.0, scale=0.05),
+    "outlier_fraction": _p("uniform", low=0.0, high=0.5),
+    "h0": _p("uniform", low=20.0, high=150.0),
+    "sn_abs_mag": _p("normal", loc=-19.3, scale=1.0),
+    "sn_scatter": _p("halfnormal", scale=0.3),
 }
-_POSITIVE = {"scatter"}
+_POSITIVE = {"scatter", "scatter_spread", "ebv_mean", "sn_scatter", "outlier_fraction", "h0"}
+#: Priors set elsewhere in the run file (not in [model.priors]).
+_NOT_IN_PRIORS = {"r_v"}
+
+
+@dataclass(frozen=True)
+class ReddeningSettings:
+    """Reddening law and its R_V (fixed when ``rv_err`` is 0, else prior N(rv, rv_err), output ``r_v``)."""
+
+    law: str = "fitzpatrick99"
+    rv: float = 3.1
+    rv_err: float = 0.0
+
+    @property
+    def free(self) -> bool:
+        return self.rv_err > 0
 
 
 @dataclass(frozen=True)
 class WesenheitSettings:
-    """W = m1 - R (m2 - m3) formed inside the model from three bands."""
+    """W = m1 - R (m2 - m3) formed inside the model from three bands.
+
+    Either ``r`` (fixed, or prior N(r, r_err) when ``r_err`` > 0) or ``from_law``: R = A_1 / (A_2 - A_3)
+    from the reddening law at the bands' wavelengths, with R_V from [model.reddening].
+    """
 
     bands: tuple[str, str, str]
-    r: float
+    r: float = float("nan")
     r_err: float = 0.0
+    from_law: bool = False
 
     @property
     def free(self) -> bool:
-        return self.r_err > 0
+        return self.r_err > 0 and not self.from_law
+
+
+@dataclass(frozen=True)
+class ParallaxSettings:
+    """Distance prior of parallax stars: exponentially decreasing space density (Bailer-Jones 2015, PASP 127, 994)."""
+
+    length_scale_pc: float = 1350.0
+
+
+@dataclass(frozen=True)
+class SupernovaSettings:
+    """Hubble-flow SNe Ia: kinematic expansion (q0, j0), peculiar velocities (km/s), redshift range."""
+
+    q0: float = -0.55
+    j0: float = 1.0
+    sigma_v: float = 250.0
+    z_min: float = 0.023
+    z_max: float = 0.15
+
+
+EXTINCTION_MODES = ("none", "multiband")
+SCATTER_MODES = ("global", "per_host")
+OUTLIER_MODES = ("none", "mixture", "clip")
 
 
 @dataclass(frozen=True)
@@ -129,21 +184,58 @@ class ModelSettings:
     solar_oh: float = SOLAR_OH_ASPLUND09
     wesenheit: WesenheitSettings | None = None
     priors: tuple[tuple[str, PriorSpec], ...] = tuple(DEFAULT_PRIORS.items())
+    extinction: str = "none"
+    bands: tuple[str, ...] = ()  # multiband: the bands fitted (default: every band with a wavelength)
+    scatter_model: str = "global"
+    outliers: str = "none"
+    outlier_width: float = 1.0
+    clip_sigma: float = 3.0
+    photometric_bias: bool = False
+    pl_break: bool = False
+    pl_break_period: float = 10.0
+    reddening: ReddeningSettings = field(default_factory=ReddeningSettings)
+    parallax: ParallaxSettings = field(default_factory=ParallaxSettings)
+    supernovae: SupernovaSettings = field(default_factory=SupernovaSettings)
+    wavelengths: tuple[tuple[str, float], ...] = ()  # from [bands.<B>] wavelength_um
 
     def prior(self, name: str) -> PriorSpec:
         return dict(self.priors)[name]
 
+    def wavelength(self, band: str) -> float:
+        return dict(self.wavelengths)[band]
+
+    @property
+    def multiband(self) -> bool:
+        return self.extinction == "multiband"
+
+    @property
+    def needs_law(self) -> bool:
+        return self.multiband or (self.wesenheit is not None and self.wesenheit.from_law)
+
     @property
     def fitted_bands(self) -> tuple[str, ...]:
         """Bands whose magnitudes the model reads."""
+        if self.multiband:
+            return self.bands
         return self.wesenheit.bands if self.wesenheit else (self.band,)
 
     def to_dict(self) -> dict[str, Any]:
-        d: dict[str, Any] = {"band": self.band, "metallicity": self.metallicity, "solar_oh": self.solar_oh}
+        d: dict[str, Any] = {"band": self.band, "metallicity": self.metallicity, "solar_oh": self.solar_oh,
+                             "extinction": self.extinction, "scatter": self.scatter_model, "outliers": self.outliers,
+                             "outlier_width": self.outlier_width, "clip_sigma": self.clip_sigma,
+                             "photometric_bias": self.photometric_bias, "pl_break": self.pl_break,
+                             "pl_break_period": self.pl_break_period}
+        if self.multiband:
+            d["bands"] = list(self.bands)
         if self.wesenheit:
-            d["wesenheit"] = {"bands": list(self.wesenheit.bands), "r": self.wesenheit.r, "r_err": self.wesenheit.r_err}
+            w = self.wesenheit
+            d["wesenheit"] = {"bands": list(w.bands), "law": True} if w.from_law else \
+                {"bands": list(w.bands), "r": w.r, "r_err": w.r_err}
+        d["reddening"] = dataclasses.asdict(self.reddening)
+        d["parallax"] = dataclasses.asdict(self.parallax)
+        d["supernovae"] = dataclasses.asdict(self.supernovae)
         d["priors"] = {k: v.to_dict() for k, v in self.priors}
-        return d
+        return {"model": d, "bands": {b: {"wavelength_um": w} for b, w in self.wavelengths}}
 
 
 @dataclass(frozen=True)
@@ -185,16 +277,17 @@ class RunConfig:
     cepheids: Path
     hosts: Path
     model: ModelSettings = field(default_factory=ModelSettings)
+    supernovae: Path | None = None
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     diagnostics: DiagnosticThresholds = field(default_factory=DiagnosticThresholds)
 
     def to_dict(self) -> dict[str, Any]:
-        return {
-            "data": {"cepheids": str(self.cepheids), "hosts": str(self.hosts)},
-            "model": self.model.to_dict(),
-            "sampler": self.sampler.to_dict(),
-            "diagnostics": self.diagnostics.to_dict(),
-        }
+        data = {"cepheids": str(self.cepheids), "hosts": str(self.hosts)}
+        if self.supernovae is not None:
+            data["supernovae"] = str(self.supernovae)
+        m = self.model.to_dict()
+        return {"data": data, "model": m["model"], "bands": m["bands"], "sampler": self.sampler.to_dict(),
+                "diagnostics": self.diagnostics.to_dict()}
 
 
 # ----------------------------------------------------------------------------- parsing helpers
@@ -253,7 +346,7 @@ class _Section:
 
 
 def _parse_wesenheit(sec: _Section) -> WesenheitSettings:
-    sec.check_keys({"bands", "r", "r_err"})
+    sec.check_keys({"bands", "r", "r_err", "law"})
     bands = sec.get("bands", list, None)
     if bands is None or len(bands) != 3 or not all(isinstance(b, str) and b for b in bands):
         raise InputError("bands must list three band names [m1, m2, m3] for W = m1 - R (m2 - m3)",
@@ -261,17 +354,83 @@ def _parse_wesenheit(sec: _Section) -> WesenheitSettings:
     if bands[1] == bands[2]:
         raise InputError("m2 and m3 must be different bands (the colour m2 - m3 would be zero)",
                          file=sec.file, key=sec._key("bands"))
+    from_law = sec.get("law", bool, False)
+    if from_law:
+        if "r" in sec.raw or "r_err" in sec.raw:
+            raise InputError("give either r (and r_err) or law = true, not both", file=sec.file, key=sec._key("law"))
+        return WesenheitSettings(tuple(bands), from_law=True)  # type: ignore[arg-type]
     if "r" not in sec.raw:
-        raise InputError("r (the Wesenheit ratio R) is required", file=sec.file, key=sec._key("r"))
+        raise InputError("r (the Wesenheit ratio R) is required, or law = true to derive it from [model.reddening]",
+                         file=sec.file, key=sec._key("r"))
     r = sec.float_("r", 0.0)
     r_err = sec.float_("r_err", 0.0, lo=0.0)
     return WesenheitSettings(tuple(bands), r, r_err)  # type: ignore[arg-type]
 
 
-def _parse_model(sec: _Section | None) -> ModelSettings:
+def _choice(sec: _Section, key: str, allowed: tuple[str, ...]) -> str:
+    v = sec.get(key, str, allowed[0])
+    if v not in allowed:
+        raise InputError(f"must be one of {', '.join(repr(a) for a in allowed)}, got {v!r}", file=sec.file,
+                         key=sec._key(key))
+    return v
+
+
+def _parse_reddening(sec: _Section | None) -> ReddeningSettings:
+    from .reddening import LAWS
+
+    d = ReddeningSettings()
     if sec is None:
-        return ModelSettings()
-    sec.check_keys({"band", "metallicity", "solar_oh", "wesenheit", "priors"})
+        return d
+    sec.check_keys({"law", "rv", "rv_err"})
+    law = _choice(sec, "law", (d.law, *sorted(set(LAWS) - {d.law})))
+    return ReddeningSettings(law=law, rv=sec.float_("rv", d.rv, lo=1.0, hi=7.0),
+                             rv_err=sec.float_("rv_err", d.rv_err, lo=0.0))
+
+
+def _parse_parallax(sec: _Section | None) -> ParallaxSettings:
+    d = ParallaxSettings()
+    if sec is None:
+        return d
+    sec.check_keys({"length_scale_pc"})
+    return ParallaxSettings(length_scale_pc=sec.float_("length_scale_pc", d.length_scale_pc, lo=0.0, open_lo=True))
+
+
+def _parse_supernovae(sec: _Section | None) -> SupernovaSettings:
+    d = SupernovaSettings()
+    if sec is None:
+        return d
+    sec.check_keys({f.name for f in dataclasses.fields(SupernovaSettings)})
+    out = SupernovaSettings(q0=sec.float_("q0", d.q0), j0=sec.float_("j0", d.j0),
+                            sigma_v=sec.float_("sigma_v", d.sigma_v, lo=0.0),
+                            z_min=sec.float_("z_min", d.z_min, lo=0.0),
+                            z_max=sec.float_("z_max", d.z_max, lo=0.0, open_lo=True))
+    if not out.z_min < out.z_max:
+        raise InputError("z_min must be < z_max", file=sec.file, key=sec._key("z_min"))
+    return out
+
+
+def _parse_bands(sec: _Section | None) -> tuple[tuple[str, float], ...]:
+    if sec is None:
+        return ()
+    out = []
+    for b in sec.raw:
+        bsec = _Section(sec.raw[b], sec._key(b), sec.file)
+        bsec.check_keys({"wavelength_um"})
+        if "wavelength_um" not in bsec.raw:
+            raise InputError("wavelength_um is required", file=sec.file, key=bsec._key("wavelength_um"))
+        out.append((b, bsec.float_("wavelength_um", 0.0, lo=0.1, hi=30.0)))
+    return tuple(out)
+
+
+_MODEL_KEYS = {"band", "bands", "metallicity", "solar_oh", "wesenheit", "priors", "extinction", "scatter", "outliers",
+               "outlier_width", "clip_sigma", "photometric_bias", "pl_break", "pl_break_period", "reddening",
+               "parallax", "supernovae"}
+
+
+def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
+    if sec is None:
+        return ModelSettings(wavelengths=wavelengths)
+    sec.check_keys(_MODEL_KEYS)
     wes_sec = sec.sub("wesenheit")
     wes = _parse_wesenheit(wes_sec) if wes_sec else None
     if wes and "band" in sec.raw:
@@ -283,19 +442,59 @@ def _parse_model(sec: _Section | None) -> ModelSettings:
     priors = dict(DEFAULT_PRIORS)
     psec = sec.sub("priors")
     if psec:
-        psec.check_keys(set(DEFAULT_PRIORS))
+        psec.check_keys(set(DEFAULT_PRIORS) - _NOT_IN_PRIORS)
         for k, raw in psec.raw.items():
             priors[k] = PriorSpec.parse(raw, file=sec.file, key=f"model.priors.{k}", positive=k in _POSITIVE)
         if priors["mu"].dist == "fixed":
             raise InputError("the distance moduli are what the fit is for; mu cannot be fixed",
                              file=sec.file, key="model.priors.mu")
-    return ModelSettings(
+    d = ModelSettings()
+    extinction = _choice(sec, "extinction", EXTINCTION_MODES)
+    bands = sec.get("bands", list, None)
+    if bands is not None and extinction != "multiband":
+        raise InputError("bands lists the bands of extinction = \"multiband\"; use band for one band",
+                         file=sec.file, key="model.bands")
+    if extinction == "multiband":
+        if wes or "band" in sec.raw:
+            raise InputError("extinction = \"multiband\" fits every band; do not give band or [model.wesenheit]",
+                             file=sec.file, key="model.extinction")
+        if bands is None:
+            bands = [b for b, _ in wavelengths]
+        if len(bands) < 2 or not all(isinstance(b, str) and b for b in bands) or len(set(bands)) != len(bands):
+            raise InputError("multiband extinction needs at least two distinct bands (model.bands or [bands.<B>])",
+                             file=sec.file, key="model.bands")
+    out = ModelSettings(
         band=band if not wes else "W",
         metallicity=sec.get("metallicity", bool, True),
         solar_oh=sec.float_("solar_oh", SOLAR_OH_ASPLUND09, lo=5.0, hi=11.0),
         wesenheit=wes,
         priors=tuple(priors.items()),
+        extinction=extinction,
+        bands=tuple(bands or ()),
+        scatter_model=_choice(sec, "scatter", SCATTER_MODES),
+        outliers=_choice(sec, "outliers", OUTLIER_MODES),
+        outlier_width=sec.float_("outlier_width", d.outlier_width, lo=0.0, open_lo=True),
+        clip_sigma=sec.float_("clip_sigma", d.clip_sigma, lo=1.0),
+        photometric_bias=sec.get("photometric_bias", bool, False),
+        pl_break=sec.get("pl_break", bool, False),
+        pl_break_period=sec.float_("pl_break_period", d.pl_break_period, lo=0.0, open_lo=True),
+        reddening=_parse_reddening(sec.sub("reddening")),
+        parallax=_parse_parallax(sec.sub("parallax")),
+        supernovae=_parse_supernovae(sec.sub("supernovae")),
+        wavelengths=wavelengths,
     )
+    if out.needs_law:
+        missing = [b for b in out.fitted_bands if b not in dict(wavelengths)]
+        if missing:
+            raise InputError(f"the reddening law needs the wavelength of band {missing[0]}: add [bands.{missing[0]}] "
+                             "wavelength_um = ...", file=sec.file, key=f"bands.{missing[0]}")
+    if out.outliers == "clip" and out.multiband:
+        raise InputError("outliers = \"clip\" works on one fitted magnitude; use \"mixture\" with multiband",
+                         file=sec.file, key="model.outliers")
+    if out.outliers == "clip" and wes is not None and (wes.free or wes.from_law and out.reddening.free):
+        raise InputError("outliers = \"clip\" needs a fixed Wesenheit R (the clip is done once, before sampling)",
+                         file=sec.file, key="model.outliers")
+    return out
 
 
 def _parse_sampler(sec: _Section | None) -> SamplerSettings:
@@ -336,15 +535,18 @@ def _parse_diagnostics(sec: _Section | None) -> DiagnosticThresholds:
 def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> RunConfig:
     """Validate a parsed run-file mapping; relative data paths are taken relative to ``base``."""
     top = _Section(raw, "", file)
-    top.check_keys({"data", "model", "sampler", "diagnostics"})
+    top.check_keys({"data", "model", "sampler", "diagnostics", "bands"})
     data = top.sub("data")
     if data is None:
         raise InputError("the [data] table is required (cepheids, hosts)", file=file, key="data")
-    data.check_keys({"cepheids", "hosts"})
+    data.check_keys({"cepheids", "hosts", "supernovae"})
     paths = {}
-    for k in ("cepheids", "hosts"):
+    for k in ("cepheids", "hosts", "supernovae"):
         v = data.get(k, str, None)
         if not v:
+            if k == "supernovae":
+                paths[k] = None
+                continue
             raise InputError("is required: a path to the table, relative to the run file", file=file, key=f"data.{k}")
         p = Path(v)
         paths[k] = p if p.is_absolute() else (base / p)
@@ -352,7 +554,8 @@ def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> Run
         path=None,
         cepheids=paths["cepheids"],
         hosts=paths["hosts"],
-        model=_parse_model(top.sub("model")),
+        supernovae=paths["supernovae"],
+        model=_parse_model(top.sub("model"), _parse_bands(top.sub("bands"))),
         sampler=_parse_sampler(top.sub("sampler")),
         diagnostics=_parse_diagnostics(top.sub("diagnostics")),
     )
@@ -370,8 +573,8 @@ def load_run(path: str | Path) -> RunConfig:
     except UnicodeDecodeError:
         raise InputError("not a UTF-8 text file", file=str(path)) from None
     cfg = parse_run(raw, base=path.parent, file=str(path))
-    for key, table in (("data.cepheids", cfg.cepheids), ("data.hosts", cfg.hosts)):
-        if not table.is_file():
+    for key, table in (("data.cepheids", cfg.cepheids), ("data.hosts", cfg.hosts), ("data.supernovae", cfg.supernovae)):
+        if table is not None and not table.is_file():
             what = "is not a file" if table.exists() else "not found"
             raise InputError(f"table {what}: {table}", file=str(path), key=key)
     return dataclasses.replace(cfg, path=path)

@@ -1,21 +1,37 @@
 r"""The joint distance-ladder posterior as a numpyro model, composed from :mod:`ladder.terms`.
 
+For Cepheid *j* of galaxy *i* and band *B* (one fitted magnitude, a Wesenheit index formed in the model,
+or every band with ``extinction = "multiband"``):
+
 .. math::
 
-    m_{ij} &= \mu_i + M_0 + b\,(\log_{10} P_{ij} - 1) + \gamma\,(\mathrm{[O/H]}_{ij} - \mathrm{[O/H]}_\odot)
-              + \epsilon_{ij}, \qquad \epsilon_{ij} \sim \mathcal N(0, \sigma_{ij}^2 + \sigma_\mathrm{int}^2) \\
-    \mu_{\mathrm{geo},a} &\sim \mathcal N(\mu_a, \sigma_{\mathrm{geo},a}^2) \quad \text{for every anchor } a
+    m_{jB} &= \mu_j + M_B(P_j) + \gamma\,([\mathrm{O/H}]_j - [\mathrm{O/H}]_\odot) + \beta_i
+              + \frac{A_B}{A_V}(R_V)\, R_V\, E(B-V)_j + \epsilon_{jB} + s_j \\
+    \epsilon_{jB} &\sim \mathcal N(0, \sigma_{jB}^2), \qquad s_j \sim \mathcal N(0, \sigma_{\mathrm{int},i}^2)
+    \quad [\text{or, with the outlier mixture, } \mathcal N(0, \sigma_{\mathrm{int},i}^2 + w^2) \text{ with probability } f] \\
+    \mu_{\mathrm{geo},a} &\sim \mathcal N(\mu_a, \sigma_{\mathrm{geo},a}^2) \quad \text{(anchors)}, \qquad
+    \varpi_j \sim \mathcal N(1000/d_j + \varpi_0, \sigma_{\varpi,j}^2) \quad \text{(parallax stars)} \\
+    m^\mathrm{SN}_k &\sim \mathcal N(\mu_{i(k)} + M_\mathrm{SN}, \sigma_k^2 + \sigma_\mathrm{SN}^2) \quad \text{(calibrators)}, \qquad
+    m^\mathrm{SN}_k \sim \mathcal N(M_\mathrm{SN} + \mu(z_k; H_0, q_0, j_0), \dots) \quad \text{(Hubble flow)}
 
-Symbols ↔ output names: :math:`\mu_i` ``mu`` (one per galaxy), :math:`M_0` ``pl_zero_point``,
-:math:`b` ``pl_slope``, :math:`\gamma` ``metallicity_coef``, :math:`\sigma_\mathrm{int}` ``scatter``,
-:math:`R` ``wesenheit_r`` (when the Wesenheit index is formed in the model with a free :math:`R`).
+where :math:`\mu_j` is the galaxy's modulus (or the star's own, :math:`5\log_{10} d_j - 5`, for parallax
+stars) and :math:`M_B(P)` the PL relation (optionally broken). Each piece is a term in
+:mod:`ladder.terms`; the switches are in :class:`ladder.config.ModelSettings`.
 
-Observation sites: ``mag_obs`` (one per Cepheid, dim ``star``) and ``mu_geo_obs`` (one per anchor,
-dim ``anchor``); their pointwise log-likelihoods go to the ``log_likelihood`` group.
+Symbols ↔ output names: :math:`\mu_i` ``mu`` (dim ``host``), :math:`M_B` ``pl_zero_point``, :math:`b` ``pl_slope``,
+:math:`b_\mathrm{long}` ``pl_slope_long``, :math:`\gamma` ``metallicity_coef``, :math:`\sigma_\mathrm{int}`
+``scatter`` (per galaxy: ``host_scatter``, spread ``scatter_spread``), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
+:math:`E(B-V)_j` ``ebv`` (galaxy mean ``ebv_mean``), :math:`\beta_i` ``photometric_bias``, :math:`f`
+``outlier_fraction``, :math:`\varpi_0` ``parallax_offset``, :math:`H_0` ``h0``, :math:`M_\mathrm{SN}` ``sn_abs_mag``,
+:math:`\sigma_\mathrm{SN}` ``sn_scatter``.
+
+Observation sites (pointwise log-likelihoods in the ``log_likelihood`` group): ``mag_obs`` (dim ``star``),
+``mu_geo_obs`` (``anchor``), ``parallax_obs`` (``parallax_star``), ``sn_obs`` (``sn``).
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
@@ -24,30 +40,76 @@ from .catalog import LadderData
 from .config import ModelSettings, PriorSpec
 from .errors import InputError
 
-__all__ = ["ModelArrays", "model_arrays", "distance_ladder_model", "GLOBAL_PARAMETERS", "global_parameters"]
+__all__ = ["ModelArrays", "Layout", "model_arrays", "distance_ladder_model", "GLOBAL_PARAMETERS",
+           "global_parameters", "DERIVED_PER_STAR", "star_residuals"]
 
-#: Global (non-per-host) parameters in output order.
-GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "metallicity_coef", "scatter", "wesenheit_r")
+#: Global parameters in output order (vector-valued ones get one row per band).
+GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
+                     "wesenheit_r", "r_v", "outlier_fraction", "parallax_offset", "h0", "sn_abs_mag", "sn_scatter")
+#: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
+DERIVED_PER_STAR = ("outlier_prob",)
 
 
 class ModelArrays(NamedTuple):
-    """What the model reads: plain arrays (a JAX pytree). ``n_stars`` rows, ``n_hosts`` galaxies, ``k`` bands used."""
+    """What the model reads: plain arrays (a JAX pytree). ``k`` = magnitudes per star the model fits."""
 
-    star_host: np.ndarray  # (n_stars,) int
+    star_host: np.ndarray  # (n_stars,) galaxy index
+    star_mu_index: np.ndarray  # (n_stars,) index into concat(mu, mu_parallax)
     log_period: np.ndarray  # (n_stars,)
-    oh: np.ndarray  # (n_stars,), 0 where metallicity is off
-    mag: np.ndarray  # (n_stars, k): the fitted band, or the three Wesenheit bands
-    mag_err: np.ndarray  # (n_stars, k)
-    anchor_index: np.ndarray  # (n_anchors,) int
-    mu_geo: np.ndarray  # (n_anchors,)
-    mu_geo_err: np.ndarray  # (n_anchors,)
+    oh: np.ndarray  # (n_stars,); 0 where metallicity is off
+    mag: np.ndarray  # (n_stars, k_in): fitted band(s) or the three Wesenheit bands; 0 where missing
+    mag_err: np.ndarray  # (n_stars, k_in); 1 where missing
+    mag_mask: np.ndarray  # (n_stars, k_in) bool
+    wavelength: np.ndarray  # (k_in,) micrometres (NaN when no law is needed)
+    star_weight: np.ndarray  # (n_stars,) 1 = fitted, 0 = clipped
+    anchor_slot: np.ndarray  # (n_anchors,) index into mu
+    mu_geo: np.ndarray
+    mu_geo_err: np.ndarray
+    parallax: np.ndarray  # (n_par,) mas
+    parallax_err: np.ndarray
+    bias_host: np.ndarray  # (n_bias,) galaxy index of galaxies with a bias estimate
+    bias_mean: np.ndarray
+    bias_err: np.ndarray
+    sn_slot: np.ndarray  # (n_sn,) index into mu; -1 for the Hubble flow
+    sn_mag: np.ndarray
+    sn_err: np.ndarray
+    sn_z: np.ndarray  # 1 for calibrators (unused)
 
 
-def model_arrays(data: LadderData, settings: ModelSettings) -> ModelArrays:
+@dataclass(frozen=True)
+class Layout:
+    """Static structure (names and sizes) of a model instance; hashable, not traced."""
+
+    galaxies: tuple[str, ...]  # every galaxy of the hosts table (dim of per-galaxy terms)
+    distance_galaxies: tuple[str, ...]  # galaxies with one modulus ``mu`` (all but parallax groups)
+    anchors: tuple[str, ...]
+    stars: tuple[str, ...]
+    parallax_stars: tuple[str, ...]
+    bias_galaxies: tuple[str, ...]
+    supernovae: tuple[str, ...]
+    bands: tuple[str, ...]  # bands the PL parameters are per (one entry unless multiband)
+    input_bands: tuple[str, ...]  # columns of ModelArrays.mag
+
+    @property
+    def n_mu(self) -> int:
+        return len(self.distance_galaxies)
+
+    @property
+    def has_sn(self) -> bool:
+        return len(self.supernovae) > 0
+
+    @property
+    def has_flow(self) -> bool:
+        return self.n_flow > 0
+
+    n_flow: int = 0
+
+
+def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays, Layout]:
     """Check the data against what the model needs and pack the arrays.
 
-    Raises :class:`InputError` for a band the model uses that is missing (column or values) or a
-    metallicity the model needs that is absent.
+    Raises :class:`InputError` for a band the model uses that is missing, a metallicity the model needs that is
+    absent, supernovae whose host has no distance, and other mismatches between the run file and the tables.
     """
     file = data.files.get("cepheids", "cepheids table")
     rows = data.star_rows if data.star_rows is not None else np.arange(data.n_stars)
@@ -56,12 +118,21 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> ModelArrays:
         if b not in data.bands:
             raise InputError(f"the model fits band {b} but there is no column mag_{b} "
                              f"(bands present: {', '.join(data.bands)})", file=file, key=f"mag_{b}")
-        j = data.band_index(b)
-        miss = np.flatnonzero(~np.isfinite(data.mag[:, j]))
-        if miss.size:
-            raise InputError(f"the model fits band {b}; these stars have no value", file=file, key=f"mag_{b}",
-                             rows=rows[miss])
-        cols.append(j)
+        cols.append(data.band_index(b))
+    mag = data.mag[:, cols]
+    err = data.mag_err[:, cols]
+    mask = np.isfinite(mag)
+    if settings.multiband:
+        none = np.flatnonzero(~mask.any(axis=1))
+        if none.size:
+            raise InputError(f"these stars have none of the fitted bands {', '.join(settings.fitted_bands)}",
+                             file=file, key=f"mag_{settings.fitted_bands[0]}", rows=rows[none])
+    else:
+        for j, b in enumerate(settings.fitted_bands):
+            miss = np.flatnonzero(~mask[:, j])
+            if miss.size:
+                raise InputError(f"the model fits band {b}; these stars have no value", file=file, key=f"mag_{b}",
+                                 rows=rows[miss])
     if settings.metallicity:
         miss = np.flatnonzero(~np.isfinite(data.oh))
         if miss.size:
@@ -70,74 +141,301 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> ModelArrays:
         oh = data.oh
     else:
         oh = np.zeros(data.n_stars)
+
+    has_d = data.has_distance
+    slot = np.full(data.n_hosts, -1)
+    slot[has_d] = np.arange(int(has_d.sum()))
+    par_stars = np.flatnonzero(data.is_parallax_group[data.star_host])
+    star_mu_index = slot[data.star_host].copy()
+    star_mu_index[par_stars] = int(has_d.sum()) + np.arange(par_stars.size)
     anchors = np.flatnonzero(data.is_anchor)
-    return ModelArrays(
-        star_host=np.asarray(data.star_host, np.int32),
+
+    if settings.photometric_bias:
+        if data.host_bias is None or not np.isfinite(data.host_bias).any():
+            raise InputError("photometric_bias = true but the hosts table has no bias, bias_err values",
+                             file=data.files.get("hosts", "hosts table"), key="bias")
+        bias_host = np.flatnonzero(np.isfinite(data.host_bias_err))
+    else:
+        bias_host = np.zeros(0, int)
+
+    sne = data.supernovae
+    sn_keep = np.zeros(0, int)
+    n_flow = 0
+    if sne is not None:
+        from .supernovae import select_hubble_flow
+
+        s = settings.supernovae
+        flow = select_hubble_flow(sne, s.z_min, s.z_max)
+        sn_keep = np.flatnonzero(sne.is_calibrator | flow)
+        n_flow = int(flow.sum())
+        cal_hosts = sne.host_index[sne.is_calibrator]
+        if n_flow and not sne.is_calibrator.any():
+            raise InputError("Hubble-flow supernovae but no calibrator (a supernova in a Cepheid galaxy) to set "
+                             "their absolute magnitude", file=sne.file, key="host")
+        del cal_hosts
+    sn_slot = np.array([slot[h] if h >= 0 else -1 for h in (sne.host_index[sn_keep] if sne is not None else [])],
+                       dtype=np.int64)
+
+    wavelength = np.array([dict(settings.wavelengths).get(b, np.nan) for b in settings.fitted_bands])
+    arrays = ModelArrays(
+        star_host=np.asarray(data.star_host, np.int64),
+        star_mu_index=np.asarray(star_mu_index, np.int64),
         log_period=np.asarray(data.log_period, float),
         oh=np.asarray(oh, float),
-        mag=data.mag[:, cols].astype(float),
-        mag_err=data.mag_err[:, cols].astype(float),
-        anchor_index=anchors.astype(np.int32),
+        mag=np.where(mask, mag, 0.0),
+        mag_err=np.where(mask, err, 1.0),
+        mag_mask=mask,
+        wavelength=wavelength,
+        star_weight=np.ones(data.n_stars),
+        anchor_slot=slot[anchors].astype(np.int64),
         mu_geo=data.mu_geo[anchors].astype(float),
         mu_geo_err=data.mu_geo_err[anchors].astype(float),
+        parallax=np.asarray(data.parallax[par_stars], float) if par_stars.size else np.zeros(0),
+        parallax_err=np.asarray(data.parallax_err[par_stars], float) if par_stars.size else np.zeros(0),
+        bias_host=bias_host.astype(np.int64),
+        bias_mean=np.asarray(data.host_bias[bias_host], float) if bias_host.size else np.zeros(0),
+        bias_err=np.asarray(data.host_bias_err[bias_host], float) if bias_host.size else np.zeros(0),
+        sn_slot=sn_slot,
+        sn_mag=sne.mag[sn_keep].astype(float) if sne is not None else np.zeros(0),
+        sn_err=sne.mag_err[sn_keep].astype(float) if sne is not None else np.zeros(0),
+        sn_z=np.where(sn_slot < 0, sne.z[sn_keep], 1.0) if sne is not None else np.zeros(0),
     )
+    layout = Layout(
+        galaxies=tuple(data.host_names),
+        distance_galaxies=tuple(h for h, k in zip(data.host_names, has_d) if k),
+        anchors=tuple(data.host_names[i] for i in anchors),
+        stars=tuple(data.star_names),
+        parallax_stars=tuple(data.star_names[i] for i in par_stars),
+        bias_galaxies=tuple(data.host_names[i] for i in bias_host),
+        supernovae=tuple(sne.sn_names[i] for i in sn_keep) if sne is not None else (),
+        bands=settings.fitted_bands if settings.multiband else (settings.band,),
+        input_bands=settings.fitted_bands,
+        n_flow=n_flow,
+    )
+    return arrays, layout
 
 
-def global_parameters(settings: ModelSettings) -> list[str]:
-    """Names of the sampled global parameters for these settings (fixed ones excluded)."""
+def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> list[str]:
+    """Names of the sampled global parameters for these settings and data (fixed ones excluded)."""
+    par = bool(layout and layout.parallax_stars)
+    sn = bool(layout and layout.has_sn)
+    flow = bool(layout and layout.has_flow)
+    w = settings.wesenheit
+    wanted = {
+        "pl_zero_point": True, "pl_slope": True, "pl_slope_long": settings.pl_break,
+        "metallicity_coef": settings.metallicity, "scatter": True,
+        "scatter_spread": settings.scatter_model == "per_host",
+        "wesenheit_r": w is not None and w.free,
+        "r_v": settings.needs_law and settings.reddening.free,
+        "outlier_fraction": settings.outliers == "mixture",
+        "parallax_offset": par, "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
+    }
     names = []
     for name in GLOBAL_PARAMETERS:
-        if name == "metallicity_coef" and not settings.metallicity:
+        if not wanted[name]:
             continue
-        if name == "wesenheit_r":
-            if settings.wesenheit is not None and settings.wesenheit.free:
-                names.append(name)
-            continue
-        if settings.prior(name).dist != "fixed":
+        if name in ("wesenheit_r", "r_v") or settings.prior(name).dist != "fixed":
             names.append(name)
     return names
 
 
-def _star_magnitude(mu, log_period, oh, zero_point, slope, metallicity_coef, solar_oh):
-    """Predicted apparent magnitude of one Cepheid (scalar inputs): composition of the terms."""
+def _star_magnitude(mu, log_period, oh, zero_point, slope, slope_long, metallicity_coef, bias, extinction,
+                    solar_oh, break_log_period):
+    """Predicted magnitude of one Cepheid in one band (scalar inputs): the composition of the terms."""
     from .terms import metallicity_offset, pl_absolute_magnitude
+    from .terms.pl import pl_absolute_magnitude_broken
 
-    return mu + pl_absolute_magnitude(log_period, zero_point, slope) + metallicity_offset(oh, solar_oh, metallicity_coef)
+    if break_log_period is None:
+        pl = pl_absolute_magnitude(log_period, zero_point, slope)
+    else:
+        pl = pl_absolute_magnitude_broken(log_period, zero_point, slope, slope_long, break_log_period)
+    return mu + pl + metallicity_offset(oh, solar_oh, metallicity_coef) + bias + extinction
 
 
-def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, n_hosts: int):
+def _star_distribution():
+    """numpyro distribution of one star's k magnitudes (event), batched over stars: see terms.noise."""
+    import jax
+    import jax.numpy as jnp
+    import numpyro.distributions as dist
+    from numpyro.distributions import constraints
+
+    from .terms.noise import common_offset_normal_logpdf
+
+    logpdf = jax.vmap(common_offset_normal_logpdf)
+
+    class StarMagnitudes(dist.Distribution):
+        support = constraints.real_vector
+
+        def __init__(self, loc, var, mask, offset_var, fraction=None, broad_var=None, weight=None):
+            self.loc, self.var, self.mask, self.offset_var = loc, var, mask, offset_var
+            self.fraction, self.broad_var, self.weight = fraction, broad_var, weight
+            super().__init__(batch_shape=loc.shape[:1], event_shape=loc.shape[1:])
+
+        def sample(self, key, sample_shape=()):
+            k1, k2 = jax.random.split(key)
+            shape = sample_shape + self.loc.shape
+            common = jax.random.normal(k1, shape[:-1] + (1,)) * jnp.sqrt(self.offset_var)[..., None]
+            return self.loc + jnp.sqrt(self.var) * jax.random.normal(k2, shape) + common
+
+        def log_prob(self, value):
+            r = value - self.loc
+            core = logpdf(r, self.var, self.mask, self.offset_var)
+            if self.fraction is not None:
+                broad = logpdf(r, self.var, self.mask, self.broad_var)
+                core = jnp.logaddexp(jnp.log1p(-self.fraction) + core, jnp.log(self.fraction) + broad)
+            return core if self.weight is None else core * self.weight
+
+        def membership(self, value):
+            """Posterior probability of the broad (outlier) component, per star."""
+            r = value - self.loc
+            core = jnp.log1p(-self.fraction) + logpdf(r, self.var, self.mask, self.offset_var)
+            broad = jnp.log(self.fraction) + logpdf(r, self.var, self.mask, self.broad_var)
+            return jnp.exp(broad - jnp.logaddexp(core, broad))
+
+    return StarMagnitudes
+
+
+def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: Layout):
     """numpyro model of the joint posterior (see the module docstring)."""
     import jax
     import jax.numpy as jnp
     import numpyro
     import numpyro.distributions as dist
+    from numpyro.distributions import constraints
 
     from .priors import sample_parameter
     from .terms import wesenheit_error, wesenheit_index
 
-    mu = sample_parameter("mu", settings.prior("mu"), (n_hosts,))
-    zero_point = sample_parameter("pl_zero_point", settings.prior("pl_zero_point"))
-    slope = sample_parameter("pl_slope", settings.prior("pl_slope"))
-    if settings.metallicity:
-        gamma = sample_parameter("metallicity_coef", settings.prior("metallicity_coef"))
-    else:
-        gamma = jnp.zeros(())
+    n_gal, n_bands = len(layout.galaxies), len(layout.bands)
+    band_shape = (n_bands,) if settings.multiband else ()
+    mu = sample_parameter("mu", settings.prior("mu"), (layout.n_mu,))
+    zero_point = sample_parameter("pl_zero_point", settings.prior("pl_zero_point"), band_shape)
+    slope = sample_parameter("pl_slope", settings.prior("pl_slope"), band_shape)
+    slope_long = sample_parameter("pl_slope_long", settings.prior("pl_slope_long"), band_shape) \
+        if settings.pl_break else slope
+    gamma = sample_parameter("metallicity_coef", settings.prior("metallicity_coef")) if settings.metallicity \
+        else jnp.zeros(())
     scatter = sample_parameter("scatter", settings.prior("scatter"))
-
-    if settings.wesenheit is None:
-        obs, err = arrays.mag[:, 0], arrays.mag_err[:, 0]
+    if settings.scatter_model == "per_host":
+        spread = sample_parameter("scatter_spread", settings.prior("scatter_spread"))
+        z = numpyro.sample("host_scatter_z", dist.Normal(0.0, 1.0).expand((n_gal,)))
+        host_scatter = numpyro.deterministic("host_scatter", scatter * jnp.exp(spread * z))
+        star_scatter = host_scatter[arrays.star_host]
     else:
-        w = settings.wesenheit
-        spec = PriorSpec("normal", (("loc", w.r), ("scale", w.r_err))) if w.free else PriorSpec("fixed", (("value", w.r),))
-        r = sample_parameter("wesenheit_r", spec)
-        obs = wesenheit_index(arrays.mag[:, 0], arrays.mag[:, 1], arrays.mag[:, 2], r)
-        err = wesenheit_error(arrays.mag_err[:, 0], arrays.mag_err[:, 1], arrays.mag_err[:, 2], r,
-                              w.bands[0] == w.bands[1], w.bands[0] == w.bands[2])
+        star_scatter = jnp.broadcast_to(scatter, arrays.log_period.shape)
 
-    predict = jax.vmap(_star_magnitude, in_axes=(0, 0, 0, None, None, None, None))
-    pred = predict(mu[arrays.star_host], arrays.log_period, arrays.oh, zero_point, slope, gamma, settings.solar_oh)
-    sd = jnp.sqrt(err**2 + scatter**2)
+    # Distances: one modulus per galaxy, plus one per parallax star (latent distance, EDSD prior).
+    mu_all = mu
+    n_par = len(layout.parallax_stars)
+    if n_par:
+        from .terms.parallax import log_prior_in_log_distance, parallax_log_likelihood
+
+        log_d = numpyro.sample("log_distance_pc", dist.ImproperUniform(constraints.real, (n_par,), ()))
+        numpyro.factor("distance_prior", jnp.sum(log_prior_in_log_distance(log_d, settings.parallax.length_scale_pc)))
+        d_pc = jnp.exp(log_d)
+        offset = sample_parameter("parallax_offset", settings.prior("parallax_offset"))
+        with numpyro.plate("parallax_star", n_par):
+            numpyro.sample("parallax_obs", dist.Normal(1000.0 / d_pc + offset, arrays.parallax_err),
+                           obs=arrays.parallax)
+        mu_all = jnp.concatenate([mu, 5.0 * jnp.log10(d_pc) - 5.0])
+    star_mu = mu_all[arrays.star_mu_index]
+
+    bias = jnp.zeros(n_gal)
+    if arrays.bias_host.shape[0]:
+        bz = numpyro.sample("photometric_bias_z", dist.Normal(0.0, 1.0).expand((arrays.bias_host.shape[0],)))
+        b = numpyro.deterministic("photometric_bias", arrays.bias_mean + arrays.bias_err * bz)
+        bias = bias.at[arrays.bias_host].set(b)
+    star_bias = bias[arrays.star_host]
+
+    # Reddening: R_V, the law at the bands' wavelengths.
+    r_v = None
+    if settings.needs_law:
+        from .reddening import extinction_ratio
+
+        rd = settings.reddening
+        r_v = numpyro.sample("r_v", dist.TruncatedNormal(rd.rv, rd.rv_err, low=1.0)) if rd.free else jnp.asarray(rd.rv)
+        ratio = extinction_ratio(rd.law, arrays.wavelength, r_v)  # (k_in,) A_B / A_V
+
+    # The observed magnitudes and their errors as the model sees them.
+    if settings.wesenheit is not None:
+        w = settings.wesenheit
+        if w.from_law:
+            r = numpyro.deterministic("wesenheit_r", ratio[0] / (ratio[1] - ratio[2])) if rd.free \
+                else ratio[0] / (ratio[1] - ratio[2])
+        else:
+            spec = PriorSpec("normal", (("loc", w.r), ("scale", w.r_err))) if w.free else \
+                PriorSpec("fixed", (("value", w.r),))
+            r = sample_parameter("wesenheit_r", spec)
+        m, e = arrays.mag, arrays.mag_err
+        obs = wesenheit_index(m[:, 0], m[:, 1], m[:, 2], r)[:, None]
+        err = wesenheit_error(e[:, 0], e[:, 1], e[:, 2], r, w.bands[0] == w.bands[1], w.bands[0] == w.bands[2])
+        err, mask = err[:, None], jnp.ones_like(obs, dtype=bool)
+    else:
+        obs, err, mask = arrays.mag, arrays.mag_err, arrays.mag_mask
+
+    extinction = jnp.zeros_like(obs)
+    if settings.multiband:
+        ebv_mean = sample_parameter("ebv_mean", settings.prior("ebv_mean"), (n_gal,))
+        unit = numpyro.sample("ebv_unit", dist.Exponential(1.0).expand(arrays.log_period.shape))
+        ebv = numpyro.deterministic("ebv", ebv_mean[arrays.star_host] * unit)
+        extinction = (ratio * r_v)[None, :] * ebv[:, None]
+
+    break_x = None if not settings.pl_break else float(np.log10(settings.pl_break_period))
+    zp_b = jnp.broadcast_to(zero_point, (n_bands,))
+    sl_b = jnp.broadcast_to(slope, (n_bands,))
+    sll_b = jnp.broadcast_to(slope_long, (n_bands,))
+    per_band = jax.vmap(_star_magnitude, in_axes=(None, None, None, 0, 0, 0, None, None, 0, None, None))
+    per_star = jax.vmap(per_band, in_axes=(0, 0, 0, None, None, None, None, 0, 0, None, None))
+    pred = per_star(star_mu, arrays.log_period, arrays.oh, zp_b, sl_b, sll_b, gamma, star_bias, extinction,
+                    settings.solar_oh, break_x)
+
+    Star = _star_distribution()
+    var = err**2
+    offset_var = star_scatter**2
+    fraction = broad_var = None
+    if settings.outliers == "mixture":
+        fraction = sample_parameter("outlier_fraction", settings.prior("outlier_fraction"))
+        broad_var = offset_var + settings.outlier_width**2
+    d = Star(pred, var, mask, offset_var, fraction, broad_var,
+             weight=arrays.star_weight if settings.outliers == "clip" else None)
     with numpyro.plate("star", arrays.log_period.shape[0]):
-        numpyro.sample("mag_obs", dist.Normal(pred, sd), obs=obs)
-    with numpyro.plate("anchor", arrays.anchor_index.shape[0]):
-        numpyro.sample("mu_geo_obs", dist.Normal(mu[arrays.anchor_index], arrays.mu_geo_err), obs=arrays.mu_geo)
+        numpyro.sample("mag_obs", d, obs=obs)
+    if fraction is not None:
+        numpyro.deterministic("outlier_prob", d.membership(obs))
+
+    with numpyro.plate("anchor", arrays.anchor_slot.shape[0]):
+        numpyro.sample("mu_geo_obs", dist.Normal(mu[arrays.anchor_slot], arrays.mu_geo_err), obs=arrays.mu_geo)
+
+    if layout.has_sn:
+        from .terms.hubble import calibrator_magnitude, hubble_flow_magnitude, sn_magnitude_sd
+
+        m_sn = sample_parameter("sn_abs_mag", settings.prior("sn_abs_mag"))
+        s_sn = sample_parameter("sn_scatter", settings.prior("sn_scatter"))
+        is_flow = arrays.sn_slot < 0
+        cal = calibrator_magnitude(mu[jnp.maximum(arrays.sn_slot, 0)], m_sn)
+        if layout.has_flow:
+            h0 = sample_parameter("h0", settings.prior("h0"))
+            s = settings.supernovae
+            flow = hubble_flow_magnitude(arrays.sn_z, h0, m_sn, s.q0, s.j0)
+            loc = jnp.where(is_flow, flow, cal)
+        else:
+            loc = cal
+        sd = sn_magnitude_sd(arrays.sn_err, arrays.sn_z, settings.supernovae.sigma_v, s_sn, is_flow)
+        with numpyro.plate("sn", arrays.sn_slot.shape[0]):
+            numpyro.sample("sn_obs", dist.Normal(loc, sd), obs=arrays.sn_mag)
+
+
+def star_residuals(params: dict, arrays: ModelArrays, layout: Layout, settings: ModelSettings) -> np.ndarray:
+    """Each star's residual (observed minus predicted, mag) at the parameter values ``params``.
+
+    For several bands, the inverse-variance weighted mean over the bands the star was observed in.
+    """
+    import jax.numpy as jnp
+    from numpyro import handlers
+
+    model = handlers.substitute(handlers.seed(distance_ladder_model, 0), data={k: jnp.asarray(v) for k, v in params.items()})
+    site = handlers.trace(model).get_trace(arrays, settings, layout)["mag_obs"]
+    d = site["fn"]
+    r = np.asarray(site["value"]) - np.asarray(d.loc)
+    w = np.where(np.asarray(d.mask), 1.0 / np.asarray(d.var), 0.0)
+    return (w * r).sum(axis=1) / w.sum(axis=1)

@@ -57,6 +57,8 @@ def write_outputs(result, out_dir, *, config=None, force=False, argv=None, plots
         result.idata.to_netcdf(str(tmp / "posterior.nc"))
         result.distances.write(tmp / "distances.ecsv", format="ascii.ecsv")
         result.parameters.write(tmp / "parameters.ecsv", format="ascii.ecsv")
+        if getattr(result, "stars", None) is not None:
+            result.stars.write(tmp / "stars.ecsv", format="ascii.ecsv")
         for name, table in (extra_tables or {}).items():
             table.write(tmp / name, format="ascii.ecsv")
         diag = result.diagnostics.to_dict()

@@ -31,6 +31,49 @@ cancels :math:`A_V` exactly, so the W-band truths are
 :class:`MockSettings` gives the W truths (``pl_zero_point``, ``pl_slope``) and the V and I
 PL relations; the H relation is derived from them, so the W truths hold exactly.
 
+Further effects (each off by default)
+-------------------------------------
+With every switch on, star :math:`k` of galaxy :math:`g` has
+
+.. math::
+
+    m_{B,k} = \mu_k + M_B + b_B\,x_k + \Delta\,\max(0, \log_{10} P_k - \log_{10} P_b)
+              + \gamma\,(\mathrm{oh}_k - \mathrm{oh}_\odot) + \sigma_g z_k + a_B\,A_{V,k}
+              + \beta_g - o_k + \epsilon_{B,k}, \qquad x_k = \log_{10} P_k - 1.
+
+* **Extinction law** (``reddening_law``): :math:`a_B = A_B/A_V` from :mod:`ladder.reddening`
+  (CCM89, Cardelli, Clayton & Mathis 1989, ApJ 345, 245; or Fitzpatrick 1999, PASP 111, 63)
+  at the band wavelengths ``band_wavelength_um`` and ``r_v``, instead of the fixed
+  ``extinction_ratios``; the W truths then use :math:`R = a_H/(a_V - a_I)` of the law.
+* **Parallax group** (``n_parallax``): a galaxy of role ``parallax`` (``parallax_group``,
+  "Milky Way") whose stars each have their own distance :math:`d_k`, drawn from the
+  exponentially decreasing space density prior :math:`p(d) \propto d^2 e^{-d/L}`
+  (Bailer-Jones 2015, PASP 127, 994) truncated to ``parallax_distance_pc``;
+  :math:`\mu_k = 5\log_{10}(d_k/10\,\mathrm{pc})` and the reported parallax is
+  :math:`\varpi_k = 1000/d_k + \varpi_0 + N(0, e_\varpi)` mas.
+* **PL break** (``pl_break_period`` :math:`P_b`, ``pl_slope_long``): every band's slope above
+  the break is its slope below plus the same :math:`\Delta = b_{W,\mathrm{long}} - b_W`. Since
+  :math:`W` weighs the bands by :math:`1 - R\,(1 - 1) = 1`, the W slope above the break is
+  exactly ``pl_slope_long``, and the relation is continuous at :math:`P_b`.
+* **Host scatter** (``scatter_spread`` :math:`s`): :math:`\sigma_g = \sigma_\mathrm{int}\,
+  e^{s u_g}`, :math:`u_g \sim N(0, 1)`, so ``scatter`` is the population median.
+* **Photometric bias** (``bias_sd``): :math:`\beta_g \sim N(0, \sigma_\beta)` for every galaxy
+  of role ``host`` (0 for anchors and the parallax group), added to all bands (W moves by
+  :math:`\beta_g` too); the hosts table reports :math:`\beta_g + N(0, e_\beta)`.
+* **Outliers** (``outlier_fraction`` :math:`f`): a star of a ``host`` galaxy is blended with
+  probability :math:`f`; a blend is brighter in all bands by :math:`o_k` uniform in
+  ``outlier_shift`` (and so is its W).
+* **Supernovae** (``n_hubble_flow``): one SN Ia in a share ``sn_calibrator_fraction`` of the
+  ``host`` galaxies, :math:`m = \mu_g + M_\mathrm{SN} + N(0, \sigma_\mathrm{SN}) + N(0, e)`;
+  Hubble-flow SNe at cosmological redshift :math:`z` uniform in ``sn_z``,
+  :math:`m = \mu(z; H_0, q_0, j_0) + M_\mathrm{SN} + N(0, \sigma_\mathrm{SN}) + N(0, e)` with the
+  kinematic distance of :mod:`ladder.cosmography` (Visser 2004, CQG 21, 2603), and reported
+  redshift :math:`z_\mathrm{obs} = z + v/c`, :math:`v \sim N(0, \sigma_v)` (peculiar velocity
+  added to :math:`cz`, to first order).
+
+``noise = False`` removes all measurement noise (magnitudes, parallaxes, bias estimates);
+physical scatter (``scatter``, ``sn_scatter``, ``sigma_v``) has its own switches.
+
 The arithmetic here is written independently of :mod:`ladder.terms` on purpose: a mock made
 with the model's own functions could not catch a mistake in them.
 
@@ -63,7 +106,10 @@ BANDS = ("V", "I", "H")
 WESENHEIT_BANDS = ("H", "V", "I")
 
 #: One child random stream per ingredient, in this order (append new ones at the end only).
-_STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise")
+_STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise",
+            "parallax", "outliers", "host_scatter", "bias", "supernovae")
+
+_SPEED_OF_LIGHT_KMS = 299792.458  # exact (SI); same value as ladder.cosmography, which imports JAX
 
 #: Invented galaxy names of our own scenario (the galaxies of the "Lantern Reach", a made-up
 #: volume of sky). More galaxies than names get a numeric suffix.
@@ -128,8 +174,50 @@ class MockSettings:
         (1.0, 0.56, 0.18): approximate CCM89 ratios (Cardelli, Clayton & Mathis 1989, ApJ 345,
         245) for R_V = 3.1, from memory, for the mock only.
 
-    Further effects (an extinction law instead of fixed ratios, outliers, a PL break, ...) go
-    after the last field, each with a default that switches it off (see the module docstring).
+    Further effects go after the last field, each with a default that switches it off (see
+    the module docstring for the equations):
+
+    Extinction law
+        ``reddening_law`` (None: the fixed ``extinction_ratios``; "ccm89" or "fitzpatrick99":
+        A_B/A_V from :func:`ladder.reddening.extinction_ratio` at ``band_wavelength_um``
+        (V 0.55, I 0.80, H 1.60 um; approximate effective wavelengths, common practice) and
+        ``r_v``). The wavelengths are also written to the run file as ``[bands.B]``.
+
+    Parallax group
+        ``n_parallax`` (0) stars, in addition to ``n_cepheids``, in one extra galaxy
+        ``parallax_group`` ("Milky Way", role "parallax", appended after the others). Distances
+        from p(d) ~ d^2 exp(-d/L), L = ``parallax_length_scale_pc`` (1350; Bailer-Jones 2015,
+        PASP 127, 994), truncated to ``parallax_distance_pc`` (300, 5000). Parallax =
+        1000/d + ``parallax_offset`` (0.0 mas) + N(0, ``parallax_err_mas`` = 0.03). log10 P
+        uniform in ``parallax_log_period`` (0.4, 1.8); photometric errors uniform in
+        ``parallax_mag_err`` (0.01, 0.03) in all bands; galaxy oh = ``solar_oh``; E(B-V) as for
+        the other galaxies.
+
+    PL break
+        ``pl_break_period`` (None: off; days) and ``pl_slope_long`` (W slope above it; required
+        with a break). Every band's slope above the break is shifted by the same
+        pl_slope_long - pl_slope, which makes the W slope above exactly pl_slope_long.
+
+    Outliers
+        ``outlier_fraction`` (0.0) of the stars of role-"host" galaxies are blends, brighter in
+        all bands by a shift uniform in ``outlier_shift`` (0.3, 1.5) mag.
+
+    Host scatter
+        ``scatter_spread`` (0.0): sigma_int of galaxy g = scatter * exp(spread * u_g),
+        u_g ~ N(0, 1), for every galaxy (the parallax group included).
+
+    Photometric bias
+        ``bias_sd`` (0.0): b_g ~ N(0, bias_sd) added to all magnitudes of the stars of
+        role-"host" galaxies; hosts table columns ``bias`` = b_g + N(0, ``bias_err`` = 0.02)
+        and ``bias_err`` (masked for anchors and the parallax group).
+
+    Supernovae
+        ``n_hubble_flow`` (0: no supernovae) SNe Ia in the Hubble flow, z uniform in ``sn_z``
+        (0.023, 0.15), plus one SN in each of a share ``sn_calibrator_fraction`` (1.0, rounded
+        to whole galaxies, chosen at random) of the role-"host" galaxies. Truths ``h0``
+        (73.0 km/s/Mpc), ``sn_abs_mag`` (-19.25), ``sn_scatter`` (0.12 mag), ``sigma_v``
+        (250 km/s), ``q0`` (-0.55), ``j0`` (1.0); errors uniform in ``sn_mag_err``
+        (0.08, 0.12) mag.
     """
 
     # --- sample -----------------------------------------------------------------------------
@@ -172,6 +260,40 @@ class MockSettings:
     r_v: float = 3.1
     extinction_ratios: tuple[float, float, float] = (1.0, 0.56, 0.18)
     # --- further effects: add new fields below, each off by default -------------------------
+    # extinction law (None: the fixed extinction_ratios above)
+    reddening_law: str | None = None
+    band_wavelength_um: tuple[float, float, float] = (0.55, 0.80, 1.60)
+    # parallax group
+    n_parallax: int = 0
+    parallax_group: str = "Milky Way"
+    parallax_length_scale_pc: float = 1350.0
+    parallax_distance_pc: tuple[float, float] = (300.0, 5000.0)
+    parallax_offset: float = 0.0
+    parallax_err_mas: float = 0.03
+    parallax_log_period: tuple[float, float] = (0.4, 1.8)
+    parallax_mag_err: tuple[float, float] = (0.01, 0.03)
+    # PL break
+    pl_break_period: float | None = None
+    pl_slope_long: float | None = None
+    # outliers (blends)
+    outlier_fraction: float = 0.0
+    outlier_shift: tuple[float, float] = (0.3, 1.5)
+    # per-galaxy intrinsic scatter
+    scatter_spread: float = 0.0
+    # photometric bias
+    bias_sd: float = 0.0
+    bias_err: float = 0.02
+    # supernovae
+    n_hubble_flow: int = 0
+    sn_calibrator_fraction: float = 1.0
+    h0: float = 73.0
+    sn_abs_mag: float = -19.25
+    sn_scatter: float = 0.12
+    sigma_v: float = 250.0
+    sn_z: tuple[float, float] = (0.023, 0.15)
+    sn_mag_err: tuple[float, float] = (0.08, 0.12)
+    q0: float = -0.55
+    j0: float = 1.0
 
     def __post_init__(self) -> None:
         for name in ("n_hosts", "n_anchors", "n_cepheids", "min_cepheids"):
@@ -204,12 +326,99 @@ class MockSettings:
         a = dict(zip(BANDS, self.extinction_ratios))
         if a["V"] == a["I"]:
             raise ValueError("extinction_ratios: a_V = a_I leaves the Wesenheit ratio undefined")
+        self._check_further_effects()
+
+    def _check_further_effects(self) -> None:
+        def finite(name: str, v: Any) -> float:
+            if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)) or not math.isfinite(v):
+                raise ValueError(f"{name} must be a finite number, got {v!r}")
+            return float(v)
+
+        def count(name: str) -> None:
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < 0:
+                raise ValueError(f"{name} must be a non-negative integer, got {v!r}")
+
+        if not (isinstance(self.r_v, (int, float)) and not isinstance(self.r_v, bool)
+                and math.isfinite(self.r_v) and self.r_v > 0):
+            raise ValueError(f"r_v must be a finite number > 0, got {self.r_v!r}")
+        if len(self.band_wavelength_um) != len(BANDS) or not all(
+                finite("band_wavelength_um", w) > 0 for w in self.band_wavelength_um):
+            raise ValueError(f"band_wavelength_um needs one wavelength > 0 (um) per band {BANDS}")
+        if self.reddening_law is not None:
+            ratios = self.band_extinction_ratios  # ValueError for an unknown law
+            if not all(math.isfinite(x) for x in ratios):
+                raise ValueError(f"reddening law {self.reddening_law!r} is not defined at the band wavelengths "
+                                 f"{self.band_wavelength_um} um")
+            if ratios[BANDS.index("V")] == ratios[BANDS.index("I")]:
+                raise ValueError("the reddening law gives a_V = a_I: the Wesenheit ratio is undefined")
+        count("n_parallax")
+        count("n_hubble_flow")
+        if not isinstance(self.parallax_group, str) or not self.parallax_group.strip():
+            raise ValueError("parallax_group must be a non-empty galaxy name")
+        if self.n_parallax and self.parallax_group in _galaxy_names(self.n_hosts):
+            raise ValueError(f"parallax_group {self.parallax_group!r} clashes with a mock galaxy name")
+        if not finite("parallax_length_scale_pc", self.parallax_length_scale_pc) > 0:
+            raise ValueError("parallax_length_scale_pc must be > 0")
+        _range("parallax_distance_pc", self.parallax_distance_pc, positive=True)
+        finite("parallax_offset", self.parallax_offset)
+        if not finite("parallax_err_mas", self.parallax_err_mas) > 0:
+            raise ValueError("parallax_err_mas must be > 0")
+        _range("parallax_log_period", self.parallax_log_period)
+        _range("parallax_mag_err", self.parallax_mag_err, positive=True)
+        if self.pl_break_period is not None:
+            if not finite("pl_break_period", self.pl_break_period) > 0:
+                raise ValueError("pl_break_period must be > 0 (days)")
+            if self.pl_slope_long is None:
+                raise ValueError("pl_slope_long (the W slope above the break) is required with pl_break_period")
+        if self.pl_slope_long is not None:
+            finite("pl_slope_long", self.pl_slope_long)
+            if self.pl_break_period is None:
+                raise ValueError("pl_slope_long needs pl_break_period")
+        if not 0.0 <= finite("outlier_fraction", self.outlier_fraction) <= 1.0:
+            raise ValueError(f"outlier_fraction must be in [0, 1], got {self.outlier_fraction!r}")
+        _range("outlier_shift", self.outlier_shift)
+        if self.outlier_shift[0] < 0:
+            raise ValueError("outlier_shift must be >= 0 (blends are brighter by that many mag)")
+        for name in ("scatter_spread", "bias_sd", "sn_scatter", "sigma_v"):
+            if finite(name, getattr(self, name)) < 0:
+                raise ValueError(f"{name} must be >= 0, got {getattr(self, name)!r}")
+        if not finite("bias_err", self.bias_err) > 0:
+            raise ValueError("bias_err must be > 0")
+        if not 0.0 <= finite("sn_calibrator_fraction", self.sn_calibrator_fraction) <= 1.0:
+            raise ValueError(f"sn_calibrator_fraction must be in [0, 1], got {self.sn_calibrator_fraction!r}")
+        if not finite("h0", self.h0) > 0:
+            raise ValueError("h0 must be > 0 (km/s/Mpc)")
+        for name in ("sn_abs_mag", "q0", "j0"):
+            finite(name, getattr(self, name))
+        _range("sn_z", self.sn_z, positive=True)
+        if 5.0 * self.sigma_v >= _SPEED_OF_LIGHT_KMS * self.sn_z[0]:
+            raise ValueError("sigma_v must be < c z_min / 5 so that the reported redshifts stay positive")
+        _range("sn_mag_err", self.sn_mag_err, positive=True)
+
+    @property
+    def band_extinction_ratios(self) -> tuple[float, float, float]:
+        r"""A_B / A_V per band of :data:`BANDS`: the law's at ``band_wavelength_um`` and ``r_v``, or ``extinction_ratios``."""
+        if self.reddening_law is None:
+            return tuple(self.extinction_ratios)
+        from .reddening import extinction_ratio
+
+        ratios = np.asarray(extinction_ratio(self.reddening_law, np.asarray(self.band_wavelength_um, float),
+                                             float(self.r_v)))
+        return tuple(float(x) for x in ratios)
 
     @property
     def wesenheit_r(self) -> float:
         r"""Wesenheit ratio :math:`R = a_H / (a_V - a_I)` of the mock's extinction ratios."""
-        a = dict(zip(BANDS, self.extinction_ratios))
+        a = dict(zip(BANDS, self.band_extinction_ratios))
         return a["H"] / (a["V"] - a["I"])
+
+    @property
+    def pl_slope_shift(self) -> float:
+        r"""Slope change above the break shared by every band, :math:`\Delta = b_{W,\mathrm{long}} - b_W` (0 without a break)."""
+        if self.pl_break_period is None:
+            return 0.0
+        return float(self.pl_slope_long) - self.pl_slope
 
     @property
     def band_pl(self) -> dict[str, tuple[float, float]]:
@@ -220,6 +429,12 @@ class MockSettings:
         m_h = self.pl_zero_point + r * (m_v - m_i)
         b_h = self.pl_slope + r * (b_v - b_i)
         return {"V": (m_v, b_v), "I": (m_i, b_i), "H": (m_h, b_h)}
+
+    @property
+    def band_pl_slope_long(self) -> dict[str, float]:
+        r"""Band slopes above the PL break, {band: slope + :attr:`pl_slope_shift`}; W's is then ``pl_slope_long``."""
+        d = self.pl_slope_shift
+        return {b: sl + d for b, (_, sl) in self.band_pl.items()}
 
 
 @dataclass(frozen=True, eq=False)
@@ -232,17 +447,32 @@ class Mock:
     seed : int
     cepheids : astropy.table.Table
         Data-contract cepheids table, (n_stars rows): star, host, period [d], oh [dex],
-        mag_V, mag_V_err, mag_I, mag_I_err, mag_H, mag_H_err, mag_W, mag_W_err [mag].
+        mag_V, mag_V_err, mag_I, mag_I_err, mag_H, mag_H_err, mag_W, mag_W_err [mag]; with a
+        parallax group also parallax, parallax_err [mas] (masked outside the group).
     hosts : astropy.table.Table
-        Data-contract hosts table, (n_hosts rows): host, role, mu_geo, mu_geo_err [mag]
-        (masked for role "host"), oh [dex].
+        Data-contract hosts table, (n_galaxies rows): host, role, mu_geo, mu_geo_err [mag]
+        (masked unless role "anchor"), oh [dex]; with ``bias_sd`` > 0 also bias, bias_err [mag]
+        (masked unless role "host"). The parallax group, if any, is the last row.
     truth : dict
         W-band truths (pl_zero_point, pl_slope, metallicity_coef, scatter, solar_oh),
-        wesenheit_r, per-galaxy ``mu``, ``oh`` and ``ebv_mean`` as {name: value}, ``band_pl``
-        {band: {zero_point, slope}}, ``extinction_ratios``, ``r_v``, ``seed`` and ``settings``.
+        wesenheit_r, per-galaxy ``mu`` (not for the parallax group), ``oh`` and ``ebv_mean`` as
+        {name: value}, ``band_pl`` {band: {zero_point, slope[, slope_long]}},
+        ``extinction_ratios``, ``r_v``, ``seed`` and ``settings``. Each effect that is on adds
+        its truths: reddening_law, band_wavelength_um; parallax_offset, parallax_group,
+        parallax_length_scale_pc; pl_break_period, pl_slope_long; outlier_fraction, n_outliers;
+        host_scatter {galaxy: value}, scatter_spread; photometric_bias {galaxy: value}, bias_sd;
+        h0, sn_abs_mag, sn_scatter, sigma_v, q0, j0.
     latent : astropy.table.Table
         Per-star hidden values, same row order as ``cepheids``: star, log_period, ebv,
-        a_v [mag], offset [mag] (the intrinsic scatter draw). Not written to disk.
+        a_v [mag], offset [mag] (the intrinsic scatter draw); with a parallax group also
+        distance_pc and mu (nan outside the group); with outliers also outlier (bool) and
+        outlier_shift [mag] (the brightening, 0 for non-blends). Not written to disk.
+    supernovae : astropy.table.Table or None
+        Supernovae table (``n_hubble_flow`` > 0): sn, host ("" for the Hubble flow), mag,
+        mag_err [mag], z (masked for calibrators). Calibrators first, in galaxy order.
+    sn_latent : astropy.table.Table or None
+        Per-SN hidden values, same row order: sn, mu [mag] (true distance modulus), z_cosmo
+        (nan for calibrators), v_pec [km/s], offset [mag] (the intrinsic scatter draw).
     """
 
     settings: MockSettings
@@ -251,6 +481,8 @@ class Mock:
     hosts: Any
     truth: dict[str, Any]
     latent: Any = field(repr=False)
+    supernovae: Any = None
+    sn_latent: Any = field(default=None, repr=False)
 
 
 # ----------------------------------------------------------------------------- generation
@@ -279,6 +511,94 @@ def _check_seed(seed: int) -> int:
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise ValueError(f"seed must be a non-negative integer, got {seed!r}")
     return int(seed)
+
+
+def _edsd_distances(u: np.ndarray, length: float, lo: float, hi: float) -> np.ndarray:
+    r"""Distances, shape of ``u``, from :math:`p(d) \propto d^2 e^{-d/L}` truncated to [lo, hi].
+
+    Inverse-CDF sampling of the exponentially decreasing space density prior (Bailer-Jones 2015,
+    PASP 127, 994): with :math:`x = d/L` the untruncated CDF is the Gamma(3) one,
+    :math:`F(x) = 1 - e^{-x}(1 + x + x^2/2)`; ``u`` (unit uniform) is mapped onto
+    :math:`[F(lo/L), F(hi/L)]` and :math:`F` inverted by bisection to float64 precision.
+    Units of ``length``, ``lo``, ``hi`` and the result are the same (pc here).
+    """
+    def cdf(x):
+        return -np.expm1(-x) - np.exp(-x) * x * (1.0 + 0.5 * x)
+
+    a, b = lo / length, hi / length
+    target = _uniform_in(np.asarray(u, float), cdf(a), cdf(b))
+    left, right = np.full_like(target, a), np.full_like(target, b)
+    for _ in range(100):
+        mid = 0.5 * (left + right)
+        below = cdf(mid) < target
+        left, right = np.where(below, mid, left), np.where(below, right, mid)
+    return length * 0.5 * (left + right)
+
+
+def _parallax_group(s: MockSettings, rng: np.random.Generator) -> dict[str, np.ndarray]:
+    """Stars of the parallax group, (n_parallax,) each (errors and noise (n_parallax, n_bands))."""
+    n = s.n_parallax
+    d = _edsd_distances(rng.random(n), s.parallax_length_scale_pc, *s.parallax_distance_pc)
+    log_p = _uniform_in(rng.random(n), *s.parallax_log_period)
+    oh = s.solar_oh + s.star_oh_spread * rng.standard_normal(n)
+    ebv_mean = float(_uniform_in(rng.random(), *s.ebv_mean))
+    ebv = ebv_mean * rng.standard_exponential(n)
+    z_scatter = rng.standard_normal(n)
+    err = _uniform_in(rng.random((n, len(BANDS))), *s.parallax_mag_err)
+    noise = err * rng.standard_normal((n, len(BANDS)))
+    plx_noise = s.parallax_err_mas * rng.standard_normal(n)
+    if not s.noise:
+        noise, plx_noise = np.zeros_like(noise), np.zeros_like(plx_noise)
+    return {"distance_pc": d, "mu": 5.0 * np.log10(d) - 5.0, "log_p": log_p, "oh": oh, "ebv_mean": ebv_mean,
+            "ebv": ebv, "z_scatter": z_scatter, "err": err, "noise": noise,
+            "parallax": 1000.0 / d + s.parallax_offset + plx_noise}
+
+
+def _supernovae(s: MockSettings, rng: np.random.Generator, names: list[str], mu: np.ndarray,
+                is_host: np.ndarray):
+    """Supernovae table and its latent table (module docstring, "Supernovae")."""
+    import astropy.units as u
+    from astropy.table import Column, MaskedColumn, Table
+
+    from .cosmography import SPEED_OF_LIGHT_KMS, distance_modulus
+
+    hosts = np.flatnonzero(is_host)
+    n_cal = int(math.floor(s.sn_calibrator_fraction * len(hosts) + 0.5))
+    cal = np.sort(hosts[rng.permutation(len(hosts))[:n_cal]])
+    cal_offset = s.sn_scatter * rng.standard_normal(n_cal)
+    cal_err = _uniform_in(rng.random(n_cal), *s.sn_mag_err)
+    cal_noise = cal_err * rng.standard_normal(n_cal)
+    n_flow = s.n_hubble_flow
+    z = _uniform_in(rng.random(n_flow), *s.sn_z)
+    v_pec = s.sigma_v * rng.standard_normal(n_flow)
+    flow_offset = s.sn_scatter * rng.standard_normal(n_flow)
+    flow_err = _uniform_in(rng.random(n_flow), *s.sn_mag_err)
+    flow_noise = flow_err * rng.standard_normal(n_flow)
+    if not s.noise:
+        cal_noise, flow_noise = np.zeros_like(cal_noise), np.zeros_like(flow_noise)
+    mu_cal = mu[cal]
+    mu_flow = np.asarray(distance_modulus(z, s.h0, s.q0, s.j0), dtype=float)
+    z_obs = z + v_pec / SPEED_OF_LIGHT_KMS
+
+    width = max(4, len(str(n_flow)))
+    sn_names = [f"{names[g]}-sn1" for g in cal] + [f"flow-sn{k + 1:0{width}d}" for k in range(n_flow)]
+    mu_all = np.concatenate([mu_cal, mu_flow])
+    offset = np.concatenate([cal_offset, flow_offset])
+    mag = mu_all + s.sn_abs_mag + offset + np.concatenate([cal_noise, flow_noise])
+    table = Table(meta={"description": "Mock type Ia supernovae (invented data), ladder.simulate"})
+    table["sn"] = Column(sn_names, dtype=str)
+    table["host"] = Column([names[g] for g in cal] + [""] * n_flow, dtype=str)
+    table["mag"] = Column(mag, unit=u.mag)
+    table["mag_err"] = Column(np.concatenate([cal_err, flow_err]), unit=u.mag)
+    table["z"] = MaskedColumn(np.concatenate([np.zeros(n_cal), z_obs]),
+                              mask=np.arange(n_cal + n_flow) < n_cal)
+    latent = Table()
+    latent["sn"] = Column(sn_names, dtype=str)
+    latent["mu"] = Column(mu_all, unit=u.mag)
+    latent["z_cosmo"] = Column(np.concatenate([np.full(n_cal, np.nan), z]))
+    latent["v_pec"] = Column(np.concatenate([np.zeros(n_cal), v_pec]), unit=u.km / u.s)
+    latent["offset"] = Column(offset, unit=u.mag)
+    return table, latent
 
 
 def simulate(settings: MockSettings, seed: int) -> Mock:
@@ -331,11 +651,10 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     is_anchor_star = anchor[g_of]
     oh = galaxy_oh[g_of] + s.star_oh_spread * rng["metallicity"].standard_normal(n)
     ebv = ebv_mean[g_of] * rng["reddening"].standard_exponential(n)
-    a_v = s.r_v * ebv
     lp_lo = np.where(is_anchor_star, s.anchor_log_period[0], s.host_log_period[0])
     lp_hi = np.where(is_anchor_star, s.anchor_log_period[1], s.host_log_period[1])
     log_p = _uniform_in(rng["periods"].random(n), lp_lo, lp_hi)
-    offset = s.scatter * rng["scatter"].standard_normal(n)
+    z_scatter = rng["scatter"].standard_normal(n)
 
     # photometric errors and noise, (n_stars, n_bands)
     host_err = {"V": s.host_mag_err_vi, "I": s.host_mag_err_vi, "H": s.host_mag_err_h}
@@ -345,14 +664,78 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     noise = err * rng["noise"].standard_normal((n, len(BANDS)))
     if not s.noise:
         noise = np.zeros_like(noise)
+    mu_star = mu[g_of]
+
+    # galaxy roles, (n_all,): the parallax group (if any) is appended after the n_gal galaxies
+    roles = ["anchor" if a else "host" for a in anchor]
+    all_names = list(names)
+    all_oh, all_ebv_mean = galaxy_oh, ebv_mean
+    plx = None
+    if s.n_parallax:
+        plx = _parallax_group(s, rng["parallax"])
+        all_names.append(s.parallax_group)
+        roles.append("parallax")
+        all_oh = np.append(galaxy_oh, s.solar_oh)
+        all_ebv_mean = np.append(ebv_mean, plx["ebv_mean"])
+        g_of = np.concatenate([g_of, np.full(s.n_parallax, n_gal)])
+        oh = np.concatenate([oh, plx["oh"]])
+        ebv = np.concatenate([ebv, plx["ebv"]])
+        log_p = np.concatenate([log_p, plx["log_p"]])
+        z_scatter = np.concatenate([z_scatter, plx["z_scatter"]])
+        err = np.concatenate([err, plx["err"]])
+        noise = np.concatenate([noise, plx["noise"]])
+        mu_star = np.concatenate([mu_star, plx["mu"]])
+    n_all = len(all_names)
+    role_of = np.array(roles)
+    is_host_gal = role_of == "host"
+    n_star_all = len(g_of)
+    is_host_star = is_host_gal[g_of]
+    counts_all = np.bincount(g_of, minlength=n_all)
+
+    # intrinsic scatter: one sigma for all, or one per galaxy (population median = scatter)
+    host_sigma = None
+    if s.scatter_spread > 0:
+        host_sigma = s.scatter * np.exp(s.scatter_spread * rng["host_scatter"].standard_normal(n_all))
+        offset = host_sigma[g_of] * z_scatter
+    else:
+        offset = s.scatter * z_scatter
+    a_v = s.r_v * ebv
+
+    # band-independent extras, (n_stars,): PL break, photometric bias, blends
+    extra = np.zeros(n_star_all)
+    any_extra = False
+    if s.pl_break_period is not None:
+        extra += s.pl_slope_shift * np.maximum(0.0, log_p - math.log10(s.pl_break_period))
+        any_extra = True
+    bias_true = None
+    if s.bias_sd > 0:
+        bias_true = np.where(is_host_gal[:n_gal], s.bias_sd * rng["bias"].standard_normal(n_gal), 0.0)
+        bias_noise = s.bias_err * rng["bias"].standard_normal(n_gal) if s.noise else np.zeros(n_gal)
+        bias_meas = bias_true + bias_noise
+        bias_true = np.append(bias_true, np.zeros(n_all - n_gal))
+        bias_meas = np.append(bias_meas, np.zeros(n_all - n_gal))
+        extra += np.where(is_host_star, bias_true[g_of], 0.0)
+        any_extra = True
+    blend = None
+    if s.outlier_fraction > 0:
+        u_blend = rng["outliers"].random(n)
+        u_shift = rng["outliers"].random(n)
+        blend = np.zeros(n_star_all, dtype=bool)
+        blend[:n] = (u_blend < s.outlier_fraction) & is_host_star[:n]
+        shift = np.zeros(n_star_all)
+        shift[:n] = np.where(blend[:n], _uniform_in(u_shift, *s.outlier_shift), 0.0)
+        extra -= shift
+        any_extra = True
 
     pl = s.band_pl
-    ratio = dict(zip(BANDS, s.extinction_ratios))
-    mag = np.empty((n, len(BANDS)))
+    ratio = dict(zip(BANDS, s.band_extinction_ratios))
+    mag = np.empty((n_star_all, len(BANDS)))
     for j, b in enumerate(BANDS):
         zp, slope = pl[b]
-        mag[:, j] = (mu[g_of] + zp + slope * (log_p - 1.0) + s.metallicity_coef * (oh - s.solar_oh)
+        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + s.metallicity_coef * (oh - s.solar_oh)
                      + offset + ratio[b] * a_v + noise[:, j])
+        if any_extra:
+            mag[:, j] += extra
 
     r = s.wesenheit_r
     j1, j2, j3 = (BANDS.index(b) for b in WESENHEIT_BANDS)
@@ -360,9 +743,9 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     mag_w_err = np.sqrt(err[:, j1] ** 2 + r**2 * (err[:, j2] ** 2 + err[:, j3] ** 2))
 
     # tables
-    width = max(4, len(str(int(counts.max()))))
-    stars = [f"{names[g]}-c{k + 1:0{width}d}" for g in range(n_gal) for k in range(counts[g])]
-    hosts_col = [names[g] for g in g_of]
+    width = max(4, len(str(int(counts_all.max()))))
+    stars = [f"{all_names[g]}-c{k + 1:0{width}d}" for g in range(n_all) for k in range(counts_all[g])]
+    hosts_col = [all_names[g] for g in g_of]
     cep = Table(meta={"description": f"Mock Cepheid catalogue (invented data), ladder.simulate seed {seed}"})
     cep["star"] = Column(stars, dtype=str)
     cep["host"] = Column(hosts_col, dtype=str)
@@ -373,13 +756,23 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         cep[f"mag_{b}_err"] = Column(err[:, j], unit=u.mag)
     cep["mag_W"] = Column(mag_w, unit=u.mag)
     cep["mag_W_err"] = Column(mag_w_err, unit=u.mag)
+    if plx is not None:
+        in_group = np.arange(n_star_all) >= n
+        cep["parallax"] = MaskedColumn(np.concatenate([np.zeros(n), plx["parallax"]]), mask=~in_group, unit=u.mas)
+        cep["parallax_err"] = MaskedColumn(np.where(in_group, s.parallax_err_mas, 0.0), mask=~in_group, unit=u.mas)
 
+    anchor_all = role_of == "anchor"
+    mu_geo_all = np.concatenate([mu_geo, np.zeros(n_all - n_gal)])
+    mu_err_all = np.concatenate([mu_err, np.zeros(n_all - n_gal)])
     hosts = Table(meta={"description": f"Mock galaxies (invented data), ladder.simulate seed {seed}"})
-    hosts["host"] = Column(names, dtype=str)
-    hosts["role"] = Column(np.where(anchor, "anchor", "host"), dtype=str)
-    hosts["mu_geo"] = MaskedColumn(np.where(anchor, mu_geo, 0.0), mask=~anchor, unit=u.mag)
-    hosts["mu_geo_err"] = MaskedColumn(np.where(anchor, mu_err, 0.0), mask=~anchor, unit=u.mag)
-    hosts["oh"] = Column(galaxy_oh, unit=u.dex)
+    hosts["host"] = Column(all_names, dtype=str)
+    hosts["role"] = Column(role_of, dtype=str)
+    hosts["mu_geo"] = MaskedColumn(np.where(anchor_all, mu_geo_all, 0.0), mask=~anchor_all, unit=u.mag)
+    hosts["mu_geo_err"] = MaskedColumn(np.where(anchor_all, mu_err_all, 0.0), mask=~anchor_all, unit=u.mag)
+    hosts["oh"] = Column(all_oh, unit=u.dex)
+    if bias_true is not None:
+        hosts["bias"] = MaskedColumn(np.where(is_host_gal, bias_meas, 0.0), mask=~is_host_gal, unit=u.mag)
+        hosts["bias_err"] = MaskedColumn(np.where(is_host_gal, s.bias_err, 0.0), mask=~is_host_gal, unit=u.mag)
 
     latent = Table()
     latent["star"] = Column(stars, dtype=str)
@@ -387,7 +780,17 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     latent["ebv"] = Column(ebv, unit=u.mag)
     latent["a_v"] = Column(a_v, unit=u.mag)
     latent["offset"] = Column(offset, unit=u.mag)
+    if plx is not None:
+        latent["distance_pc"] = Column(np.concatenate([np.full(n, np.nan), plx["distance_pc"]]), unit=u.pc)
+        latent["mu"] = Column(np.concatenate([np.full(n, np.nan), plx["mu"]]), unit=u.mag)
+    if blend is not None:
+        latent["outlier"] = Column(blend)
+        latent["outlier_shift"] = Column(shift, unit=u.mag)
 
+    band_pl = {b: {"zero_point": float(zp), "slope": float(sl)} for b, (zp, sl) in pl.items()}
+    if s.pl_break_period is not None:
+        for b, sl in s.band_pl_slope_long.items():
+            band_pl[b]["slope_long"] = float(sl)
     truth = {
         "band": "W",
         "pl_zero_point": s.pl_zero_point,
@@ -398,15 +801,41 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         "wesenheit_r": r,
         "wesenheit_bands": list(WESENHEIT_BANDS),
         "mu": {names[g]: float(mu[g]) for g in range(n_gal)},
-        "oh": {names[g]: float(galaxy_oh[g]) for g in range(n_gal)},
-        "ebv_mean": {names[g]: float(ebv_mean[g]) for g in range(n_gal)},
-        "band_pl": {b: {"zero_point": float(zp), "slope": float(sl)} for b, (zp, sl) in pl.items()},
+        "oh": {all_names[g]: float(all_oh[g]) for g in range(n_all)},
+        "ebv_mean": {all_names[g]: float(all_ebv_mean[g]) for g in range(n_all)},
+        "band_pl": band_pl,
         "extinction_ratios": dict(ratio),
         "r_v": s.r_v,
-        "seed": seed,
-        "settings": dataclasses.asdict(s),
     }
-    return Mock(settings=s, seed=seed, cepheids=cep, hosts=hosts, truth=truth, latent=latent)
+    if s.reddening_law is not None:
+        truth["reddening_law"] = s.reddening_law
+        truth["band_wavelength_um"] = dict(zip(BANDS, (float(w) for w in s.band_wavelength_um)))
+    if plx is not None:
+        truth["parallax_offset"] = float(s.parallax_offset)
+        truth["parallax_group"] = s.parallax_group
+        truth["parallax_length_scale_pc"] = float(s.parallax_length_scale_pc)
+    if s.pl_break_period is not None:
+        truth["pl_break_period"] = float(s.pl_break_period)
+        truth["pl_slope_long"] = float(s.pl_slope_long)
+    if blend is not None:
+        truth["outlier_fraction"] = float(s.outlier_fraction)
+        truth["n_outliers"] = int(blend.sum())
+    if host_sigma is not None:
+        truth["host_scatter"] = {all_names[g]: float(host_sigma[g]) for g in range(n_all)}
+        truth["scatter_spread"] = float(s.scatter_spread)
+    if bias_true is not None:
+        truth["photometric_bias"] = {all_names[g]: float(bias_true[g]) for g in range(n_all)}
+        truth["bias_sd"] = float(s.bias_sd)
+    sn = sn_latent = None
+    if s.n_hubble_flow:
+        sn, sn_latent = _supernovae(s, rng["supernovae"], names, mu, is_host_gal[:n_gal])
+        sn.meta["description"] += f" seed {seed}"
+        truth.update(h0=float(s.h0), sn_abs_mag=float(s.sn_abs_mag), sn_scatter=float(s.sn_scatter),
+                     sigma_v=float(s.sigma_v), q0=float(s.q0), j0=float(s.j0))
+    truth["seed"] = seed
+    truth["settings"] = dataclasses.asdict(s)
+    return Mock(settings=s, seed=seed, cepheids=cep, hosts=hosts, truth=truth, latent=latent,
+                supernovae=sn, sn_latent=sn_latent)
 
 
 # ----------------------------------------------------------------------------- writing
@@ -454,14 +883,13 @@ def _toml_document(doc: dict[str, dict[str, Any]], header: str) -> str:
     lines = [f"# {line}" if line else "#" for line in header.splitlines()]
 
     def table(path: list[str], d: dict[str, Any]) -> None:
-        lines.append("")
-        lines.append("[" + ".".join(_toml_key(p) for p in path) + "]")
-        subs = []
-        for k, v in d.items():
-            if isinstance(v, dict) and len(path) < 2:
-                subs.append((k, v))
-            else:
-                lines.append(f"{_toml_key(k)} = {_toml_value(v)}")
+        subs = [(k, v) for k, v in d.items() if isinstance(v, dict) and len(path) < 2]
+        keys = [(k, v) for k, v in d.items() if not (isinstance(v, dict) and len(path) < 2)]
+        if keys or not subs:  # a table of sub-tables only needs no header of its own
+            lines.append("")
+            lines.append("[" + ".".join(_toml_key(p) for p in path) + "]")
+        for k, v in keys:
+            lines.append(f"{_toml_key(k)} = {_toml_value(v)}")
         for k, v in subs:
             table(path + [k], v)
 
@@ -486,8 +914,12 @@ def _merge(base: dict[str, Any], over: dict[str, Any]) -> dict[str, Any]:
 
 
 def _run_document(mock: Mock, overrides: dict[str, Any] | None) -> dict[str, Any]:
+    data = {"cepheids": "cepheids.ecsv", "hosts": "hosts.ecsv"}
+    if mock.supernovae is not None:
+        data["supernovae"] = "supernovae.ecsv"
     doc: dict[str, Any] = {
-        "data": {"cepheids": "cepheids.ecsv", "hosts": "hosts.ecsv"},
+        "data": data,
+        "bands": {b: {"wavelength_um": float(w)} for b, w in zip(BANDS, mock.settings.band_wavelength_um)},
         "model": {"band": "W", "metallicity": True, "solar_oh": mock.settings.solar_oh},
         "sampler": {"chains": 4, "warmup": 500, "draws": 1000, "seed": mock.seed},
     }
@@ -501,35 +933,46 @@ def _run_document(mock: Mock, overrides: dict[str, Any] | None) -> dict[str, Any
     return _merge(doc, overrides)
 
 
-def write_mock(mock: Mock, out_dir: str | Path, *, run_overrides: dict[str, Any] | None = None) -> dict[str, Path]:
+def write_mock(mock: Mock, out_dir: str | Path, *, run_overrides: dict[str, Any] | None = None,
+               validate: bool = True) -> dict[str, Path]:
     """Write a mock as ``cepheids.ecsv``, ``hosts.ecsv``, ``truth.json`` and ``run.toml`` in ``out_dir``.
 
+    With supernovae (``n_hubble_flow`` > 0) also ``supernovae.ecsv``, named under ``[data]``.
     The run file fits ``mag_W`` with the metallicity term (chains 4, warmup 500, draws 1000,
-    sampler seed = the mock's seed) and names the tables by paths relative to itself.
+    sampler seed = the mock's seed), names the tables by paths relative to itself and gives
+    each band's effective wavelength as ``[bands.B] wavelength_um``. Switches for the further
+    effects are not set: pass them in ``run_overrides``.
     ``run_overrides`` is merged into it, e.g. ``{"sampler": {"draws": 200}, "model": {"priors":
     {"scatter": {"dist": "fixed", "value": 0.07}}}}``; a value of None removes a key. Giving
-    ``model.wesenheit`` drops the default ``band``. The written run file is read back with
-    :func:`ladder.config.load_run`, so a bad override raises :class:`ladder.errors.InputError`.
-    Existing files of these names are replaced. Same mock -> byte-identical files.
+    ``model.wesenheit`` drops the default ``band``. With ``validate`` (default) the written run
+    file is read back with :func:`ladder.config.load_run`, so a bad override raises
+    :class:`ladder.errors.InputError`; ``validate=False`` skips that read-back (for run-file
+    keys the reader does not know yet). Existing files of these names are replaced. Same
+    mock -> byte-identical files.
 
     Returns
     -------
     dict
-        {"cepheids", "hosts", "truth", "run"} -> path.
+        {"cepheids", "hosts", "truth", "run"[, "supernovae"]} -> path.
     """
-    from .config import load_run
-
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    paths = {k: out / f for k, f in
-             (("cepheids", "cepheids.ecsv"), ("hosts", "hosts.ecsv"), ("truth", "truth.json"), ("run", "run.toml"))}
+    names = [("cepheids", "cepheids.ecsv"), ("hosts", "hosts.ecsv"), ("truth", "truth.json"), ("run", "run.toml")]
+    if mock.supernovae is not None:
+        names.append(("supernovae", "supernovae.ecsv"))
+    paths = {k: out / f for k, f in names}
     doc = _run_document(mock, run_overrides)
     header = (f"Run file for a mock universe (invented data) made by ladder.simulate, seed {mock.seed}.\n"
               "True values are in truth.json.")
     text = _toml_document(doc, header)
     mock.cepheids.write(paths["cepheids"], format="ascii.ecsv", overwrite=True)
     mock.hosts.write(paths["hosts"], format="ascii.ecsv", overwrite=True)
+    if mock.supernovae is not None:
+        mock.supernovae.write(paths["supernovae"], format="ascii.ecsv", overwrite=True)
     paths["truth"].write_text(json.dumps(mock.truth, indent=2) + "\n", encoding="utf-8")
     paths["run"].write_text(text, encoding="utf-8")
-    load_run(paths["run"])
+    if validate:
+        from .config import load_run
+
+        load_run(paths["run"])
     return paths

@@ -21,7 +21,7 @@ from tolerances import COVERAGE_68_BAND, RECOVERY_Z
 def fitted(tmp_path_factory):
     root = tmp_path_factory.mktemp("mock")
     assert main(["simulate", "--out", str(root / "mock"), "--seed", "21", "--hosts", "20", "--cepheids", "900",
-                 "--chains", "2", "--warmup", "300", "--draws", "500"]) == 0
+                 "--chains", "2", "--warmup", "400", "--draws", "1000"]) == 0
     out = root / "fit"
     assert main(["fit", str(root / "mock" / "run.toml"), "--out", str(out), "--strict"]) == 0
     return root / "mock", out
@@ -69,7 +69,7 @@ def test_strict_exit_3_on_failed_diagnostics(fitted, tmp_path, capsys):
     run = tmp_path / "run.toml"
     text = (mock / "run.toml").read_text().replace('"cepheids.ecsv"', json.dumps(str(mock / "cepheids.ecsv")))
     text = text.replace('"hosts.ecsv"', json.dumps(str(mock / "hosts.ecsv")))
-    text = text.replace("warmup = 300", "warmup = 20").replace("draws = 500", "draws = 30")
+    text = text.replace("warmup = 400", "warmup = 20").replace("draws = 1000", "draws = 30")
     run.write_text(text)
     code = main(["fit", str(run), "--out", str(tmp_path / "o"), "--strict", "--no-plots"])
     err = capsys.readouterr().err

@@ -40,3 +40,39 @@ PL_RESIDUAL_ATOL = 1e-10  # same float64 arithmetic in two orders; differences a
 LMC_WI_PL_SCATTER_MAX = 0.12  # robust (MAD) scatter of LMC W_I PL residuals ~0.075 mag here; ~0.08 mag published (from memory)
 PNG_MIN_BYTES = 20_000  # a drawn figure at 120 dpi is >= ~50 kB; an empty canvas is ~5 kB (measured)
 PNG_MAX_BYTES = 1_500_000  # "modest" file size at 120 dpi; a 40-galaxy PL grid measured ~0.7 MB, the test figures ~0.1 MB
+
+# --- outlier mixture and sigma-clipping (tests/test_outliers.py) ---
+OUTLIER_F0_NORMAL_RTOL = 1e-13  # f=0 leaves exactly the Normal log density, same closed form as scipy.stats.norm; rounding ~1e-16
+OUTLIER_VS_SCIPY_RTOL = 1e-12  # log of the scipy-density mixture at |r| <= 8 sd (no underflow there); float64 rounding only
+OUTLIER_NORM_ATOL = 1e-8  # scipy.integrate.quad's default absolute error target is 1.49e-8
+OUTLIER_PROB_ATOL = 1e-12  # q in [0, 1]; log-odds form vs brute-force ratio of scipy pdfs differ by rounding
+OUTLIER_GRAD_RTOL = 1e-9  # autodiff vs closed-form derivative from scipy densities; rounding, some cancellation near N_b = N_c
+OUTLIER_GRAD_ATOL = 1e-9  # same, where the derivative is ~0 (r = 0 in the resid-derivative)
+OUTLIER_FD_RTOL = 1e-6  # central difference with relative step 1e-6: truncation ~1e-12, rounding ~1e-10 relative
+CLIP_BAD_REMOVED_MIN = 0.90  # required bar: share of the +1.5 mag (15 sd) shifted points the clip must remove
+CLIP_GOOD_KEPT_MIN = 0.97  # required bar; a 3-sigma cut drops 0.27% of Gaussian points on average
+CLIP_SLOPE_SIGMA = 3.0  # required bar: |slope - truth| / its WLS standard error after (and, inverted, before) clipping
+CLIP_POLYFIT_RTOL = 1e-10  # our WLS on the kept rows vs numpy.polyfit(w=1/sd); two lstsq solves, rounding only
+
+# --- supernovae (tests/test_supernovae.py) ---
+SN_TERM_CLOSED_FORM_RTOL = 1e-13  # the same float64 formula evaluated in another order; rounding ~1e-16 relative
+SN_FLOW_VS_LCDM_ATOL = 1.1e-4 * 5 / 2.302585092994046  # d_L series vs flat LCDM, z<=0.15: measured 5.1e-5 relative (1.1e-4 the required bar), times 5/ln10 mag
+SN_H0_INVERSION_RTOL = 1e-12  # exact algebraic inversion through log10 and 10**; float64 rounding ~1e-15 relative
+
+# --- parallax anchor term (tests/test_parallax.py) ---
+EDSD_QUAD_ATOL = 1e-8  # scipy.integrate.quad's default absolute error target is 1.49e-8; measured ~1e-14 for the EDSD norm and mean/L
+EDSD_VS_SCIPY_RTOL = 1e-12  # same Gamma(3, L) log density as scipy.stats.gamma in float64; rounding only
+EDSD_MODE_ARGMAX_RTOL = 1e-6  # numerical argmax of a smooth peak is good to ~sqrt(eps) ~ 1e-8 relative; 1e-6 is the required bar
+EDSD_MODE_SMALL_ERROR_RTOL = 1e-3  # at f = 0.01 the mode sits (2 - d/L) f^2 ~ 1e-4 from 1000/varpi; 1e-3 is the required bar
+EDSD_MODE_PERTURBATION_ATOL = 3e-6  # first-order shift (2 - d/L) f^2 leaves O(f^4 (d/L)^2): measured max 1.2e-6 (d/L = 8, f = 0.01)
+PARALLAX_VS_REFERENCE_RTOL = 1e-12  # same closed forms as scipy.stats.norm / astropy Distance; float64 rounding only
+PARALLAX_GRAD_FD_RTOL = 1e-6  # central difference, step 1e-5: truncation ~1e-10, rounding ~1e-11 relative
+PARALLAX_GRAD_FD_ATOL = 1e-8  # same difference where the derivative is ~0 (at a mode)
+NAIVE_BIAS_MIN = 0.04  # mag; naive-inversion bias at f=0.2 is 0.0465 (quadrature), MC standard error 0.001: > 0.04 is ~6 sigma clear
+NAIVE_BIAS_MC_SIGMA = 5.0  # MC mean of the naive modulus within 5 standard errors of its quadrature expectation (common practice)
+
+# --- mock universes, further effects (tests/test_simulate.py) ---
+MOCK_LAW_RATIO_RTOL = 1e-3  # mock A_B/A_V come from ladder.reddening, which matches `extinction` to <= 1e-3 (F99 bar above)
+MOCK_EFFECT_SIGMA = 4.0  # an injected effect's numpy estimate within 4 standard errors of its size (common practice, fixed seed)
+MOCK_KS_MIN_P = 1e-3  # Kolmogorov-Smirnov p-value floor for the drawn parallax distances vs the truncated EDSD (common practice)
+MOCK_SN_VS_LCDM_ATOL = 1.1e-4 * 5 / 2.302585092994046  # kinematic d_L series vs flat LCDM at z<=0.15: <1.1e-4 relative, in mag

@@ -1,0 +1,100 @@
+r"""Outliers as a two-component Gaussian mixture (Hogg, Bovy & Lang 2010, arXiv:1008.4686, Sect. 3).
+
+Each star's residual :math:`r = m_\mathrm{obs} - m_\mathrm{model}` is drawn either from the *core*
+:math:`\mathcal{N}(0, \sigma)`, with :math:`\sigma` the star's total error (measurement and intrinsic
+scatter), or, with probability :math:`f`, from a *broad* component :math:`\mathcal{N}(0, \sqrt{\sigma^2 + w^2})`
+whose extra width :math:`w` absorbs blends, misidentifications and bad photometry. Marginalising over the
+(unrecorded) membership of each star gives the mixture likelihood; the membership posterior follows by
+Bayes' theorem. This is the "good / bad" mixture of Hogg, Bovy & Lang (2010, Sect. 3, their :math:`P_b`
+and :math:`V_b`) with the broad component centred on the model (their :math:`Y_b` set to 0).
+
+Symbols and output names:
+
+==================  =====================  =================================================
+symbol              argument               output name
+==================  =====================  =================================================
+:math:`r`           ``resid``              ``residual`` (column of ``stars.ecsv``)
+:math:`\sigma`      ``sd_core``            --
+:math:`w`           ``width``              run-file key ``[model] outlier_width`` (mag)
+:math:`f`           ``fraction``           ``outlier_fraction``
+:math:`q`           (returned)             ``outlier_prob`` (column of ``stars.ecsv``)
+==================  =====================  =================================================
+
+Both functions take scalars for one star (like every term; :mod:`ladder.model` applies ``jax.vmap``),
+are pure ``jax.numpy`` and safe under ``jax.jit`` and ``jax.grad``. They work in log space with
+``logaddexp`` so that a residual of tens of :math:`\sigma` neither underflows to ``-inf`` nor yields NaN.
+"""
+
+import jax.numpy as jnp
+from jax.nn import sigmoid
+
+__all__ = ["mixture_log_likelihood", "outlier_probability"]
+
+_HALF_LOG_2PI = 0.5 * 1.8378770664093453  # 0.5 * log(2 pi)
+
+
+def _normal_logpdf(x, sd):
+    r""":math:`\log \mathcal{N}(x \mid 0, s) = -x^2 / (2 s^2) - \log s - \tfrac12 \log 2\pi`."""
+    z = x / sd
+    return -0.5 * z * z - jnp.log(sd) - _HALF_LOG_2PI
+
+
+def _component_logs(resid, sd_core, width, fraction):
+    """Log of the weighted core and broad densities, ``(log[(1-f) N_c], log[f N_b])``."""
+    sd_broad = jnp.sqrt(sd_core**2 + width**2)
+    log_core = jnp.log1p(-fraction) + _normal_logpdf(resid, sd_core)
+    log_broad = jnp.log(fraction) + _normal_logpdf(resid, sd_broad)
+    return log_core, log_broad
+
+
+def mixture_log_likelihood(resid, sd_core, width, fraction):
+    r"""Log likelihood of one star's residual under the core + broad mixture.
+
+    .. math::
+        \ln L = \ln\!\left[(1 - f)\,\mathcal{N}(r \mid 0, \sigma)
+                + f\,\mathcal{N}\!\left(r \,\middle|\, 0, \sqrt{\sigma^2 + w^2}\right)\right]
+
+    evaluated as ``logaddexp(log1p(-f) + log N_c, log(f) + log N_b)`` (Hogg, Bovy & Lang 2010,
+    arXiv:1008.4686, Sect. 3). At :math:`f = 0` it is exactly :math:`\ln \mathcal{N}(r \mid 0, \sigma)`
+    and at :math:`f = 1` exactly the broad Normal. Gradients are finite for :math:`0 < f < 1`; at
+    :math:`f` exactly 0 or 1 the value is right but the derivative in :math:`f` is not (priors on
+    ``outlier_fraction`` are continuous, so the sampler never lands there).
+
+    Parameters
+    ----------
+    resid : float
+        :math:`r`, observed minus model magnitude, mag.
+    sd_core : float
+        :math:`\sigma > 0`, the star's total 1-sigma error (measurement and intrinsic scatter), mag.
+    width : float
+        :math:`w \ge 0`, extra standard deviation of the broad component, mag.
+    fraction : float
+        :math:`f \in [0, 1]`, prior probability that a star is an outlier (output ``outlier_fraction``).
+
+    Returns
+    -------
+    float
+        :math:`\ln L` (scalar; same shape as the broadcast inputs).
+    """
+    log_core, log_broad = _component_logs(resid, sd_core, width, fraction)
+    return jnp.logaddexp(log_core, log_broad)
+
+
+def outlier_probability(resid, sd_core, width, fraction):
+    r"""Posterior probability that one star belongs to the broad (outlier) component.
+
+    .. math::
+        q = \frac{f\,\mathcal{N}(r \mid 0, \sqrt{\sigma^2 + w^2})}
+                 {(1 - f)\,\mathcal{N}(r \mid 0, \sigma) + f\,\mathcal{N}(r \mid 0, \sqrt{\sigma^2 + w^2})}
+          = \operatorname{sigmoid}\!\left(\ln\frac{f\,\mathcal{N}_b}{(1 - f)\,\mathcal{N}_c}\right)
+
+    (Bayes' theorem on the mixture; Hogg, Bovy & Lang 2010, arXiv:1008.4686, Sect. 3). This is
+    conditional on the parameters; averaging :math:`q` over posterior draws gives the marginal
+    membership probability reported as ``outlier_prob``. The log-odds form stays finite where both
+    densities underflow (e.g. :math:`|r| = 50\sigma`, where :math:`q \to 1`); :math:`q = 0` at
+    :math:`f = 0` and :math:`q = 1` at :math:`f = 1`.
+
+    Parameters are those of :func:`mixture_log_likelihood`; returns :math:`q \in [0, 1]`.
+    """
+    log_core, log_broad = _component_logs(resid, sd_core, width, fraction)
+    return sigmoid(log_broad - log_core)
