@@ -47,7 +47,7 @@ __all__ = ["ModelArrays", "Layout", "model_arrays", "distance_ladder_model", "GL
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
                      "wesenheit_r", "r_v", "outlier_fraction", "parallax_offset", "h0", "sn_abs_mag", "sn_scatter")
 #: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
-DERIVED_PER_STAR = ("outlier_prob",)
+DERIVED_PER_STAR = ("outlier_prob", "ebv")
 
 
 class ModelArrays(NamedTuple):
@@ -259,17 +259,30 @@ def _star_distribution():
     import numpyro.distributions as dist
     from numpyro.distributions import constraints
 
-    from .terms.noise import common_offset_normal_logpdf
+    from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf, reddening_posterior_mean
 
-    logpdf = jax.vmap(common_offset_normal_logpdf)
+    plain = jax.vmap(common_offset_normal_logpdf)
+    reddened = jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))
+    ebv_mean = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))
 
     class StarMagnitudes(dist.Distribution):
         support = constraints.real_vector
 
-        def __init__(self, loc, var, mask, offset_var, fraction=None, broad_var=None, weight=None):
+        def __init__(self, loc, var, mask, offset_var, fraction=None, broad_var=None, weight=None,
+                     extinction_vector=None, ebv_rate=None):
             self.loc, self.var, self.mask, self.offset_var = loc, var, mask, offset_var
             self.fraction, self.broad_var, self.weight = fraction, broad_var, weight
+            self.a, self.rate = extinction_vector, ebv_rate
             super().__init__(batch_shape=loc.shape[:1], event_shape=loc.shape[1:])
+
+        def _logpdf(self, r, s2):
+            if self.a is None:
+                return plain(r, self.var, self.mask, s2)
+            return reddened(r, self.var, self.mask, s2, self.a, self.rate)
+
+        def reddening(self, value):
+            """Posterior mean E(B-V) per star at these parameters (core component)."""
+            return ebv_mean(value - self.loc, self.var, self.mask, self.offset_var, self.a, self.rate)
 
         def sample(self, key, sample_shape=()):
             k1, k2 = jax.random.split(key)
@@ -279,17 +292,17 @@ def _star_distribution():
 
         def log_prob(self, value):
             r = value - self.loc
-            core = logpdf(r, self.var, self.mask, self.offset_var)
+            core = self._logpdf(r, self.offset_var)
             if self.fraction is not None:
-                broad = logpdf(r, self.var, self.mask, self.broad_var)
+                broad = self._logpdf(r, self.broad_var)
                 core = jnp.logaddexp(jnp.log1p(-self.fraction) + core, jnp.log(self.fraction) + broad)
             return core if self.weight is None else core * self.weight
 
         def membership(self, value):
             """Posterior probability of the broad (outlier) component, per star."""
             r = value - self.loc
-            core = jnp.log1p(-self.fraction) + logpdf(r, self.var, self.mask, self.offset_var)
-            broad = jnp.log(self.fraction) + logpdf(r, self.var, self.mask, self.broad_var)
+            core = jnp.log1p(-self.fraction) + self._logpdf(r, self.offset_var)
+            broad = jnp.log(self.fraction) + self._logpdf(r, self.broad_var)
             return jnp.exp(broad - jnp.logaddexp(core, broad))
 
     return StarMagnitudes
@@ -374,11 +387,11 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
         obs, err, mask = arrays.mag, arrays.mag_err, arrays.mag_mask
 
     extinction = jnp.zeros_like(obs)
+    a_vec = rate = None
     if settings.multiband:
+        # E(B-V) of each star is integrated out exactly (terms.noise.reddened_star_logpdf).
         ebv_mean = sample_parameter("ebv_mean", settings.prior("ebv_mean"), (n_gal,))
-        unit = numpyro.sample("ebv_unit", dist.Exponential(1.0).expand(arrays.log_period.shape))
-        ebv = numpyro.deterministic("ebv", ebv_mean[arrays.star_host] * unit)
-        extinction = (ratio * r_v)[None, :] * ebv[:, None]
+        a_vec, rate = ratio * r_v, 1.0 / ebv_mean[arrays.star_host]
 
     break_x = None if not settings.pl_break else float(np.log10(settings.pl_break_period))
     zp_b = jnp.broadcast_to(zero_point, (n_bands,))
@@ -397,11 +410,13 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
         fraction = sample_parameter("outlier_fraction", settings.prior("outlier_fraction"))
         broad_var = offset_var + settings.outlier_width**2
     d = Star(pred, var, mask, offset_var, fraction, broad_var,
-             weight=arrays.star_weight if settings.outliers == "clip" else None)
+             weight=arrays.star_weight if settings.outliers == "clip" else None, extinction_vector=a_vec, ebv_rate=rate)
     with numpyro.plate("star", arrays.log_period.shape[0]):
         numpyro.sample("mag_obs", d, obs=obs)
     if fraction is not None:
         numpyro.deterministic("outlier_prob", d.membership(obs))
+    if a_vec is not None:
+        numpyro.deterministic("ebv", d.reddening(obs))
 
     with numpyro.plate("anchor", arrays.anchor_slot.shape[0]):
         numpyro.sample("mu_geo_obs", dist.Normal(mu[arrays.anchor_slot], arrays.mu_geo_err), obs=arrays.mu_geo)
@@ -437,5 +452,7 @@ def star_residuals(params: dict, arrays: ModelArrays, layout: Layout, settings: 
     site = handlers.trace(model).get_trace(arrays, settings, layout)["mag_obs"]
     d = site["fn"]
     r = np.asarray(site["value"]) - np.asarray(d.loc)
+    if d.a is not None:  # remove each star's posterior-mean reddening
+        r = r - np.asarray(d.reddening(site["value"]))[:, None] * np.asarray(d.a)[None, :]
     w = np.where(np.asarray(d.mask), 1.0 / np.asarray(d.var), 0.0)
     return (w * r).sum(axis=1) / w.sum(axis=1)

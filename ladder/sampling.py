@@ -78,7 +78,6 @@ def initial_values(arrays: ModelArrays, layout: Layout, settings: ModelSettings)
         init["r_v"] = settings.reddening.rv
     if settings.multiband:
         init["ebv_mean"] = np.full(len(layout.galaxies), 0.1)
-        init["ebv_unit"] = np.ones(len(layout.stars))
     if settings.outliers == "mixture":
         init["outlier_fraction"] = 0.05
     if arrays.bias_host.shape[0]:

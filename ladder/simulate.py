@@ -398,7 +398,10 @@ class MockSettings:
 
     @property
     def band_extinction_ratios(self) -> tuple[float, float, float]:
-        r"""A_B / A_V per band of :data:`BANDS`: the law's at ``band_wavelength_um`` and ``r_v``, or ``extinction_ratios``."""
+        r"""A_B / A_V per band of :data:`BANDS`, shape (3,).
+
+        The law's at ``band_wavelength_um`` and ``r_v``, or ``extinction_ratios`` without a law.
+        """
         if self.reddening_law is None:
             return tuple(self.extinction_ratios)
         from .reddening import extinction_ratio
@@ -415,7 +418,10 @@ class MockSettings:
 
     @property
     def pl_slope_shift(self) -> float:
-        r"""Slope change above the break shared by every band, :math:`\Delta = b_{W,\mathrm{long}} - b_W` (0 without a break)."""
+        r"""Slope change above the break shared by every band (0 without a break).
+
+        .. math:: \Delta = b_{W,\mathrm{long}} - b_W
+        """
         if self.pl_break_period is None:
             return 0.0
         return float(self.pl_slope_long) - self.pl_slope

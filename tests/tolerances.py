@@ -76,3 +76,6 @@ MOCK_LAW_RATIO_RTOL = 1e-3  # mock A_B/A_V come from ladder.reddening, which mat
 MOCK_EFFECT_SIGMA = 4.0  # an injected effect's numpy estimate within 4 standard errors of its size (common practice, fixed seed)
 MOCK_KS_MIN_P = 1e-3  # Kolmogorov-Smirnov p-value floor for the drawn parallax distances vs the truncated EDSD (common practice)
 MOCK_SN_VS_LCDM_ATOL = 1.1e-4 * 5 / 2.302585092994046  # kinematic d_L series vs flat LCDM at z<=0.15: <1.1e-4 relative, in mag
+
+# --- model terms (tests/test_terms.py) ---
+TERM_RTOL = 1e-10  # closed forms evaluated in float64; only rounding differs
