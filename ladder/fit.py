@@ -60,13 +60,16 @@ def _clip(arrays, layout, model):
     from .linear import weighted_least_squares
 
     system = linear_system(arrays, layout, model, scatter=0.0)
-    # The scatter is not known before the fit: estimate it from the robust spread of the first residuals.
     theta, _ = weighted_least_squares(system.X, system.y, system.sd)
     stars = system.row_star >= 0
-    r = (system.y - system.X @ theta)[stars]
-    mad = 1.4826 * np.median(np.abs(r - np.median(r)))
-    scatter = float(np.sqrt(max(mad**2 - np.median(system.sd[stars]) ** 2, 1e-4)))
-    system = linear_system(arrays, layout, model, scatter=scatter)
+    r, e = (system.y - system.X @ theta)[stars], system.sd[stars]
+    # The scatter is not known before the fit: take the s for which the normalised residuals r / sqrt(e^2 + s^2)
+    # have the median absolute value of a unit normal (0.6745), a robust one-parameter estimate.
+    lo, hi = 0.0, float(np.std(r)) + 1e-6
+    for _ in range(60):
+        s = 0.5 * (lo + hi)
+        lo, hi = (s, hi) if np.median(np.abs(r) / np.sqrt(e**2 + s**2)) > 0.6745 else (lo, s)
+    system = linear_system(arrays, layout, model, scatter=0.5 * (lo + hi))
     keep, _ = iterative_clip(system.X, system.y, system.sd, n_sigma=model.clip_sigma, protect=system.row_star < 0)
     weight = np.ones(arrays.log_period.shape[0])
     weight[system.row_star[(~keep) & (system.row_star >= 0)]] = 0.0

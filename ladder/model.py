@@ -65,6 +65,7 @@ class ModelArrays(NamedTuple):
     anchor_slot: np.ndarray  # (n_anchors,) index into mu
     mu_geo: np.ndarray
     mu_geo_err: np.ndarray
+    par_star: np.ndarray  # (n_par,) star index of each parallax star
     parallax: np.ndarray  # (n_par,) mas
     parallax_err: np.ndarray
     bias_host: np.ndarray  # (n_bias,) galaxy index of galaxies with a bias estimate
@@ -190,6 +191,7 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         anchor_slot=slot[anchors].astype(np.int64),
         mu_geo=data.mu_geo[anchors].astype(float),
         mu_geo_err=data.mu_geo_err[anchors].astype(float),
+        par_star=par_stars.astype(np.int64),
         parallax=np.asarray(data.parallax[par_stars], float) if par_stars.size else np.zeros(0),
         parallax_err=np.asarray(data.parallax_err[par_stars], float) if par_stars.size else np.zeros(0),
         bias_host=bias_host.astype(np.int64),
@@ -337,22 +339,6 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
     else:
         star_scatter = jnp.broadcast_to(scatter, arrays.log_period.shape)
 
-    # Distances: one modulus per galaxy, plus one per parallax star (latent distance, EDSD prior).
-    mu_all = mu
-    n_par = len(layout.parallax_stars)
-    if n_par:
-        from .terms.parallax import log_prior_in_log_distance, parallax_log_likelihood
-
-        log_d = numpyro.sample("log_distance_pc", dist.ImproperUniform(constraints.real, (n_par,), ()))
-        numpyro.factor("distance_prior", jnp.sum(log_prior_in_log_distance(log_d, settings.parallax.length_scale_pc)))
-        d_pc = jnp.exp(log_d)
-        offset = sample_parameter("parallax_offset", settings.prior("parallax_offset"))
-        with numpyro.plate("parallax_star", n_par):
-            numpyro.sample("parallax_obs", dist.Normal(1000.0 / d_pc + offset, arrays.parallax_err),
-                           obs=arrays.parallax)
-        mu_all = jnp.concatenate([mu, 5.0 * jnp.log10(d_pc) - 5.0])
-    star_mu = mu_all[arrays.star_mu_index]
-
     bias = jnp.zeros(n_gal)
     if arrays.bias_host.shape[0]:
         bz = numpyro.sample("photometric_bias_z", dist.Normal(0.0, 1.0).expand((arrays.bias_host.shape[0],)))
@@ -399,8 +385,36 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
     sll_b = jnp.broadcast_to(slope_long, (n_bands,))
     per_band = jax.vmap(_star_magnitude, in_axes=(None, None, None, 0, 0, 0, None, None, 0, None, None))
     per_star = jax.vmap(per_band, in_axes=(0, 0, 0, None, None, None, None, 0, 0, None, None))
-    pred = per_star(star_mu, arrays.log_period, arrays.oh, zp_b, sl_b, sll_b, gamma, star_bias, extinction,
-                    settings.solar_oh, break_x)
+    pred0 = per_star(jnp.zeros(arrays.log_period.shape), arrays.log_period, arrays.oh, zp_b, sl_b, sll_b, gamma,
+                     star_bias, extinction, settings.solar_oh, break_x)  # everything but the distance
+
+    # Distances: one modulus per galaxy, plus one per parallax star (latent distance, EDSD prior).
+    mu_all = mu
+    n_par = len(layout.parallax_stars)
+    if n_par:
+        from .terms.parallax import log_prior_in_log_distance
+
+        # Each parallax star's modulus is set far better by its photometry than by its parallax, and that
+        # photometric width scales with the scatter: a funnel for the sampler. So sample u with
+        # mu_j = base_j - c_j u_j (base_j, c_j: the photometric estimate and its width), a linear change of
+        # variables with log-Jacobian log c_j, and put the EDSD prior on d_j = 10^(mu_j/5 + 1) pc.
+        par_rows = arrays.par_star
+        w = jnp.where(mask[par_rows], 1.0 / (err[par_rows] ** 2), 0.0)
+        base = jnp.sum(w * (obs[par_rows] - pred0[par_rows]), axis=1) / jnp.sum(w, axis=1)
+        c = jnp.sqrt(1.0 / jnp.sum(w, axis=1) + star_scatter[par_rows] ** 2)
+        u = numpyro.sample("parallax_star_u", dist.ImproperUniform(constraints.real, (n_par,), ()))
+        mu_par = base - c * u
+        log_d = numpyro.deterministic("log_distance_pc", (mu_par / 5.0 + 1.0) * np.log(10.0))
+        numpyro.factor("distance_prior", jnp.sum(log_prior_in_log_distance(log_d, settings.parallax.length_scale_pc))
+                       + jnp.sum(jnp.log(c)) + n_par * np.log(np.log(10.0) / 5.0))
+        d_pc = jnp.exp(log_d)
+        offset = sample_parameter("parallax_offset", settings.prior("parallax_offset"))
+        with numpyro.plate("parallax_star", n_par):
+            numpyro.sample("parallax_obs", dist.Normal(1000.0 / d_pc + offset, arrays.parallax_err),
+                           obs=arrays.parallax)
+        mu_all = jnp.concatenate([mu, mu_par])
+    star_mu = mu_all[arrays.star_mu_index]
+    pred = pred0 + star_mu[:, None]
 
     Star = _star_distribution()
     var = err**2
@@ -418,8 +432,9 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
     if a_vec is not None:
         numpyro.deterministic("ebv", d.reddening(obs))
 
-    with numpyro.plate("anchor", arrays.anchor_slot.shape[0]):
-        numpyro.sample("mu_geo_obs", dist.Normal(mu[arrays.anchor_slot], arrays.mu_geo_err), obs=arrays.mu_geo)
+    if arrays.anchor_slot.shape[0]:
+        with numpyro.plate("anchor", arrays.anchor_slot.shape[0]):
+            numpyro.sample("mu_geo_obs", dist.Normal(mu[arrays.anchor_slot], arrays.mu_geo_err), obs=arrays.mu_geo)
 
     if layout.has_sn:
         from .terms.hubble import calibrator_magnitude, hubble_flow_magnitude, sn_magnitude_sd

@@ -25,7 +25,7 @@ DIMS = {
     "mu": "host", "pl_zero_point": "band", "pl_slope": "band", "pl_slope_long": "band",
     "host_scatter": "galaxy", "host_scatter_z": "galaxy", "ebv_mean": "galaxy",
     "ebv": "star", "ebv_unit": "star", "outlier_prob": "star",
-    "log_distance_pc": "parallax_star", "photometric_bias": "bias_galaxy", "photometric_bias_z": "bias_galaxy",
+    "log_distance_pc": "parallax_star", "parallax_star_u": "parallax_star", "photometric_bias": "bias_galaxy", "photometric_bias_z": "bias_galaxy",
 }
 
 
@@ -56,7 +56,7 @@ def initial_values(arrays: ModelArrays, layout: Layout, settings: ModelSettings)
 
         par = np.asarray(arrays.parallax)
         d = edsd_mode_pc(np.maximum(par, 1e-3), np.asarray(arrays.parallax_err), settings.parallax.length_scale_pc)
-        init["log_distance_pc"] = np.log(d)
+        init["parallax_star_u"] = np.zeros(len(d))  # the photometric estimate (see the model)
         init["parallax_offset"] = 0.0
         mu_par = 5 * np.log10(d) - 5
     system = linear_system(arrays, layout, settings, scatter=0.1, mu_parallax=mu_par)
@@ -103,6 +103,17 @@ def initial_values(arrays: ModelArrays, layout: Layout, settings: ModelSettings)
     return {k: np.asarray(v, float) for k, v in init.items()}
 
 
+#: Per-star and per-galaxy latent vectors: many, nearly independent, standardised; a dense mass matrix over
+#: them cannot be estimated in a short warm-up, so they get a diagonal one.
+_DIAGONAL_SITES = ("parallax_star_u", "host_scatter_z", "photometric_bias_z", "ebv_mean")
+
+
+def _dense_block(init: dict) -> list[tuple[str, ...]] | bool:
+    """Sites that share a dense mass matrix: the globals and the galaxy moduli (strongly correlated)."""
+    block = tuple(k for k in init if k not in _DIAGONAL_SITES)
+    return [block] if len(block) < len(init) else True
+
+
 def _chain_method(requested: str, chains: int) -> str:
     from ._jax import cpu_devices
 
@@ -130,7 +141,7 @@ def run_nuts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sampl
         distance_ladder_model,
         target_accept_prob=sampler.target_accept,
         max_tree_depth=sampler.max_tree_depth,
-        dense_mass=sampler.dense_mass,
+        dense_mass=_dense_block(init) if sampler.dense_mass else False,
         init_strategy=init_to_value(values=init),
     )
     method = _chain_method(sampler.chain_method, sampler.chains)
@@ -181,7 +192,7 @@ def _to_inference_data(mcmc, jarrays: ModelArrays, layout: Layout, settings: Mod
     ll = log_likelihood(distance_ladder_model, flat, jarrays, settings, layout)
     # Pointwise log-likelihoods are stored in float32: ample for PSIS-LOO, half the file size.
     site_dims = {"mag_obs": "star", "mu_geo_obs": "anchor", "parallax_obs": "parallax_star", "sn_obs": "sn"}
-    ll_vars = {k: _da(np.asarray(v, np.float32).reshape(chains, draws, -1), site_dims[k]) for k, v in ll.items()}
+    ll_vars = {k: _da(np.asarray(v, np.float32).reshape(chains, draws, -1), site_dims[k]) for k, v in ll.items() if k in site_dims}
 
     def _obs(values, dim, extra_dim=None):
         c = {dim: coords[dim]}
@@ -190,7 +201,7 @@ def _to_inference_data(mcmc, jarrays: ModelArrays, layout: Layout, settings: Mod
         return xr.DataArray(np.asarray(values), dims=[dim] + ([extra_dim] if extra_dim else []), coords=c)
 
     mag = np.where(np.asarray(jarrays.mag_mask), np.asarray(jarrays.mag), np.nan)
-    observed = {"mu_geo_obs": _obs(jarrays.mu_geo, "anchor")}
+    observed = {"mu_geo_obs": _obs(jarrays.mu_geo, "anchor")} if layout.anchors else {}
     if settings.wesenheit is not None:  # W depends on R: record the observed bands it is formed from
         for j, b in enumerate(settings.wesenheit.bands):
             observed[f"mag_{b}"] = _obs(mag[:, j], "star")

@@ -300,8 +300,8 @@ class MockSettings:
             v = getattr(self, name)
             if isinstance(v, bool) or not isinstance(v, int):
                 raise ValueError(f"{name} must be an integer, got {v!r}")
-        if self.n_anchors < 1:
-            raise ValueError("n_anchors must be >= 1 (the ladder needs a geometric anchor)")
+        if self.n_anchors < 0 or (self.n_anchors == 0 and not self.n_parallax):
+            raise ValueError("n_anchors must be >= 1 (the ladder needs a geometric anchor), or 0 with n_parallax > 0")
         if self.n_hosts < self.n_anchors:
             raise ValueError(f"n_hosts ({self.n_hosts}) counts all galaxies and must be >= n_anchors ({self.n_anchors})")
         if self.min_cepheids < 1:

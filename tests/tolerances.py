@@ -79,3 +79,6 @@ MOCK_SN_VS_LCDM_ATOL = 1.1e-4 * 5 / 2.302585092994046  # kinematic d_L series vs
 
 # --- model terms (tests/test_terms.py) ---
 TERM_RTOL = 1e-10  # closed forms evaluated in float64; only rounding differs
+
+# --- simpler model's bias (tests/test_full_ladder.py) ---
+BIAS_Z = 3.0  # an offset beyond 3 posterior sds is a bias, not noise (one-sided false alarm ~1e-3)
