@@ -154,9 +154,14 @@ class WesenheitSettings:
 
 @dataclass(frozen=True)
 class ParallaxSettings:
-    """Distance prior of parallax stars: exponentially decreasing space density (Bailer-Jones 2015, PASP 127, 994)."""
+    """Distance prior of parallax stars: exponentially decreasing space density (Bailer-Jones 2015, PASP 127, 994).
 
-    length_scale_pc: float = 1350.0
+    ``length_scale_pc`` None (the default, "free" in the run file) samples the length scale L with a log-uniform
+    prior on 100 pc - 100 kpc. With many stars whose relative distances the photometry fixes, a fixed L acts as a
+    prior on the common distance scale, i.e. on the PL zero point; a free, scale-invariant L does not.
+    """
+
+    length_scale_pc: float | None = None
 
 
 @dataclass(frozen=True)
@@ -392,7 +397,11 @@ def _parse_parallax(sec: _Section | None) -> ParallaxSettings:
     if sec is None:
         return d
     sec.check_keys({"length_scale_pc"})
-    return ParallaxSettings(length_scale_pc=sec.float_("length_scale_pc", d.length_scale_pc, lo=0.0, open_lo=True))
+    if sec.raw.get("length_scale_pc") == "free":
+        return ParallaxSettings(None)
+    if isinstance(sec.raw.get("length_scale_pc"), str):
+        raise InputError("must be a number (pc) or \"free\"", file=sec.file, key=sec._key("length_scale_pc"))
+    return ParallaxSettings(length_scale_pc=sec.float_("length_scale_pc", 1350.0, lo=0.0, open_lo=True))
 
 
 def _parse_supernovae(sec: _Section | None) -> SupernovaSettings:

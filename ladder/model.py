@@ -45,7 +45,8 @@ __all__ = ["ModelArrays", "Layout", "model_arrays", "distance_ladder_model", "GL
 
 #: Global parameters in output order (vector-valued ones get one row per band).
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
-                     "wesenheit_r", "r_v", "outlier_fraction", "parallax_offset", "h0", "sn_abs_mag", "sn_scatter")
+                     "wesenheit_r", "r_v", "outlier_fraction", "parallax_offset", "parallax_length_scale", "h0",
+                     "sn_abs_mag", "sn_scatter")
 #: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
 DERIVED_PER_STAR = ("outlier_prob", "ebv")
 
@@ -230,13 +231,13 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
         "wesenheit_r": w is not None and w.free,
         "r_v": settings.needs_law and settings.reddening.free,
         "outlier_fraction": settings.outliers == "mixture",
-        "parallax_offset": par, "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
+        "parallax_offset": par, "parallax_length_scale": par and settings.parallax.length_scale_pc is None, "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
     }
     names = []
     for name in GLOBAL_PARAMETERS:
         if not wanted[name]:
             continue
-        if name in ("wesenheit_r", "r_v") or settings.prior(name).dist != "fixed":
+        if name in ("wesenheit_r", "r_v", "parallax_length_scale") or settings.prior(name).dist != "fixed":
             names.append(name)
     return names
 
@@ -405,7 +406,12 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
         u = numpyro.sample("parallax_star_u", dist.ImproperUniform(constraints.real, (n_par,), ()))
         mu_par = base - c * u
         log_d = numpyro.deterministic("log_distance_pc", (mu_par / 5.0 + 1.0) * np.log(10.0))
-        numpyro.factor("distance_prior", jnp.sum(log_prior_in_log_distance(log_d, settings.parallax.length_scale_pc))
+        if settings.parallax.length_scale_pc is None:
+            log_l = numpyro.sample("parallax_log_length_scale", dist.Uniform(np.log(100.0), np.log(1e5)))
+            length = numpyro.deterministic("parallax_length_scale", jnp.exp(log_l))
+        else:
+            length = settings.parallax.length_scale_pc
+        numpyro.factor("distance_prior", jnp.sum(log_prior_in_log_distance(log_d, length))
                        + jnp.sum(jnp.log(c)) + n_par * np.log(np.log(10.0) / 5.0))
         d_pc = jnp.exp(log_d)
         offset = sample_parameter("parallax_offset", settings.prior("parallax_offset"))

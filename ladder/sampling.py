@@ -55,9 +55,12 @@ def initial_values(arrays: ModelArrays, layout: Layout, settings: ModelSettings)
         from .terms.parallax import edsd_mode_pc
 
         par = np.asarray(arrays.parallax)
-        d = edsd_mode_pc(np.maximum(par, 1e-3), np.asarray(arrays.parallax_err), settings.parallax.length_scale_pc)
+        length = settings.parallax.length_scale_pc or 1350.0
+        d = edsd_mode_pc(np.maximum(par, 1e-3), np.asarray(arrays.parallax_err), length)
         init["parallax_star_u"] = np.zeros(len(d))  # the photometric estimate (see the model)
         init["parallax_offset"] = 0.0
+        if settings.parallax.length_scale_pc is None:
+            init["parallax_log_length_scale"] = float(np.clip(np.log(np.mean(d) / 3.0), np.log(150.0), np.log(9e4)))
         mu_par = 5 * np.log10(d) - 5
     system = linear_system(arrays, layout, settings, scatter=0.1, mu_parallax=mu_par)
     theta, _ = weighted_least_squares(system.X, system.y, system.sd)

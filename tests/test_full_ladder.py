@@ -19,9 +19,9 @@ from tolerances import BIAS_Z, RECOVERY_Z
 SAMPLER = {"chains": 2, "warmup": 400, "draws": 1000}
 
 
-def _fit(mock, tmp, model_overrides, name):
+def _fit(mock, tmp, model_overrides, name, sampler=None):
     over = {"model": {"band": None, **model_overrides} if "extinction" in model_overrides else model_overrides,
-            "sampler": SAMPLER}
+            "sampler": sampler or SAMPLER}
     paths = write_mock(mock, tmp / name, run_overrides=over)
     cfg = ladder.load_run(paths["run"])
     return ladder.fit(ladder.load_data(cfg), cfg.model, cfg.sampler, cfg.diagnostics)
@@ -140,7 +140,7 @@ def parallax(tmp):
     # The parallax group is the only anchor here, so the zero point rests on the parallaxes alone.
     mock = simulate(MockSettings(n_hosts=5, n_anchors=0, n_cepheids=400, n_parallax=300, parallax_err_mas=0.08,
                                  parallax_offset=-0.03), seed=44)
-    return mock, _fit(mock, tmp, {}, "parallax")
+    return mock, _fit(mock, tmp, {}, "parallax", sampler={"chains": 2, "warmup": 1000, "draws": 1500})
 
 
 def _expected_naive_bias(true_parallax, err, nodes=80):

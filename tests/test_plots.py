@@ -1,7 +1,20 @@
-"""Figures (ladder.plots) drawn from a small fit of real Cepheids: the LMC as anchor, the SMC as host.
+"""Figures (ladder.plots) for every model variant, from small fits.
 
-Data: OGLE-IV classical Cepheids, Soszyński, I., et al. 2015, Acta Astronomica 65, 297 (the subsets in
-tests/data/, built by tests/data/make_ogle_subsets.py; 0.02 mag errors assumed, the catalogue gives none).
+Data:
+
+- Real Cepheids: OGLE-IV classical Cepheids, Soszyński, I., et al. 2015, Acta Astronomica 65, 297 (the
+  subsets in tests/data/, built by tests/data/make_ogle_subsets.py; 0.02 mag errors assumed, the catalogue
+  gives none), the LMC as anchor and the SMC as host. They carry the Wesenheit variants, the PL break,
+  sigma-clipping and the outlier mixture.
+- Mock universes (invented, :mod:`ladder.simulate`) for what tests/data has no real data for: a parallax
+  group, supernovae, photometric bias, per-galaxy scatter, three bands with extinction. Nothing is checked
+  against their truths here; they only exercise the figure code.
+
+Checks: the PNGs are written and non-trivial; the plotted residuals are the model's own
+(:func:`ladder.model.star_residuals` at the posterior mean) and equal a direct numpy evaluation of the
+model equation written out in this file; the plotted points minus the plotted line equal the same; the
+Wesenheit ratio from the law matches the reference library ``extinction``; the Hubble-diagram line matches
+astropy's flat Lambda-CDM distance modulus; the LMC W_I residual scatter is that of the published relation.
 """
 
 from __future__ import annotations
@@ -16,8 +29,9 @@ from astropy.table import Table
 
 import ladder
 from ladder.catalog import LadderData
-from ladder.config import ModelSettings, WesenheitSettings
-from tolerances import LMC_WI_PL_SCATTER_MAX, PL_RESIDUAL_ATOL, PNG_MAX_BYTES, PNG_MIN_BYTES
+from ladder.config import ModelSettings, ReddeningSettings, SamplerSettings, WesenheitSettings
+from tolerances import (F99_VS_EXTINCTION_RTOL, LMC_WI_PL_SCATTER_MAX, PARALLAX_MODULUS_ATOL, PL_RESIDUAL_ATOL,
+                        PNG_MAX_BYTES, PNG_MIN_BYTES, SN_FLOW_VS_LCDM_ATOL)
 
 DATA = Path(__file__).parent / "data"
 #: LMC distance modulus from detached eclipsing binaries, 18.477 +/- 0.004 (stat) +/- 0.026 (sys) mag
@@ -28,8 +42,11 @@ LMC_MU, LMC_MU_ERR = 18.477, float(np.hypot(0.004, 0.026))
 CLOUD_OH = {"LMC": 8.35, "SMC": 8.03}
 #: W_I = I - 1.55 (V - I), the Wesenheit index usual for OGLE V, I photometry (common practice).
 WI_R = 1.55
+#: Effective wavelengths of V and I, micrometres (approximate, common practice).
+WAVELENGTHS = (("I", 0.80), ("V", 0.55))
 N_PER_CLOUD = 80
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+TINY = SamplerSettings(chains=2, warmup=200, draws=200, seed=1, progress=False)
 
 
 def _clouds() -> LadderData:
@@ -56,32 +73,162 @@ def _clouds() -> LadderData:
     )
 
 
+def _mock(tmp_path_factory, name, settings, model_over, seed):
+    """A mock universe written and read back through the data contract; returns (data, model settings)."""
+    from ladder.config import load_run
+    from ladder.simulate import simulate, write_mock
+
+    paths = write_mock(simulate(settings, seed), tmp_path_factory.mktemp(name),
+                       run_overrides={"model": model_over})
+    cfg = load_run(paths["run"])
+    return ladder.load_data(cfg), cfg.model
+
+
+# ----------------------------------------------------------------------------- the fits (module scope)
 @pytest.fixture(scope="module")
 def result():
-    """W_I formed in the model with R free around 1.55, metallicity term on (exercises every branch of the PL figure)."""
-    model = ModelSettings(metallicity=True, wesenheit=WesenheitSettings(("I", "V", "I"), WI_R, 0.05))
-    sampler = ladder.SamplerSettings(chains=2, warmup=300, draws=300, seed=1, progress=False)
-    return ladder.fit(_clouds(), model, sampler)
+    """Real clouds, W_I with R fixed at 1.55, metallicity term on, PL break at 10 d, 3-sigma clipping."""
+    model = ModelSettings(metallicity=True, wesenheit=WesenheitSettings(("I", "V", "I"), WI_R), outliers="clip",
+                          pl_break=True)
+    return ladder.fit(_clouds(), model, TINY)
 
 
+@pytest.fixture(scope="module")
+def law_result():
+    """Real clouds, W_I with R from the F99 reddening law and R_V free (R recorded as ``wesenheit_r``),
+    the outlier mixture. (``r`` only seeds the initial values: they are computed with it.)"""
+    model = ModelSettings(metallicity=False, wesenheit=WesenheitSettings(("I", "V", "I"), WI_R, from_law=True),
+                          outliers="mixture", reddening=ReddeningSettings("fitzpatrick99", 3.1, 0.3),
+                          wavelengths=WAVELENGTHS)
+    return ladder.fit(_clouds(), model, TINY)
+
+
+@pytest.fixture(scope="module")
+def ladder_result(tmp_path_factory):
+    """Mock: one band (W), a parallax group, photometric bias, per-galaxy scatter, supernovae."""
+    from ladder.simulate import MockSettings
+
+    s = MockSettings(n_hosts=4, n_anchors=1, n_cepheids=60, min_cepheids=8, n_parallax=8, bias_sd=0.05,
+                     n_hubble_flow=15, scatter_spread=0.2)
+    data, model = _mock(tmp_path_factory, "ladder", s, {"scatter": "per_host", "photometric_bias": True}, 5)
+    return ladder.fit(data, model, TINY)
+
+
+@pytest.fixture(scope="module")
+def multiband_result(tmp_path_factory):
+    """Mock: bands V, I, H with extinction (F99 law, R_V free), PL break, outlier mixture."""
+    from ladder.simulate import MockSettings
+
+    s = MockSettings(n_hosts=3, n_anchors=1, n_cepheids=40, min_cepheids=8, reddening_law="fitzpatrick99",
+                     outlier_fraction=0.1, pl_break_period=10.0, pl_slope_long=-3.1)
+    over = {"band": None, "extinction": "multiband", "bands": ["V", "I", "H"], "outliers": "mixture",
+            "pl_break": True, "reddening": {"law": "fitzpatrick99", "rv": 3.1, "rv_err": 0.2}}
+    data, model = _mock(tmp_path_factory, "multiband", s, over, 4)
+    return ladder.fit(data, model, TINY)
+
+
+VARIANTS = ("result", "law_result", "ladder_result", "multiband_result")
+
+
+# ----------------------------------------------------------------------------- the model equation, written out
+def _mean(result, name):
+    return np.asarray(result.idata.posterior[name], float).mean(axis=(0, 1))
+
+
+def _per_galaxy(result, name, dim):
+    """Posterior mean of a per-galaxy variable on every galaxy (0 where the galaxy has none)."""
+    out = np.zeros(result.data.n_hosts)
+    if name in result.idata.posterior:
+        for g, v in zip(result.idata.posterior[name][dim].values, _mean(result, name)):
+            out[result.data.host_names.index(str(g))] = v
+    return out
+
+
+def _direct(result):
+    """Residuals of the model equation at the posterior means, in numpy (n_stars, k) with their bands and errors.
+
+    m - [mu + M(P) + gamma (oh - oh_sun) + beta + A]; W = m1 - R (m2 - m3) formed with the model's R; for parallax
+    stars mu = 5 log10(exp(mean ln d)) - 5; the broken PL written as two lines meeting at the break.
+    """
+    d, m = result.data, result.model
+    post = result.idata.posterior
+    if m.wesenheit is not None:
+        b = m.wesenheit.bands
+        if "wesenheit_r" in post and (m.wesenheit.free or (m.wesenheit.from_law and m.reddening.free)):
+            r = float(_mean(result, "wesenheit_r"))
+        elif m.wesenheit.from_law:
+            from ladder.reddening import wesenheit_ratio
+
+            r = float(wesenheit_ratio(m.reddening.law, [dict(m.wavelengths)[x] for x in b], m.reddening.rv))
+        else:
+            r = m.wesenheit.r
+        col = [d.band_index(x) for x in b]
+        obs = (d.mag[:, col[0]] - r * (d.mag[:, col[1]] - d.mag[:, col[2]]))[:, None]
+        bands = ("W",)
+        err = np.ones_like(obs)  # not needed for one magnitude
+    else:
+        bands = m.fitted_bands
+        obs = d.mag[:, [d.band_index(x) for x in bands]]
+        err = d.mag_err[:, [d.band_index(x) for x in bands]]
+    mu = np.zeros(d.n_stars)
+    mu_g = _per_galaxy(result, "mu", "host")
+    mu[:] = mu_g[d.star_host]
+    par = d.is_parallax_group[d.star_host]
+    if par.any():
+        log_d = dict(zip(post["log_distance_pc"]["parallax_star"].values, _mean(result, "log_distance_pc")))
+        mu[par] = [5.0 * np.log10(np.exp(log_d[d.star_names[j]])) - 5.0 for j in np.flatnonzero(par)]
+    x = d.log_period[:, None]
+    zp, sl = np.atleast_1d(_mean(result, "pl_zero_point")), np.atleast_1d(_mean(result, "pl_slope"))
+    if m.pl_break:
+        sll, xb = np.atleast_1d(_mean(result, "pl_slope_long")), np.log10(m.pl_break_period)
+        pl = np.where(x <= xb, zp + sl * (x - 1.0), zp + sl * (xb - 1.0) + sll * (x - xb))
+    else:
+        pl = zp + sl * (x - 1.0)
+    gamma = float(_mean(result, "metallicity_coef")) if m.metallicity else 0.0
+    bias = _per_galaxy(result, "photometric_bias", "bias_galaxy") if m.photometric_bias else np.zeros(d.n_hosts)
+    before = obs - (mu[:, None] + pl + gamma * (d.oh - m.solar_oh)[:, None] + bias[d.star_host][:, None])
+    return before, err, bands, par
+
+
+def _direct_multiband(result):
+    """Multiband: per-band residuals with each star's E(B-V) (its conditional posterior mean at the posterior-mean
+    parameters, ladder.terms.noise.reddening_posterior_mean) removed; and their inverse-variance mean."""
+    import jax
+
+    from ladder.reddening import extinction_ratio
+    from ladder.terms.noise import reddening_posterior_mean
+
+    d, m = result.data, result.model
+    before, err, bands, _ = _direct(result)
+    r_v = float(_mean(result, "r_v"))
+    a = np.asarray(extinction_ratio(m.reddening.law, [m.wavelength(b) for b in bands], r_v)) * r_v
+    mask = np.isfinite(before)
+    scatter = np.full(d.n_stars, float(_mean(result, "scatter")))
+    rate = 1.0 / _per_galaxy(result, "ebv_mean", "galaxy")[d.star_host]
+    ebv = np.asarray(jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(
+        np.where(mask, before, 0.0), np.where(mask, err, 1.0) ** 2, mask, scatter**2, a, rate))
+    per_band = before - ebv[:, None] * a[None, :]
+    w = np.where(mask, 1.0 / np.where(mask, err, 1.0) ** 2, 0.0)
+    return per_band, (w * np.where(mask, per_band, 0.0)).sum(axis=1) / w.sum(axis=1)
+
+
+# ----------------------------------------------------------------------------- files
 def _png_size(path: Path) -> tuple[int, int]:
     head = path.read_bytes()[:24]
     assert head[:8] == PNG_SIGNATURE, f"{path.name} is not a PNG"
     return struct.unpack(">II", head[16:24])  # IHDR width, height (PNG spec, W3C/ISO 15948)
 
 
-def _post_mean(result, name):
-    return float(np.asarray(result.idata.posterior[name]).mean())
-
-
-def test_write_all_plots_writes_three_pngs(result, tmp_path):
+@pytest.mark.parametrize("variant", VARIANTS)
+def test_write_all_plots_writes_the_figures(variant, request, tmp_path):
     from ladder.plots import write_all_plots
 
-    truths = {"LMC": LMC_MU, "wesenheit_r": WI_R}  # a galaxy's mu and a global parameter in one mapping
-    paths = write_all_plots(result, tmp_path / "figs", truths=truths)
-    assert [p.name for p in paths] == ["pl_relations.png", "corner.png", "distances.png"]
+    res = request.getfixturevalue(variant)
+    truths = {res.data.host_names[0]: 18.5, "pl_slope": -3.3}  # a galaxy's mu and a global parameter in one mapping
+    paths = write_all_plots(res, tmp_path / "figs", truths=truths)
+    expected = ["pl_relations.png", "corner.png", "distances.png"] + (["hubble.png"] if res.layout.has_sn else [])
+    assert [p.name for p in paths] == expected
     for p in paths:
-        assert p.is_file()
         size = p.stat().st_size
         assert PNG_MIN_BYTES < size < PNG_MAX_BYTES, (p.name, size)
         w, h = _png_size(p)
@@ -103,30 +250,91 @@ def test_figures_leave_no_pyplot_state(result, tmp_path):
     assert plt.get_fignums() == before
 
 
-def test_pl_residuals_match_direct_numpy_wesenheit(result):
-    from ladder.plots import pl_residuals
+# ----------------------------------------------------------------------------- the numbers behind the PL figure
+@pytest.mark.parametrize("variant", ("result", "law_result", "ladder_result"))
+def test_plotted_residuals_are_the_model_equation(variant, request):
+    """One fitted magnitude: residual panel = model residual = the equation in numpy = points - line."""
+    from ladder.plots import pl_points
 
-    d = result.data
-    mu = np.asarray(result.idata.posterior["mu"].transpose("chain", "draw", "host")).mean(axis=(0, 1))
-    r = _post_mean(result, "wesenheit_r")
-    i_mag, v_mag = d.mag[:, 0], d.mag[:, 1]
-    w = i_mag - r * (v_mag - i_mag)
-    pred = (mu[d.star_host] + _post_mean(result, "pl_zero_point") + _post_mean(result, "pl_slope") * (d.log_period - 1)
-            + _post_mean(result, "metallicity_coef") * (d.oh - result.model.solar_oh))
-    np.testing.assert_allclose(pl_residuals(result), w - pred, rtol=0, atol=PL_RESIDUAL_ATOL)
+    res = request.getfixturevalue(variant)
+    pts = pl_points(res)
+    before, _, _, par = _direct(res)
+    direct = before[:, 0]
+    np.testing.assert_allclose(pts.residual[~par], direct[~par], rtol=0, atol=PL_RESIDUAL_ATOL)
+    np.testing.assert_allclose(pts.magnitude - pts.predicted, direct, rtol=0, atol=PL_RESIDUAL_ATOL)
+    # Parallax stars: the points use the posterior-mean distance; the model's residual its modulus at the
+    # posterior-mean parameters (see PARALLAX_MODULUS_ATOL).
+    np.testing.assert_allclose(pts.residual[par], direct[par], rtol=0, atol=PARALLAX_MODULUS_ATOL)
+    assert pts.absolute.sum() == par.sum() == len(res.layout.parallax_stars)
 
 
-def test_pl_residuals_match_direct_numpy_single_band(result):
-    """Single-band, no-metallicity branch: the same draws read under other settings (only the arithmetic is checked)."""
+def test_multiband_points_residuals_and_extinction(multiband_result):
+    """Each galaxy drawn in H (the longest wavelength), extinction removed; residual = inverse-variance mean."""
+    from ladder.model import model_arrays, star_residuals
+    from ladder.plots import pl_points, pl_residuals
+
+    res = multiband_result
+    pts = pl_points(res)
+    per_band, mean = _direct_multiband(res)
+    assert set(pts.band) == {"H"}
+    np.testing.assert_allclose(pts.residual, mean, rtol=0, atol=PL_RESIDUAL_ATOL)
+    h = res.model.fitted_bands.index("H")
+    seen = np.isfinite(pts.magnitude)
+    np.testing.assert_allclose((pts.magnitude - pts.predicted)[seen], per_band[seen, h], rtol=0, atol=PL_RESIDUAL_ATOL)
+    arrays, layout = model_arrays(res.data, res.model)
+    means = {k: np.asarray(v).mean(axis=(0, 1)) for k, v in res.idata.posterior.items()}
+    np.testing.assert_allclose(pl_residuals(res), star_residuals(means, arrays, layout, res.model), rtol=0,
+                               atol=PL_RESIDUAL_ATOL)
+
+
+@pytest.mark.parametrize("wesenheit", ["fixed", "free", "law_fixed_rv"])
+def test_wesenheit_branches_on_the_same_draws(law_result, wesenheit):
+    """The other ways of forming W, read from one posterior (only the arithmetic is checked)."""
+    from ladder.plots import pl_points
+
+    w = {"fixed": WesenheitSettings(("I", "V", "I"), WI_R), "free": WesenheitSettings(("I", "V", "I"), WI_R, 0.05),
+         "law_fixed_rv": WesenheitSettings(("I", "V", "I"), WI_R, from_law=True)}[wesenheit]
+    model = dataclasses.replace(law_result.model, wesenheit=w, reddening=ReddeningSettings("fitzpatrick99", 3.1, 0.0))
+    other = dataclasses.replace(law_result, model=model)
+    pts = pl_points(other)
+    direct = _direct(other)[0][:, 0]
+    np.testing.assert_allclose(pts.residual, direct, rtol=0, atol=PL_RESIDUAL_ATOL)
+    np.testing.assert_allclose(pts.magnitude - pts.predicted, direct, rtol=0, atol=PL_RESIDUAL_ATOL)
+
+
+def test_single_band_branch_on_the_same_draws(result):
+    """Band I alone, no metallicity, no break, read from the W_I draws (only the arithmetic is checked)."""
     from ladder.plots import pl_points
 
     other = dataclasses.replace(result, model=ModelSettings(band="I", metallicity=False))
-    d = result.data
-    mu = np.asarray(result.idata.posterior["mu"].transpose("chain", "draw", "host")).mean(axis=(0, 1))
-    pred = mu[d.star_host] + _post_mean(result, "pl_zero_point") + _post_mean(result, "pl_slope") * (d.log_period - 1)
     pts = pl_points(other)
-    np.testing.assert_allclose(pts.residual, d.mag[:, 0] - pred, rtol=0, atol=PL_RESIDUAL_ATOL)
-    np.testing.assert_allclose(pts.magnitude - pts.predicted, pts.residual, rtol=0, atol=PL_RESIDUAL_ATOL)
+    direct = _direct(other)[0][:, 0]
+    np.testing.assert_allclose(pts.residual, direct, rtol=0, atol=PL_RESIDUAL_ATOL)
+    np.testing.assert_allclose(pts.magnitude - pts.predicted, direct, rtol=0, atol=PL_RESIDUAL_ATOL)
+
+
+def test_wesenheit_ratio_from_the_law_matches_extinction_package(law_result):
+    """R = A_I / (A_V - A_I) at the posterior-mean R_V; source: PyPI `extinction` (Barbary),
+    extinction.fitzpatrick99(wave_AA, a_v=1, r_v) = A_lambda / A_V."""
+    import extinction
+
+    from ladder.plots import _wesenheit_r
+
+    other = dataclasses.replace(law_result, model=dataclasses.replace(
+        law_result.model, reddening=ReddeningSettings("fitzpatrick99", 3.1, 0.0)))
+    a_i, a_v = extinction.fitzpatrick99(np.array([8000.0, 5500.0]), 1.0, 3.1, unit="aa")
+    np.testing.assert_allclose(_wesenheit_r(other), a_i / (a_v - a_i), rtol=F99_VS_EXTINCTION_RTOL)
+
+
+def test_outliers_and_clipped_stars_are_flagged(result, law_result):
+    from ladder.plots import _flags
+
+    for res, label in ((result, "clipped"), (law_result, "outlier")):
+        flags, text = _flags(res)
+        prob = np.asarray(res.stars["outlier_prob"], float)
+        np.testing.assert_array_equal(flags, prob > 0.5)
+        assert label in text
+    assert _flags(result)[0].any(), "3-sigma clipping of 160 real Cepheids removed none (expected a few)"
 
 
 def test_lmc_residual_scatter_is_that_of_the_wesenheit_pl(result):
@@ -139,3 +347,46 @@ def test_lmc_residual_scatter_is_that_of_the_wesenheit_pl(result):
     mad_sigma = 1.4826 * np.median(np.abs(res - np.median(res)))  # MAD -> sigma for a Gaussian
     assert mad_sigma < LMC_WI_PL_SCATTER_MAX
     assert abs(np.median(res)) < LMC_WI_PL_SCATTER_MAX
+
+
+# ----------------------------------------------------------------------------- corner, distances, Hubble
+def test_corner_has_one_axis_per_band_and_at_most_ten(multiband_result, ladder_result):
+    from ladder.plots import MAX_CORNER_AXES, _corner_entries
+
+    shown, omitted = _corner_entries(multiband_result)
+    assert len(shown) == MAX_CORNER_AXES and omitted
+    for key in ("pl_slope[H]", "pl_zero_point[H]", "metallicity_coef", "scatter", "r_v", "outlier_fraction"):
+        assert key in shown
+    assert set(shown) | set(omitted) >= {f"pl_zero_point[{b}]" for b in ("V", "I", "H")}
+    shown, omitted = _corner_entries(ladder_result)
+    assert {"h0", "sn_abs_mag", "parallax_offset"} <= set(shown)
+
+
+def test_hubble_line_is_flat_lcdm(ladder_result):
+    """The Hubble-flow line at q0 = -0.55, j0 = 1 against astropy's flat Lambda-CDM with Omega_m = 0.3
+    (q0 = 3 Omega_m / 2 - 1): the third-order series is good to 1.1e-4 in distance at z <= 0.15."""
+    from astropy.cosmology import FlatLambdaCDM
+
+    from ladder.plots import _sn_points
+
+    res = ladder_result
+    s = res.model.supernovae
+    assert (s.q0, s.j0) == (-0.55, 1.0)
+    pts = _sn_points(res)
+    flow = pts.flow & pts.fitted
+    h0, m_sn = float(_mean(res, "h0")), float(_mean(res, "sn_abs_mag"))
+    ref = m_sn + FlatLambdaCDM(H0=h0, Om0=0.3).distmod(pts.z[flow]).value
+    np.testing.assert_allclose(pts.model[flow], ref, rtol=0, atol=SN_FLOW_VS_LCDM_ATOL)
+    cal = ~pts.flow
+    mu = {str(h): v for h, v in zip(res.idata.posterior["mu"]["host"].values, _mean(res, "mu"))}
+    np.testing.assert_allclose(pts.model[cal], [mu[h] + m_sn for h in np.asarray(pts.host)[cal]], rtol=0,
+                               atol=PL_RESIDUAL_ATOL)
+
+
+def test_parallax_group_is_left_out_of_the_distances(ladder_result, tmp_path):
+    from ladder.plots import _mu_columns, plot_distances
+
+    cols = _mu_columns(ladder_result)
+    assert ladder_result.data.host_names.index("Milky Way") not in cols
+    assert len(cols) == ladder_result.data.n_hosts - 1
+    assert plot_distances(ladder_result, tmp_path / "d.png").stat().st_size > PNG_MIN_BYTES
