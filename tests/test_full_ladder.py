@@ -143,11 +143,15 @@ def parallax(tmp):
     return mock, _fit(mock, tmp, {}, "parallax", sampler={"chains": 2, "warmup": 1000, "draws": 1500})
 
 
-def _expected_naive_bias(true_parallax, err, nodes=80):
-    """E[5 log10(1000/varpi_obs) - 5] - true modulus per star, by Gauss-Hermite quadrature over the noise."""
-    x, w = np.polynomial.hermite_e.hermegauss(nodes)
+def _expected_naive_bias(true_parallax, err):
+    """E[5 log10(1000/varpi_obs) - 5] - true modulus per star over Gaussian parallax noise, keeping varpi_obs > 0
+    (a naive analysis cannot invert the others); by quadrature on a +/-6 sigma grid."""
+    x = np.linspace(-6.0, 6.0, 4001)
+    w = np.exp(-0.5 * x**2)
     obs = true_parallax[:, None] + err[:, None] * x[None, :]
-    return (np.log10(true_parallax[:, None] / obs) * 5 * w).sum(1) / w.sum()
+    ok = obs > 0
+    v = np.where(ok, 5.0 * np.log10(true_parallax[:, None] / np.where(ok, obs, 1.0)), 0.0)
+    return (v * w * ok).sum(1) / (w * ok).sum(1)
 
 
 def test_parallax_anchor_without_lutz_kelker_bias(parallax):
@@ -156,18 +160,21 @@ def test_parallax_anchor_without_lutz_kelker_bias(parallax):
     assert result.diagnostics.passed, result.diagnostics.report()
     for name in ("pl_zero_point", "pl_slope", "parallax_offset"):
         assert abs(_z(result, name, t[name])) < RECOVERY_Z, name
-    # Inverting these parallaxes would bias every modulus: its expectation over the noise, for the stars
-    # measured to better than 20% (where the series converges), is positive and of a size the model would see.
+    # Inverting these parallaxes would bias every modulus: the expectation over the noise is positive (stars put
+    # too far), 0.074 mag averaged over this group, about twice the zero point's posterior sd; the model's zero
+    # point is within RECOVERY_Z sd of the truth and nearer to it than the naive bias.
     c = mock.cepheids
     group = np.asarray([h == t["parallax_group"] for h in c["host"]])
     true_par = 1000.0 / np.asarray(mock.latent["distance_pc"])[group]
     err = np.asarray(c["parallax_err"])[group]
-    good = err / true_par < 0.2
-    naive_bias = _expected_naive_bias(true_par[good], err[good]).mean()
-    zp_sd = float(np.asarray(result.idata.posterior["pl_zero_point"]).std())
-    assert naive_bias > 2 * zp_sd, (naive_bias, zp_sd)  # a naive zero point would be off by > 2 posterior sds
-    assert naive_bias == pytest.approx(
-        (5 / np.log(10)) * np.mean((err[good] / true_par[good]) ** 2) / 2 * 1.0, rel=0.5)  # leading-order series
+    naive_bias = _expected_naive_bias(true_par, err).mean()
+    zp = np.asarray(result.idata.posterior["pl_zero_point"]).ravel()
+    assert naive_bias > 1.5 * zp.std(), (naive_bias, zp.std())
+    assert abs(zp.mean() - t["pl_zero_point"]) < naive_bias
+    # Closed-form check of the quadrature: leading order (5/ln 10) f^2/2 for the well-measured stars.
+    good = err / true_par < 0.1
+    series = (5 / np.log(10)) * (err[good] / true_par[good]) ** 2 / 2
+    np.testing.assert_allclose(_expected_naive_bias(true_par[good], err[good]), series, rtol=0.1)
 
 
 # ----------------------------------------------------------------------------- SN Ia rung and explicit extinction
