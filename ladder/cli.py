@@ -10,6 +10,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+import numpy as np
+
 from .errors import InputError
 
 __all__ = ["main", "EXIT_OK", "EXIT_BAD_INPUT", "EXIT_DIAGNOSTICS"]
@@ -107,6 +109,22 @@ def _check(args) -> int:
     data = load_data(cfg)
     print(f"run file {cfg.path}: OK")
     print(data.summary())
+    if data.is_parallax_group.any():
+        n = int(data.is_parallax_group[data.star_host].sum())
+        par = data.parallax[np.isfinite(data.parallax)]
+        print(f"parallax stars: {n}, parallax {par.min():.3f} - {par.max():.3f} mas, "
+              f"median fractional error {np.median(data.parallax_err[np.isfinite(data.parallax)] / np.abs(par)):.2f}")
+    if data.supernovae is not None:
+        s = cfg.model.supernovae
+        print(data.supernovae.summary(s.z_min, s.z_max))
+    m = cfg.model
+    terms = [f"band {m.band}" if not (m.wesenheit or m.multiband) else
+             ("multiband extinction (" + ", ".join(m.bands) + f"; {m.reddening.law})" if m.multiband else
+              "Wesenheit " + "{} - R ({} - {})".format(*m.wesenheit.bands))]
+    terms += [t for t, on in (("metallicity", m.metallicity), ("PL break", m.pl_break), (f"outliers: {m.outliers}",
+              m.outliers != "none"), ("per-host scatter", m.scatter_model == "per_host"),
+              ("photometric bias", m.photometric_bias)) if on]
+    print("model: " + ", ".join(terms))
     return EXIT_OK
 
 

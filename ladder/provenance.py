@@ -40,6 +40,11 @@ def provenance(result, config=None, argv=None) -> dict:
     resolved = config.to_dict() if config is not None else {
         "model": result.model.to_dict(), "sampler": result.sampler.to_dict()}
     resolved["sampler"] = result.sampler.to_dict()
+    headline = {}
+    for row in getattr(result, "parameters", []) or []:
+        if row["name"] in ("h0", "pl_zero_point", "pl_slope"):
+            headline[row["name"]] = {"q16": float(row["q16"]), "q50": float(row["q50"]), "q84": float(row["q84"]),
+                                     "unit": str(row["unit"])}
     return {
         "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "inputs": inputs,
@@ -50,4 +55,6 @@ def provenance(result, config=None, argv=None) -> dict:
         "python": sys.version.split()[0],
         "platform": platform.platform(),
         "packages": {p: _version(p) for p in _PACKAGES},
+        "results": headline,
+        "diagnostics_passed": bool(result.diagnostics.passed),
     }
