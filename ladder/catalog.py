@@ -327,6 +327,32 @@ def _optional_pair(t, col, err_col, file, n, unit="mag"):
     return v, e
 
 
+def _parallaxes(t, file, in_group, groups):
+    """``parallax``, ``parallax_err`` (mas), (n_stars,): required, err > 0, for stars of parallax groups.
+
+    Elsewhere the values are ignored (NaN in the result); cells that are present must still be numbers in a
+    unit convertible to mas.
+    """
+    cols = ("parallax", "parallax_err")
+    values = {}
+    for col in cols:
+        if col not in t.colnames:
+            if in_group.any():
+                raise InputError(f"required column for the stars of the parallax group "
+                                 f"{', '.join(repr(g) for g in groups)} is missing", file=file, key=col)
+            values[col] = np.full(len(t), np.nan)
+            continue
+        values[col] = _numbers(t, col, file, "mas", allow_missing=True)
+    for col in cols:
+        miss = np.flatnonzero(in_group & np.isnan(values[col]))
+        if miss.size:
+            raise InputError(f"empty value: stars of a parallax group need {col}", file=file, key=col, rows=miss)
+    bad = np.flatnonzero(in_group & ~(values["parallax_err"] > 0))
+    if bad.size:
+        raise InputError("must be > 0", file=file, key="parallax_err", rows=bad)
+    return tuple(np.where(in_group, values[col], np.nan) for col in cols)
+
+
 def _bands(t, file) -> list[str]:
     bands = []
     for c in t.colnames:
@@ -385,19 +411,14 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
                              rows=lonely)
     star_oh = _numbers(t, "oh", file, "dex", allow_missing=True) if "oh" in t.colnames else np.full(len(t), np.nan)
     oh = np.where(np.isfinite(star_oh), star_oh, host_oh[star_host])
-    parallax, parallax_err = _optional_pair(t, "parallax", "parallax_err", file, len(t), unit="mas")
     in_group = np.asarray(roles, dtype=object)[star_host] == "parallax"
-    for col, values in (("parallax", parallax), ("parallax_err", parallax_err)):
-        miss = np.flatnonzero(in_group & ~np.isfinite(values))
-        if miss.size:
-            raise InputError(f"stars of a parallax group need {col}", file=file, key=col, rows=miss)
-    parallax = np.where(in_group, parallax, np.nan)
-    parallax_err = np.where(in_group, parallax_err, np.nan)
+    groups = [h for h, r in zip(hnames, roles) if r == "parallax"]
+    parallax, parallax_err = _parallaxes(t, file, in_group, groups)
     sne = None
     if supernovae is not None:
         from .supernovae import load_supernovae
 
-        sne = load_supernovae(supernovae, tuple(hnames), tuple(roles))
+        sne = load_supernovae(supernovae, tuple(hnames), tuple(roles), hosts_file=hosts)
     return LadderData(
         host_names=tuple(hnames), host_roles=tuple(roles), mu_geo=mu_geo, mu_geo_err=mu_geo_err, host_oh=host_oh,
         star_names=tuple(stars), star_host=star_host, log_period=np.log10(period), bands=tuple(bands),

@@ -130,6 +130,7 @@ def _check(args) -> int:
 
 def _simulate(args) -> int:
     import math
+    import re
     from dataclasses import replace
 
     from .outputs import check_out_dir
@@ -160,12 +161,24 @@ def _simulate(args) -> int:
         if kind is float and not math.isfinite(value):
             raise InputError(f"needs a finite number, got {text!r}", key=flag)
         changes[key] = value
+    sampler = {k: getattr(args, k) for k in ("chains", "warmup", "draws") if getattr(args, k) is not None}
+    for k, v in sampler.items():  # checked here, before anything is written
+        if v < 1:
+            raise InputError(f"must be >= 1, got {v}", key=f"--{k}")
+    # A bad value is named by the option that set it: MockSettings field -> option.
+    options = {"n_hosts": "--hosts", "n_anchors": "--anchors", "n_cepheids": "--cepheids", "seed": "--seed",
+               **{key: "--" + dest.replace("_", "-") for dest, (key, _) in fields.items()}}
     try:
         settings = replace(MockSettings(), **changes)
         mock = simulate(settings, seed=args.seed)
     except ValueError as exc:
-        raise InputError(str(exc), key="simulate") from None
-    sampler = {k: getattr(args, k) for k in ("chains", "warmup", "draws") if getattr(args, k) is not None}
+        msg = str(exc)
+        hits = [(m.start(), f) for f in options
+                for m in [re.search(rf"\b{re.escape(f)}\b|\b{re.escape(f.replace('_', ' '))}\b", msg)] if m]
+        key = options[min(hits)[1]] if hits else "simulate"
+        for f in sorted(options, key=len, reverse=True):
+            msg = re.sub(rf"\b{re.escape(f)}\b", options[f], msg)
+        raise InputError(re.sub(rf"^{re.escape(key)} (?=must )", "", msg), key=key) from None
     paths = write_mock(mock, args.out, run_overrides={"sampler": sampler} if sampler else None)
     for p in paths.values():
         print(p)

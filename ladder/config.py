@@ -117,8 +117,8 @@ DEFAULT_PRIORS: dict[str, PriorSpec] = {
     "sn_scatter": _p("halfnormal", scale=0.3),
 }
 _POSITIVE = {"scatter", "scatter_spread", "ebv_mean", "sn_scatter", "outlier_fraction", "h0"}
-#: Priors set elsewhere in the run file (not in [model.priors]).
-_NOT_IN_PRIORS = {"r_v"}
+#: Priors set elsewhere in the run file (not in [model.priors]): name -> where.
+_NOT_IN_PRIORS = {"r_v": "[model.reddening] rv and rv_err (prior N(rv, rv_err) when rv_err > 0)"}
 
 
 @dataclass(frozen=True)
@@ -400,7 +400,8 @@ def _parse_parallax(sec: _Section | None) -> ParallaxSettings:
     if sec.raw.get("length_scale_pc") == "free":
         return ParallaxSettings(None)
     if isinstance(sec.raw.get("length_scale_pc"), str):
-        raise InputError("must be a number (pc) or \"free\"", file=sec.file, key=sec._key("length_scale_pc"))
+        raise InputError(f"must be a number (pc) or \"free\", got {sec.raw['length_scale_pc']!r}", file=sec.file,
+                         key=sec._key("length_scale_pc"))
     return ParallaxSettings(length_scale_pc=sec.float_("length_scale_pc", 1350.0, lo=0.0, open_lo=True))
 
 
@@ -451,7 +452,11 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
     priors = dict(DEFAULT_PRIORS)
     psec = sec.sub("priors")
     if psec:
-        psec.check_keys(set(DEFAULT_PRIORS) - _NOT_IN_PRIORS)
+        for k in psec.raw:
+            if k in _NOT_IN_PRIORS:
+                raise InputError(f"the {k} prior is not set here but by {_NOT_IN_PRIORS[k]}", file=sec.file,
+                                 key=f"model.priors.{k}")
+        psec.check_keys(set(DEFAULT_PRIORS) - set(_NOT_IN_PRIORS))
         for k, raw in psec.raw.items():
             priors[k] = PriorSpec.parse(raw, file=sec.file, key=f"model.priors.{k}", positive=k in _POSITIVE)
         if priors["mu"].dist == "fixed":

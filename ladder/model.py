@@ -144,6 +144,18 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
     else:
         oh = np.zeros(data.n_stars)
 
+    if settings.pl_break:
+        x_break = np.log10(settings.pl_break_period)
+        below = data.log_period <= x_break
+        for side, n in (("below", int(below.sum())), ("above", int((~below).sum()))):
+            if n == 0:
+                raise InputError(
+                    f"pl_break = true but no Cepheid has a period {side} pl_break_period = "
+                    f"{settings.pl_break_period:g} d (periods {10 ** data.log_period.min():.3g} - "
+                    f"{10 ** data.log_period.max():.3g} d): a PL slope there would be set by its prior alone "
+                    "(move [model] pl_break_period into the period range or set pl_break = false)",
+                    file=file, key="period")
+
     has_d = data.has_distance
     slot = np.full(data.n_hosts, -1)
     slot[has_d] = np.arange(int(has_d.sum()))
