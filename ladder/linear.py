@@ -46,6 +46,11 @@ def linear_system(arrays, layout, settings, *, scatter: float = 0.1, r: float | 
     """
     if r is None and settings.wesenheit is not None:
         r = settings.wesenheit.r
+        if settings.wesenheit.from_law:
+            from .reddening import wesenheit_ratio
+
+            wl = np.array([settings.wavelength(b) for b in settings.wesenheit.bands])
+            r = float(wesenheit_ratio(settings.reddening.law, wl, settings.reddening.rv))
     obs, err, mask = _observed(arrays, settings, r)
     n_stars, k = obs.shape
     n_mu = layout.n_mu

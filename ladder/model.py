@@ -267,6 +267,24 @@ def _star_magnitude(mu, log_period, oh, zero_point, slope, slope_long, metallici
     return mu + pl + metallicity_offset(oh, solar_oh, metallicity_coef) + bias + extinction
 
 
+def _photometric_modulus(resid0, var, mask, a=None):
+    """Each star's modulus from its photometry alone and its variance: the weighted mean of ``resid0`` (observed
+    minus the prediction without distance) over its bands, or, with an extinction vector ``a`` and >= 2 bands, the
+    weighted least-squares fit of (mu, E) to the bands, i.e. a reddening-free estimate. (n, k) arrays in."""
+    import jax.numpy as jnp
+
+    w = jnp.where(mask, 1.0 / jnp.where(mask, var, 1.0), 0.0)
+    s0, t0 = jnp.sum(w, axis=1), jnp.sum(w * resid0, axis=1)
+    plain, plain_var = t0 / s0, 1.0 / s0
+    if a is None:
+        return plain, plain_var
+    s1, s2, t1 = jnp.sum(w * a, axis=1), jnp.sum(w * a * a, axis=1), jnp.sum(w * a * resid0, axis=1)
+    det = s0 * s2 - s1 * s1
+    ok = det > 1e-9 * s0 * s2
+    safe = jnp.where(ok, det, 1.0)
+    return jnp.where(ok, (s2 * t0 - s1 * t1) / safe, plain), jnp.where(ok, s2 / safe, plain_var)
+
+
 def _star_distribution():
     """numpyro distribution of one star's k magnitudes (event), batched over stars: see terms.noise."""
     import jax
@@ -412,12 +430,12 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
         # mu_j = base_j - c_j u_j (base_j, c_j: the photometric estimate and its width), a linear change of
         # variables with log-Jacobian log c_j, and put the EDSD prior on d_j = 10^(mu_j/5 + 1) pc.
         par_rows = arrays.par_star
-        w = jnp.where(mask[par_rows], 1.0 / (err[par_rows] ** 2), 0.0)
-        base = jnp.sum(w * (obs[par_rows] - pred0[par_rows]), axis=1) / jnp.sum(w, axis=1)
-        c = jnp.sqrt(1.0 / jnp.sum(w, axis=1) + star_scatter[par_rows] ** 2)
+        base, var_base = _photometric_modulus(obs[par_rows] - pred0[par_rows], err[par_rows] ** 2, mask[par_rows],
+                                              a_vec)
+        c = jnp.sqrt(var_base + star_scatter[par_rows] ** 2)
         u = numpyro.sample("parallax_star_u", dist.ImproperUniform(constraints.real, (n_par,), ()))
-        mu_par = base - c * u
-        log_d = numpyro.deterministic("log_distance_pc", (mu_par / 5.0 + 1.0) * np.log(10.0))
+        log_d = numpyro.deterministic("log_distance_pc", ((base - c * u) / 5.0 + 1.0) * np.log(10.0))
+        mu_par = 5.0 * log_d / np.log(10.0) - 5.0  # via the recorded site, so a substituted distance is used
         if settings.parallax.length_scale_pc is None:
             log_l = numpyro.sample("parallax_log_length_scale", dist.Uniform(np.log(100.0), np.log(1e5)))
             length = numpyro.deterministic("parallax_length_scale", jnp.exp(log_l))

@@ -18,6 +18,8 @@ __all__ = ["write_outputs", "check_out_dir", "OUTPUT_FILES"]
 
 OUTPUT_FILES = ("posterior.nc", "distances.ecsv", "parameters.ecsv", "diagnostics.json", "provenance.json",
                 "pl_relations.png", "corner.png", "distances.png")
+#: Written only when the model has them: stars.ecsv (outliers = mixture or clip), hubble.png (supernovae).
+OPTIONAL_OUTPUT_FILES = ("stars.ecsv", "hubble.png")
 
 
 def check_out_dir(out_dir: str | Path, force: bool) -> Path:

@@ -541,7 +541,8 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
         band_words = rf"band: $\pm\sigma_\mathrm{{int}}$ = {scat[0]:.3f} mag"
     last = [res_words, band_words, "anchors in red"]
     if flags.any():
-        last.append(f"open grey: {flag_label} ({int(flags.sum())} stars)")
+        n_flag = int(flags.sum())
+        last.append(f"open grey: {flag_label} ({n_flag} star{'s' if n_flag > 1 else ''})")
     groups.append(last)
     caption = [line for g in groups for line in _wrap(g, width - 0.4, small)]
     title_lines = _wrap([f"PL relation per galaxy: {what}"], width - 0.4, small + 2)
@@ -609,6 +610,8 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
         else:
             mu_i = mu_d[:, mu_col[i]]
             notes.append(rf"$\mu$ = {mu_i.mean():.3f} $\pm$ {mu_i.std(ddof=1):.3f}")
+        if model.scatter_model == "per_host":
+            notes.append(rf"$\sigma_\mathrm{{int}}$ = {scat[i]:.3f}")
         if data.host_names[i] in bias_gal:
             notes.append(rf"$\beta$ = {bias_d[:, i].mean():+.3f}")
         missing = int((sel & ~np.isfinite(pts.magnitude)).sum())
@@ -1055,7 +1058,8 @@ def plot_hubble(result, path, *, band_draws: int = 400) -> Path:
         title = "Supernova calibrators (no Hubble-flow supernovae: $H_0$ not fitted)"
     z_all = pts.z[on_diagram & np.isfinite(pts.z)]
     if z_all.size:
-        z_lo, z_hi = float(z_all.min()) / 1.25, float(z_all.max()) * 1.25
+        z_lo = min(float(z_all.min()), s.z_min if has_flow else np.inf) / 1.2
+        z_hi = max(float(z_all.max()), s.z_max if has_flow else 0.0) * 1.2
     else:
         z_lo, z_hi = s.z_min, s.z_max
     grid = np.geomspace(z_lo, z_hi, 120)
