@@ -502,6 +502,13 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
         if missing:
             raise InputError(f"the reddening law needs the wavelength of band {missing[0]}: add [bands.{missing[0]}] "
                              "wavelength_um = ...", file=sec.file, key=f"bands.{missing[0]}")
+        from .reddening import law_range_um
+
+        lo, hi = law_range_um(out.reddening.law)
+        for b in out.fitted_bands:
+            if not lo <= out.wavelength(b) <= hi:
+                raise InputError(f"{out.wavelength(b)} um is outside the range of the {out.reddening.law} law "
+                                 f"({lo:.3g} - {hi:.3g} um)", file=sec.file, key=f"bands.{b}.wavelength_um")
     if out.outliers == "clip" and out.multiband:
         raise InputError("outliers = \"clip\" works on one fitted magnitude; use \"mixture\" with multiband",
                          file=sec.file, key="model.outliers")

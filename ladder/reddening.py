@@ -22,7 +22,7 @@ jax.config.update("jax_enable_x64", True)
 
 import jax.numpy as jnp  # noqa: E402
 
-__all__ = ["ccm89", "fitzpatrick99", "LAWS", "extinction_ratio", "wesenheit_ratio"]
+__all__ = ["ccm89", "fitzpatrick99", "LAWS", "extinction_ratio", "wesenheit_ratio", "law_range_um"]
 
 
 def _prepare(wavelength_um, r_v):
@@ -286,6 +286,12 @@ def fitzpatrick99(wavelength_um, r_v):
 # Lookup by name
 
 LAWS = {"ccm89": ccm89, "fitzpatrick99": fitzpatrick99}
+
+
+def law_range_um(law):
+    """(shortest, longest) wavelength in micrometres where ``law`` is defined."""
+    x_min, x_max = {"ccm89": (_CCM_X_MIN, _CCM_X_MAX), "fitzpatrick99": (_F99_X_MIN, _F99_X_MAX)}[law]
+    return 1.0 / x_max, 1.0 / x_min
 
 
 def extinction_ratio(law, wavelength_um, r_v):
