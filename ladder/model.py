@@ -182,11 +182,9 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         flow = select_hubble_flow(sne, s.z_min, s.z_max)
         sn_keep = np.flatnonzero(sne.is_calibrator | flow)
         n_flow = int(flow.sum())
-        cal_hosts = sne.host_index[sne.is_calibrator]
         if n_flow and not sne.is_calibrator.any():
             raise InputError("Hubble-flow supernovae but no calibrator (a supernova in a Cepheid galaxy) to set "
                              "their absolute magnitude", file=sne.file, key="host")
-        del cal_hosts
     sn_slot = np.array([slot[h] if h >= 0 else -1 for h in (sne.host_index[sn_keep] if sne is not None else [])],
                        dtype=np.int64)
 
