@@ -199,6 +199,27 @@ def test_h0_and_extinction_recovered(hubble):
     assert result.parameters[list(result.parameters["name"]).index("h0")]["unit"] == "km/s/Mpc"
 
 
+# ----------------------------------------------------------------------------- Wesenheit R from the law
+@pytest.fixture(scope="module")
+def law_wesenheit(tmp):
+    mock = simulate(MockSettings(n_hosts=8, n_cepheids=800, reddening_law="ccm89"), seed=46)
+    model = {"band": None, "wesenheit": {"bands": ["H", "V", "I"], "law": True},
+             "reddening": {"law": "ccm89", "rv": 3.1, "rv_err": 0.2}}
+    return mock, _fit(mock, tmp, model, "lawwes")
+
+
+def test_wesenheit_from_the_law_carries_rv(law_wesenheit):
+    mock, result = law_wesenheit
+    t = mock.truth
+    assert result.diagnostics.passed, result.diagnostics.report()
+    for name in ("pl_slope", "pl_zero_point", "wesenheit_r"):
+        assert abs(_z(result, name, t[name])) < RECOVERY_Z, name
+    d = result.distances
+    z = (np.asarray(d["mu_mean"]) - np.array([t["mu"][h] for h in d["host"]])) / np.asarray(d["mu_sd"])
+    assert np.all(np.abs(z) < RECOVERY_Z), z
+    assert float(np.asarray(result.idata.posterior["r_v"]).std()) > 0.05  # R_V's uncertainty is in the fit
+
+
 # ----------------------------------------------------------------------------- everything at once (slow)
 @pytest.mark.slow
 def test_everything_at_once(tmp):
