@@ -32,6 +32,12 @@ def _z(result, name, truth):
     return (x.mean() - truth) / x.std()
 
 
+def _mu_z(result, truth):
+    """(posterior mean - truth) / posterior sd of every galaxy modulus, from distances.ecsv's columns."""
+    d = result.distances
+    return (np.asarray(d["mu_mean"]) - np.array([truth["mu"][h] for h in d["host"]])) / np.asarray(d["mu_sd"])
+
+
 def _host_offsets(result, truth):
     """Posterior mean of mu - truth per non-anchor host, and the mean offset's z-score."""
     d = result.distances
@@ -119,8 +125,7 @@ def test_bias_and_host_scatter_recovered(biased):
     mock, full, plain = biased
     t = mock.truth
     assert full.diagnostics.passed, full.diagnostics.report()
-    d = full.distances
-    z = (np.asarray(d["mu_mean"]) - np.array([t["mu"][h] for h in d["host"]])) / np.asarray(d["mu_sd"])
+    z = _mu_z(full, t)
     assert np.all(np.abs(z) < RECOVERY_Z), z
     b = full.idata.posterior["photometric_bias"]
     zb = [(float(b.sel(bias_galaxy=g).mean()) - t["photometric_bias"][g]) / float(b.sel(bias_galaxy=g).std())
@@ -192,8 +197,7 @@ def test_h0_and_extinction_recovered(hubble):
     assert result.diagnostics.passed, result.diagnostics.report()
     for name in ("h0", "sn_abs_mag", "sn_scatter", "r_v", "metallicity_coef", "scatter"):
         assert abs(_z(result, name, t[name])) < RECOVERY_Z, name
-    d = result.distances
-    z = (np.asarray(d["mu_mean"]) - np.array([t["mu"][h] for h in d["host"]])) / np.asarray(d["mu_sd"])
+    z = _mu_z(result, t)
     assert np.all(np.abs(z) < RECOVERY_Z), z
     assert "h0" in list(result.parameters["name"])
     assert result.parameters[list(result.parameters["name"]).index("h0")]["unit"] == "km/s/Mpc"
@@ -214,8 +218,7 @@ def test_wesenheit_from_the_law_carries_rv(law_wesenheit):
     assert result.diagnostics.passed, result.diagnostics.report()
     for name in ("pl_slope", "pl_zero_point", "wesenheit_r"):
         assert abs(_z(result, name, t[name])) < RECOVERY_Z, name
-    d = result.distances
-    z = (np.asarray(d["mu_mean"]) - np.array([t["mu"][h] for h in d["host"]])) / np.asarray(d["mu_sd"])
+    z = _mu_z(result, t)
     assert np.all(np.abs(z) < RECOVERY_Z), z
     assert float(np.asarray(result.idata.posterior["r_v"]).std()) > 0.05  # R_V's uncertainty is in the fit
 
