@@ -252,8 +252,8 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
     return names
 
 
-def _star_magnitude(mu, log_period, oh, zero_point, slope, slope_long, metallicity_coef, bias, extinction,
-                    solar_oh, break_log_period):
+def _star_magnitude(mu, log_period, oh, zero_point, slope, slope_long, metallicity_coef, bias, solar_oh,
+                    break_log_period):
     """Predicted magnitude of one Cepheid in one band (scalar inputs): the composition of the terms."""
     from .terms import metallicity_offset, pl_absolute_magnitude
     from .terms.pl import pl_absolute_magnitude_broken
@@ -262,7 +262,7 @@ def _star_magnitude(mu, log_period, oh, zero_point, slope, slope_long, metallici
         pl = pl_absolute_magnitude(log_period, zero_point, slope)
     else:
         pl = pl_absolute_magnitude_broken(log_period, zero_point, slope, slope_long, break_log_period)
-    return mu + pl + metallicity_offset(oh, solar_oh, metallicity_coef) + bias + extinction
+    return mu + pl + metallicity_offset(oh, solar_oh, metallicity_coef) + bias
 
 
 def _photometric_modulus(resid0, var, mask, a=None):
@@ -376,7 +376,6 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
     star_bias = bias[arrays.star_host]
 
     # Reddening: R_V, the law at the bands' wavelengths.
-    r_v = None
     if settings.needs_law:
         from .reddening import extinction_ratio
 
@@ -401,7 +400,6 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
     else:
         obs, err, mask = arrays.mag, arrays.mag_err, arrays.mag_mask
 
-    extinction = jnp.zeros_like(obs)
     a_vec = rate = None
     if settings.multiband:
         # E(B-V) of each star is integrated out exactly (terms.noise.reddened_star_logpdf).
@@ -412,10 +410,10 @@ def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: 
     zp_b = jnp.broadcast_to(zero_point, (n_bands,))
     sl_b = jnp.broadcast_to(slope, (n_bands,))
     sll_b = jnp.broadcast_to(slope_long, (n_bands,))
-    per_band = jax.vmap(_star_magnitude, in_axes=(None, None, None, 0, 0, 0, None, None, 0, None, None))
-    per_star = jax.vmap(per_band, in_axes=(0, 0, 0, None, None, None, None, 0, 0, None, None))
+    per_band = jax.vmap(_star_magnitude, in_axes=(None, None, None, 0, 0, 0, None, None, None, None))
+    per_star = jax.vmap(per_band, in_axes=(0, 0, 0, None, None, None, None, 0, None, None))
     pred0 = per_star(jnp.zeros(arrays.log_period.shape), arrays.log_period, arrays.oh, zp_b, sl_b, sll_b, gamma,
-                     star_bias, extinction, settings.solar_oh, break_x)  # everything but the distance
+                     star_bias, settings.solar_oh, break_x)  # everything but the distance and the reddening
 
     # Distances: one modulus per galaxy, plus one per parallax star (latent distance, EDSD prior).
     mu_all = mu
