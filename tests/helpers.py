@@ -35,13 +35,17 @@ def small_data(seed=0, n_hosts=5, n_anchors=2, n_per=60, scatter=0.06, metallici
 def assert_recovers(result, truth: dict, names=None, z=RECOVERY_Z):
     """The one recovery check: every named truth within ``z`` posterior sds of the posterior mean.
 
-    ``truth`` maps global names to values and may hold ``mu``: {galaxy: value}. Returns the z-scores.
+    ``truth`` maps global names to values and may hold ``mu``: {galaxy: value}, checked for every galaxy of the
+    posterior it names. ``names`` (default: the truths the posterior has) must all be in the posterior.
+    Returns the z-scores.
     """
     post = result.idata.posterior
     zs = {}
-    for name in names or [k for k in truth if k != "mu"]:
-        if name not in post:
-            continue
+    if names is None:
+        names = [k for k in truth if k != "mu" and k in post]
+    missing = [n for n in names if n not in post]
+    assert not missing, f"not in the posterior: {missing}"
+    for name in names:
         x = np.asarray(post[name]).ravel()
         zs[name] = (x.mean() - truth[name]) / x.std()
     if "mu" in truth:
