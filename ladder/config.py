@@ -26,6 +26,7 @@ __all__ = [
     "WesenheitSettings",
     "ModelSettings",
     "SamplerSettings",
+    "OutputSettings",
     "DiagnosticThresholds",
     "RunConfig",
     "load_run",
@@ -243,9 +244,20 @@ class ModelSettings:
         return {"model": d, "bands": {b: {"wavelength_um": w} for b, w in self.wavelengths}}
 
 
+SAMPLER_METHODS = ("auto", "marginal", "nuts", "gls")
+
+
 @dataclass(frozen=True)
 class SamplerSettings:
-    """NUTS settings. ``chain_method``: auto (parallel when the CPU devices allow), parallel, sequential, vectorized."""
+    """Sampler settings.
+
+    ``method``: ``auto`` (the default: ``marginal`` wherever the model is linear-Gaussian given its
+    hyperparameters, else ``nuts``), ``marginal`` (the linear block integrated out exactly, NUTS on the rest,
+    exact draws of the linear block), ``nuts`` (every parameter sampled), ``gls`` (closed form, fixed
+    hyperparameters). ``max_draws``: when R-hat or ESS fail, the chains are extended without a new warm-up up
+    to this many draws per chain (``max_draws = draws`` turns it off; default 4 x draws).
+    ``chain_method``: auto (parallel when the CPU devices allow), parallel, sequential, vectorized.
+    """
 
     chains: int = 4
     warmup: int = 1000
@@ -256,6 +268,29 @@ class SamplerSettings:
     dense_mass: bool = True
     chain_method: str = "auto"
     progress: bool = True
+    method: str = "auto"
+    max_draws: int | None = None  # None: 4 x draws
+
+    @property
+    def draw_limit(self) -> int:
+        return 4 * self.draws if self.max_draws is None else self.max_draws
+
+    def to_dict(self) -> dict[str, Any]:
+        d = dataclasses.asdict(self)
+        d["max_draws"] = self.draw_limit
+        return d
+
+
+LOG_LIKELIHOOD_MODES = ("auto", "star", "galaxy", "none")
+
+
+@dataclass(frozen=True)
+class OutputSettings:
+    """What ``posterior.nc`` keeps. ``log_likelihood``: pointwise Cepheid log-likelihoods per ``star``, summed per
+    ``galaxy`` (the unit of host-level model comparison), or ``none``; ``auto`` (default) is ``star`` up to
+    2e7 values (stars x draws, ~80 MB as float32) and ``galaxy`` beyond."""
+
+    log_likelihood: str = "auto"
 
     def to_dict(self) -> dict[str, Any]:
         return dataclasses.asdict(self)
@@ -285,6 +320,7 @@ class RunConfig:
     supernovae: Path | None = None
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     diagnostics: DiagnosticThresholds = field(default_factory=DiagnosticThresholds)
+    output: OutputSettings = field(default_factory=OutputSettings)
 
     def to_dict(self) -> dict[str, Any]:
         data = {"cepheids": str(self.cepheids), "hosts": str(self.hosts)}
@@ -292,7 +328,7 @@ class RunConfig:
             data["supernovae"] = str(self.supernovae)
         m = self.model.to_dict()
         return {"data": data, "model": m["model"], "bands": m["bands"], "sampler": self.sampler.to_dict(),
-                "diagnostics": self.diagnostics.to_dict()}
+                "diagnostics": self.diagnostics.to_dict(), "output": self.output.to_dict()}
 
 
 # ----------------------------------------------------------------------------- parsing helpers
@@ -527,10 +563,21 @@ def _parse_sampler(sec: _Section | None) -> SamplerSettings:
     if method not in ("auto", "parallel", "sequential", "vectorized"):
         raise InputError(f"chain_method must be auto, parallel, sequential or vectorized, got {method!r}",
                          file=sec.file, key="sampler.chain_method")
+    sampling_method = sec.get("method", str, d.method)
+    if sampling_method not in SAMPLER_METHODS:
+        raise InputError(f"method must be one of {', '.join(SAMPLER_METHODS)}, got {sampling_method!r}",
+                         file=sec.file, key="sampler.method")
+    draws = sec.int_("draws", d.draws, 1)
+    max_draws = sec.int_("max_draws", 4 * draws, 1) if "max_draws" in sec.raw else None
+    if max_draws is not None and max_draws < draws:
+        raise InputError(f"max_draws must be >= draws ({draws}), got {max_draws}", file=sec.file,
+                         key="sampler.max_draws")
     return SamplerSettings(
+        method=sampling_method,
+        max_draws=max_draws,
         chains=sec.int_("chains", d.chains, 1),
         warmup=sec.int_("warmup", d.warmup, 1),
-        draws=sec.int_("draws", d.draws, 1),
+        draws=draws,
         seed=sec.int_("seed", d.seed, 0),
         target_accept=sec.float_("target_accept", d.target_accept, lo=0.0, hi=0.999, open_lo=True),
         max_tree_depth=sec.int_("max_tree_depth", d.max_tree_depth, 1),
@@ -538,6 +585,13 @@ def _parse_sampler(sec: _Section | None) -> SamplerSettings:
         chain_method=method,
         progress=sec.get("progress", bool, d.progress),
     )
+
+
+def _parse_output(sec: _Section | None) -> OutputSettings:
+    if sec is None:
+        return OutputSettings()
+    sec.check_keys({f.name for f in dataclasses.fields(OutputSettings)})
+    return OutputSettings(log_likelihood=_choice(sec, "log_likelihood", LOG_LIKELIHOOD_MODES))
 
 
 def _parse_diagnostics(sec: _Section | None) -> DiagnosticThresholds:
@@ -556,7 +610,7 @@ def _parse_diagnostics(sec: _Section | None) -> DiagnosticThresholds:
 def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> RunConfig:
     """Validate a parsed run-file mapping; relative data paths are taken relative to ``base``."""
     top = _Section(raw, "", file)
-    top.check_keys({"data", "model", "sampler", "diagnostics", "bands"})
+    top.check_keys({"data", "model", "sampler", "diagnostics", "bands", "output"})
     data = top.sub("data")
     if data is None:
         raise InputError("the [data] table is required (cepheids, hosts)", file=file, key="data")
@@ -579,6 +633,7 @@ def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> Run
         model=_parse_model(top.sub("model"), _parse_bands(top.sub("bands"))),
         sampler=_parse_sampler(top.sub("sampler")),
         diagnostics=_parse_diagnostics(top.sub("diagnostics")),
+        output=_parse_output(top.sub("output")),
     )
 
 

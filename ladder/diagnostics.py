@@ -31,20 +31,24 @@ class Diagnostics:
     passed: bool
     problems: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
+    method: str = "nuts"
+    notes: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
         d = asdict(self)
         d["problems"] = list(self.problems)
         d["warnings"] = list(self.warnings)
+        d["notes"] = list(self.notes)
         return d
 
     def report(self) -> str:
         head = "diagnostics PASSED" if self.passed else "DIAGNOSTICS FAILED"
         lines = [f"{head}: max R-hat {self.max_r_hat:.4f}, min bulk ESS {self.min_ess_bulk:.0f}, "
                  f"min tail ESS {self.min_ess_tail:.0f}, divergences {self.divergences}, min E-BFMI {self.min_bfmi:.2f} "
-                 f"({self.chains} chains x {self.draws} draws, {self.wall_seconds:.1f} s)"]
+                 f"({self.method}, {self.chains} chains x {self.draws} draws, {self.wall_seconds:.1f} s)"]
         lines += [f"  FAIL: {p}" for p in self.problems]
         lines += [f"  warning: {w}" for w in self.warnings]
+        lines += [f"  note: {n}" for n in self.notes]
         return "\n".join(lines)
 
 
@@ -56,11 +60,16 @@ def _worst(ds, reducer) -> tuple[float, str]:
     return vals[name], name
 
 
-def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = DiagnosticThresholds()) -> Diagnostics:
-    """Compute the diagnostics of a fit and judge them against ``limits``."""
+def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = DiagnosticThresholds(), *,
+             method: str = "nuts", notes: tuple = ()) -> Diagnostics:
+    """Compute the diagnostics of a fit and judge them against ``limits`` (every posterior variable and the
+    sampler's own coordinates in ``sampler_aux``)."""
     import arviz as az
+    import xarray as xr
 
     post = idata.posterior
+    if "sampler_aux" in idata.groups():
+        post = xr.merge([post, idata.sampler_aux])
     chains, draws = post.sizes["chain"], post.sizes["draw"]
     rhat = az.rhat(post, method="rank")
     ess_b = az.ess(post, method="bulk")
@@ -69,8 +78,10 @@ def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = Diagnost
     min_bulk, bulk_name = _worst(ess_b, np.nanmin)
     min_tail, _ = _worst(ess_t, np.nanmin)
     div = int(np.asarray(idata.sample_stats["diverging"]).sum())
-    bfmi = float(np.min(az.bfmi(idata))) if draws > 1 else float("nan")
-    problems, warnings = [], []
+    has_energy = "energy" in idata.sample_stats
+    bfmi = float(np.min(az.bfmi(idata))) if draws > 1 and has_energy else float("nan")
+    problems, warnings = [], [n[len("WARNING: "):] for n in notes if n.startswith("WARNING: ")]
+    notes = tuple(n for n in notes if not n.startswith("WARNING: "))
     if chains < 2:
         warnings.append("a single chain: R-hat cannot detect chains stuck in different places; run >= 4 chains")
     if not max_rhat <= limits.max_r_hat:
@@ -83,4 +94,5 @@ def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = Diagnost
         warnings.append(f"E-BFMI {bfmi:.2f} < {limits.min_bfmi}: momentum resampling explores the energy poorly")
     return Diagnostics(divergences=div, max_r_hat=max_rhat, min_ess_bulk=min_bulk, min_ess_tail=min_tail,
                        min_bfmi=bfmi, chains=int(chains), draws=int(draws), wall_seconds=float(wall_seconds),
-                       passed=not problems, problems=tuple(problems), warnings=tuple(warnings))
+                       passed=not problems, problems=tuple(problems), warnings=tuple(warnings), method=method,
+                       notes=tuple(notes))

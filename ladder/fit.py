@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .catalog import LadderData, load_catalogues
-from .config import DiagnosticThresholds, ModelSettings, RunConfig, SamplerSettings
+from .config import DiagnosticThresholds, ModelSettings, OutputSettings, RunConfig, SamplerSettings
 from .diagnostics import Diagnostics, diagnose
 from .model import global_parameters, model_arrays
 from .summary import distances_table, parameters_table, stars_table
@@ -22,7 +22,8 @@ class FitResult:
     Attributes
     ----------
     idata : arviz.InferenceData
-        posterior, sample_stats, observed_data, log_likelihood.
+        posterior, sample_stats, observed_data, constant_data, log_likelihood (Cepheids),
+        log_likelihood_other (anchors, supernovae, parallaxes), sampler_aux (sampler coordinates).
     distances, parameters : astropy.table.Table
         the result tables (see docs/outputs.md).
     stars : astropy.table.Table or None
@@ -30,6 +31,8 @@ class FitResult:
     diagnostics : Diagnostics
     data : LadderData
     model, sampler : the settings used.
+    method : str
+        The sampling method used (``marginal``, ``nuts`` or ``gls``); ``notes`` say why and what was done.
     """
 
     idata: object
@@ -43,6 +46,9 @@ class FitResult:
     stars: object = None
     layout: object = None
     extra: dict = field(default_factory=dict)
+    method: str = "nuts"
+    notes: tuple = ()
+    derived: dict = field(default_factory=dict)
 
 
 def load_data(config: RunConfig) -> LadderData:
@@ -53,56 +59,83 @@ def load_data(config: RunConfig) -> LadderData:
 
 
 def _clip(arrays, layout, model):
-    """outliers = "clip": the usual iterative n-sigma rejection on the linear fit, done once before sampling."""
+    """outliers = "clip": the usual iterative n-sigma rejection on the model's weighted least squares,
+    done once before sampling (:mod:`ladder.clipping`; the refit is :func:`ladder.structure.conditional_mean`)."""
+    import jax.numpy as jnp
+
     from .clipping import iterative_clip
-    from .linear import linear_system
+    from .errors import InputError
+    from .model import model_parts
+    from .sampling import _scatter_guess
+    from .structure import jit
 
-    from .linear import weighted_least_squares
+    parts = model_parts(arrays, layout, model)
+    st, lin = parts.structure, parts.lin
+    s = _scatter_guess(parts)
+    n = arrays.log_period.shape[0]
+    ov = jnp.full(n, s**2)
+    mu0 = jnp.asarray(parts.par_base) if parts.parallax.shape[0] else None
+    seen = np.asarray(lin.seen)
+    sd = np.sqrt(np.asarray(lin.var)[:, 0] + s**2)
+    galaxies = np.asarray(parts.star_galaxy)
 
-    system = linear_system(arrays, layout, model, scatter=0.0)
-    theta, _ = weighted_least_squares(system.X, system.y, system.sd)
-    stars = system.row_star >= 0
-    r, e = (system.y - system.X @ theta)[stars], system.sd[stars]
-    # The scatter is not known before the fit: take the s for which the normalised residuals r / sqrt(e^2 + s^2)
-    # have the median absolute value of a unit normal (0.6745), a robust one-parameter estimate.
-    lo, hi = 0.0, float(np.std(r)) + 1e-6
-    for _ in range(60):
-        s = 0.5 * (lo + hi)
-        lo, hi = (s, hi) if np.median(np.abs(r) / np.sqrt(e**2 + s**2)) > 0.6745 else (lo, s)
-    system = linear_system(arrays, layout, model, scatter=0.5 * (lo + hi))
-    keep, _ = iterative_clip(system.X, system.y, system.sd, n_sigma=model.clip_sigma, protect=system.row_star < 0)
-    weight = np.ones(arrays.log_period.shape[0])
-    weight[system.row_star[(~keep) & (system.row_star >= 0)]] = 0.0
-    return arrays._replace(star_weight=weight)
+    def refit(keep):
+        left = np.bincount(galaxies[keep], minlength=len(layout.galaxies))
+        empty = [layout.galaxies[i] for i in np.flatnonzero(left == 0)]
+        if empty:
+            raise InputError(f"clipping at clip_sigma = {model.clip_sigma:g} would reject every Cepheid of "
+                             f"{', '.join(empty)} (raise [model] clip_sigma)", key="model.clip_sigma")
+        kept = lin._replace(mask=jnp.asarray(seen & keep[:, None]))
+        loc, glob = jit("conditional_mean")(st, kept, ov, mu0, include_prior=False)
+        return np.asarray(jit("residuals")(st, kept, loc, glob, mu0))[:, 0] / sd
+
+    keep, _ = iterative_clip(refit, n, n_sigma=model.clip_sigma)
+    return arrays._replace(star_weight=keep.astype(float))
 
 
-def fit(data: LadderData, model: ModelSettings = ModelSettings(), sampler: SamplerSettings = SamplerSettings(),
-        limits: DiagnosticThresholds = DiagnosticThresholds()) -> FitResult:
-    """Sample the joint posterior with NUTS and summarise it.
+def fit(data: LadderData, model: ModelSettings | RunConfig = ModelSettings(), sampler: SamplerSettings | None = None,
+        limits: DiagnosticThresholds | None = None, output: OutputSettings | None = None) -> FitResult:
+    """Sample the joint posterior and summarise it.
 
-    Same inputs and ``sampler.seed`` give identical draws.
+    ``model`` may be a whole :class:`~ladder.config.RunConfig` (``ladder.fit(data, cfg)``): its sampler,
+    diagnostic limits and output settings are then used unless given. Same inputs and ``sampler.seed`` give
+    identical draws.
     """
-    from .sampling import run_nuts
+    from .sampling import run_sampler
 
+    if isinstance(model, RunConfig):
+        cfg = model
+        model, sampler = cfg.model, sampler or cfg.sampler
+        limits, output = limits or cfg.diagnostics, output or cfg.output
+    if not isinstance(model, ModelSettings):
+        raise TypeError(f"fit(data, model, ...) takes ModelSettings or a RunConfig (ladder.load_run), "
+                        f"not {type(model).__name__}")
+    if not isinstance(data, LadderData):
+        raise TypeError(f"fit(data, ...) takes LadderData (ladder.load_data(cfg)), not {type(data).__name__}")
+    sampler = sampler or SamplerSettings()
+    limits = limits or DiagnosticThresholds()
+    output = output or OutputSettings()
     arrays, layout = model_arrays(data, model)
     if model.outliers == "clip":
         arrays = _clip(arrays, layout, model)
-    idata, derived, wall, method = run_nuts(arrays, layout, model, sampler)
-    diag = diagnose(idata, wall, limits)
+    run = run_sampler(arrays, layout, model, sampler, limits, output)
+    diag = diagnose(run.idata, run.wall_seconds, limits, method=run.method, notes=tuple(run.notes))
     stars = None
     if model.outliers != "none":
-        prob = derived.get("outlier_prob", 1.0 - np.asarray(arrays.star_weight))
-        stars = stars_table(idata, data, arrays, layout, model, prob)
+        prob = run.derived["outlier_prob"] if model.outliers == "mixture" else 1.0 - np.asarray(arrays.star_weight)
+        stars = stars_table(data, run.derived, prob, model)
     return FitResult(
-        idata=idata,
-        distances=distances_table(idata, data),
-        parameters=parameters_table(idata, global_parameters(model, layout)),
+        idata=run.idata,
+        distances=distances_table(run.idata, data),
+        parameters=parameters_table(run.idata, global_parameters(model, layout)),
         diagnostics=diag,
         data=data,
         model=model,
         sampler=sampler,
-        chain_method=method,
+        chain_method=run.chain_method,
         stars=stars,
         layout=layout,
+        method=run.method,
+        notes=tuple(run.notes),
+        derived=run.derived,
     )
-

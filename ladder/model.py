@@ -25,8 +25,9 @@ Symbols ↔ output names: :math:`\mu_i` ``mu`` (dim ``host``), :math:`M_B` ``pl_
 ``outlier_fraction``, :math:`\varpi_0` ``parallax_offset``, :math:`H_0` ``h0``, :math:`M_\mathrm{SN}` ``sn_abs_mag``,
 :math:`\sigma_\mathrm{SN}` ``sn_scatter``.
 
-Observation sites (pointwise log-likelihoods in the ``log_likelihood`` group): ``mag_obs`` (dim ``star``),
-``mu_geo_obs`` (``anchor``), ``parallax_obs`` (``parallax_star``), ``sn_obs`` (``sn``).
+The linear part of the model (moduli, PL, metallicity, SN and H0 terms, biases) is defined once in
+:mod:`ladder.structure`; :func:`full_model` samples every parameter (NUTS), :func:`marginal_model` integrates the
+linear part out exactly and samples the rest.
 """
 
 from __future__ import annotations
@@ -40,8 +41,9 @@ from .catalog import LadderData
 from .config import ModelSettings, PriorSpec
 from .errors import InputError
 
-__all__ = ["ModelArrays", "Layout", "model_arrays", "distance_ladder_model", "GLOBAL_PARAMETERS",
-           "global_parameters", "DERIVED_PER_STAR", "star_residuals"]
+__all__ = ["ModelArrays", "Layout", "model_arrays", "ModelParts", "model_parts", "fitted_data", "marginal_model",
+           "full_model", "star_logpdf", "pointwise", "theta_from_params", "GLOBAL_PARAMETERS", "global_parameters",
+           "DERIVED_PER_STAR", "star_residuals", "wesenheit_ratio_value"]
 
 #: Global parameters in output order (vector-valued ones get one row per band).
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
@@ -169,6 +171,11 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
             raise InputError("photometric_bias = true but the hosts table has no bias, bias_err values",
                              file=data.files.get("hosts", "hosts table"), key="bias")
         bias_host = np.flatnonzero(np.isfinite(data.host_bias_err))
+        grouped = [i for i in bias_host if data.is_parallax_group[i]]
+        if grouped:
+            raise InputError("a parallax group has no single modulus, so a photometric bias cannot be applied to "
+                             "it (leave bias, bias_err empty on that row)", file=data.files.get("hosts", "hosts table"),
+                             key="bias", rows=grouped)
     else:
         bias_host = np.zeros(0, int)
 
@@ -241,7 +248,8 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
         "wesenheit_r": w is not None and w.free,
         "r_v": settings.needs_law and settings.reddening.free,
         "outlier_fraction": settings.outliers == "mixture",
-        "parallax_offset": par, "parallax_length_scale": par and settings.parallax.length_scale_pc is None, "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
+        "parallax_offset": par, "parallax_length_scale": par and settings.parallax.length_scale_pc is None,
+        "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
     }
     names = []
     for name in GLOBAL_PARAMETERS:
@@ -252,19 +260,168 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
     return names
 
 
-def _star_magnitude(mu, log_period, oh, zero_point, slope, slope_long, metallicity_coef, bias, solar_oh,
-                    break_log_period):
-    """Predicted magnitude of one Cepheid in one band (scalar inputs): the composition of the terms."""
-    from .terms import metallicity_offset, pl_absolute_magnitude
-    from .terms.pl import pl_absolute_magnitude_broken
+# ----------------------------------------------------------------------------- what the model fits
+def wesenheit_ratio_value(settings: ModelSettings) -> float:
+    """The (fixed) Wesenheit ratio R of a Wesenheit run: the run file's ``r``, or the law's at fixed R_V."""
+    w = settings.wesenheit
+    if w.from_law:
+        from .reddening import wesenheit_ratio
 
-    if break_log_period is None:
-        pl = pl_absolute_magnitude(log_period, zero_point, slope)
+        wl = np.array([settings.wavelength(b) for b in w.bands])
+        return float(wesenheit_ratio(settings.reddening.law, wl, settings.reddening.rv))
+    return float(w.r)
+
+
+def fitted_data(arrays: ModelArrays, settings: ModelSettings):
+    """``(obs, err, mask)``, (N, k): what the model fits (one band, the Wesenheit index, or every band).
+
+    The Wesenheit index is formed here, once, at a fixed R (:func:`ladder.terms.wesenheit_index`), so the
+    fitted data never change during a fit.
+    """
+    from .terms import wesenheit_error, wesenheit_index
+
+    mag, err, mask = (np.asarray(a) for a in (arrays.mag, arrays.mag_err, arrays.mag_mask))
+    if settings.wesenheit is None:
+        return mag.astype(float), err.astype(float), mask.astype(bool)
+    w = settings.wesenheit
+    r = wesenheit_ratio_value(settings)
+    obs = np.asarray(wesenheit_index(mag[:, 0], mag[:, 1], mag[:, 2], r), float)
+    e = np.asarray(wesenheit_error(err[:, 0], err[:, 1], err[:, 2], r, w.bands[0] == w.bands[1],
+                                   w.bands[0] == w.bands[2]), float)
+    return obs[:, None], e[:, None], np.ones((obs.size, 1), bool)
+
+
+class ModelParts(NamedTuple):
+    """Everything the numpyro models read: the linear structure and arrays, plus the nonlinear inputs."""
+
+    structure: object  # ladder.structure.Structure (static)
+    lin: object  # ladder.structure.LinearArrays (jnp arrays)
+    star_galaxy: np.ndarray  # (N,) index into layout.galaxies (per-galaxy scatter, E(B-V) means)
+    wavelength: np.ndarray  # (k,) micrometres
+    parallax: np.ndarray  # (n_par,) mas
+    parallax_err: np.ndarray
+    par_base: np.ndarray  # (n_par,) photometric modulus estimate (marginal parameterisation)
+    par_scale: np.ndarray  # (n_par,) its width
+    bias_slots: np.ndarray  # (n_bias,) slot of each bias galaxy (for photometric_bias output)
+    observed: np.ndarray  # (N, k) the fitted magnitudes as observed (NaN-free; see lin.seen)
+    log_period: np.ndarray  # (N,)
+    oh: np.ndarray  # (N,) 12 + log(O/H) (0 where metallicity is off)
+
+
+def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, init_scatter: float = 0.1):
+    """Build :class:`ModelParts`: the linear structure of :mod:`ladder.structure` for this run's data."""
+    import jax.numpy as jnp
+
+    from ._jax import enable_x64
+    from .structure import build_structure, jit
+
+    enable_x64()
+    obs, err, mask = fitted_data(arrays, settings)
+    structure, lin = build_structure(arrays, layout, settings, obs, err, mask)
+    jlin = type(lin)(*(jnp.asarray(a) for a in lin))
+    gal_slot = {g: i for i, g in enumerate(layout.distance_galaxies)}
+    bias_slots = np.array([gal_slot[layout.galaxies[g]] for g in np.asarray(arrays.bias_host)], np.int64)
+    n_par = len(layout.parallax_stars)
+    base = scale = np.zeros(n_par)
+    if n_par:
+        # The parallax stars' moduli are nonlinear parameters; the marginal sampler draws them as
+        # mu_j = base_j - scale_j u_j around their photometric modulus at the weighted-least-squares
+        # solution without them (a fixed affine change of variables; base/scale from data only).
+        from .terms.parallax import edsd_mode_pc
+
+        d = edsd_mode_pc(np.maximum(np.asarray(arrays.parallax), 1e-3), np.asarray(arrays.parallax_err),
+                         settings.parallax.length_scale_pc or 1350.0)
+        mu0 = 5.0 * np.log10(d) - 5.0
+        n = obs.shape[0]
+        ov = jnp.full(n, init_scatter**2)
+        loc, glob = jit("conditional_mean")(structure, jlin, ov, jnp.asarray(mu0))
+        r = np.asarray(jit("residuals")(structure, jlin, loc, glob, jnp.zeros(n_par)))[np.asarray(arrays.par_star)]
+        m = np.asarray(lin.mask)[np.asarray(arrays.par_star)]
+        v = np.asarray(lin.var)[np.asarray(arrays.par_star)]
+        w = np.where(m, 1.0 / v, 0.0)
+        base = (w * r).sum(axis=1) / w.sum(axis=1)
+        scale = np.sqrt(1.0 / w.sum(axis=1) + init_scatter**2)
+    return ModelParts(structure, jlin, np.asarray(arrays.star_host, np.int64), np.asarray(arrays.wavelength),
+                      np.asarray(arrays.parallax, float), np.asarray(arrays.parallax_err, float), base, scale,
+                      bias_slots, np.where(mask, obs, 0.0), np.asarray(arrays.log_period, float),
+                      np.asarray(arrays.oh, float))
+
+
+# ----------------------------------------------------------------------------- shared pieces of both models
+def _scatter_sites(parts: ModelParts, settings: ModelSettings, n_gal: int):
+    """Intrinsic scatter: global, or per galaxy s_i = s exp(spread z_i). Returns each star's s_j^2."""
+    import jax.numpy as jnp
+    import numpyro
+    import numpyro.distributions as dist
+
+    from .priors import sample_parameter
+
+    scatter = sample_parameter("scatter", settings.prior("scatter"))
+    if settings.scatter_model == "per_host":
+        spread = sample_parameter("scatter_spread", settings.prior("scatter_spread"))
+        z = numpyro.sample("host_scatter_z", dist.Normal(0.0, 1.0).expand((n_gal,)))
+        host = numpyro.deterministic("host_scatter", scatter * jnp.exp(spread * z))
+        return host[parts.star_galaxy] ** 2
+    return jnp.broadcast_to(scatter**2, parts.star_galaxy.shape)
+
+
+def _parallax_sites(parts: ModelParts, settings: ModelSettings, base, scale):
+    r"""Parallax stars: mu_j = base_j - scale_j u_j, EDSD prior on d_j (with the Jacobian), parallax likelihood.
+
+    Returns the stars' moduli (n_par,). Terms: :mod:`ladder.terms.parallax`.
+    """
+    import jax.numpy as jnp
+    import numpyro
+    import numpyro.distributions as dist
+    from numpyro.distributions import constraints
+
+    from .priors import sample_parameter
+    from .terms.parallax import log_prior_in_log_distance, parallax_log_likelihood
+
+    n_par = parts.parallax.shape[0]
+    u = numpyro.sample("parallax_star_u", dist.ImproperUniform(constraints.real, (n_par,), ()))
+    log_d = numpyro.deterministic("log_distance_pc", ((base - scale * u) / 5.0 + 1.0) * np.log(10.0))
+    if settings.parallax.length_scale_pc is None:
+        log_l = numpyro.sample("parallax_log_length_scale", dist.Uniform(np.log(100.0), np.log(1e5)))
+        length = numpyro.deterministic("parallax_length_scale", jnp.exp(log_l))
     else:
-        pl = pl_absolute_magnitude_broken(log_period, zero_point, slope, slope_long, break_log_period)
-    return mu + pl + metallicity_offset(oh, solar_oh, metallicity_coef) + bias
+        length = settings.parallax.length_scale_pc
+    # d(log d)/du = -scale ln10 / 5: the change of variables u -> log d
+    numpyro.factor("distance_prior", jnp.sum(log_prior_in_log_distance(log_d, length))
+                   + jnp.sum(jnp.log(scale)) + n_par * np.log(np.log(10.0) / 5.0))
+    offset = sample_parameter("parallax_offset", settings.prior("parallax_offset"))
+    numpyro.factor("parallax_lik", jnp.sum(parallax_log_likelihood(parts.parallax, parts.parallax_err,
+                                                                   jnp.exp(log_d), offset)))
+    return 5.0 * log_d / np.log(10.0) - 5.0
 
 
+def mu_parallax(params: dict):
+    """Parallax stars' moduli from their recorded log distances (pc)."""
+    return 5.0 * params["log_distance_pc"] / np.log(10.0) - 5.0
+
+
+# ----------------------------------------------------------------------------- the marginal model
+def marginal_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
+    r"""numpyro model of the hyperparameters with the linear block integrated out exactly
+    (:func:`ladder.structure.log_marginal`). The linear parameters are drawn afterwards, one exact draw
+    per posterior draw (:func:`ladder.structure.conditional_draw`)."""
+    import jax.numpy as jnp
+    import numpyro
+
+    from .priors import sample_parameter
+    from .structure import log_marginal
+
+    offset_var = _scatter_sites(parts, settings, len(layout.galaxies))
+    mu_par = None
+    if parts.parallax.shape[0]:
+        mu_par = _parallax_sites(parts, settings, jnp.asarray(parts.par_base), jnp.asarray(parts.par_scale))
+    sn_var = 0.0
+    if layout.has_sn:
+        sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
+    numpyro.factor("linear_marginal", log_marginal(parts.structure, parts.lin, offset_var, mu_par, sn_var))
+
+
+# ----------------------------------------------------------------------------- the full model (NUTS)
 def _photometric_modulus(resid0, var, mask, a=None):
     """Each star's modulus from its photometry alone and its variance: the weighted mean of ``resid0`` (observed
     minus the prediction without distance) over its bands, or, with an extinction vector ``a`` and >= 2 bands, the
@@ -283,223 +440,221 @@ def _photometric_modulus(resid0, var, mask, a=None):
     return jnp.where(ok, (s2 * t0 - s1 * t1) / safe, plain), jnp.where(ok, s2 / safe, plain_var)
 
 
-def _star_distribution():
-    """numpyro distribution of one star's k magnitudes (event), batched over stars: see terms.noise."""
+def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None):
+    r"""(N,) log density of each Cepheid's magnitudes given its residuals (N, k): the common-offset Normal
+    (:func:`ladder.terms.noise.common_offset_normal_logpdf`), with E(B-V) integrated out when ``extinction``
+    = ``(a, rate)`` (:func:`ladder.terms.noise.reddened_star_logpdf`), and the outlier mixture
+    (:func:`ladder.terms.outliers.mixture_logpdf`) when ``fraction`` is given. Clipped stars give 0."""
     import jax
     import jax.numpy as jnp
-    import numpyro.distributions as dist
-    from numpyro.distributions import constraints
+
+    from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf
+    from .terms.outliers import mixture_logpdf
+
+    var, mask = parts.lin.var, parts.lin.mask
+    if extinction is None:
+        dens = lambda s2: jax.vmap(common_offset_normal_logpdf)(resid, var, mask, s2)  # noqa: E731
+    else:
+        a, rate = extinction
+        dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
+            resid, var, mask, s2, a, rate)
+    core = dens(offset_var)
+    if fraction is not None:
+        core = mixture_logpdf(core, dens(offset_var + settings.outlier_width**2), fraction)
+    return jnp.where(jnp.any(mask, axis=1), core, 0.0)
+
+
+def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None,
+                    fraction=None):
+    """(N,) conditional probability of the broad (outlier) component, and (N,) posterior-mean E(B-V)
+    (zeros without extinction), at these parameters."""
+    import jax
+    import jax.numpy as jnp
 
     from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf, reddening_posterior_mean
+    from .terms.outliers import membership_probability
 
-    plain = jax.vmap(common_offset_normal_logpdf)
-    reddened = jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))
-    ebv_mean = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))
-
-    class StarMagnitudes(dist.Distribution):
-        support = constraints.real_vector
-
-        def __init__(self, loc, var, mask, offset_var, fraction=None, broad_var=None, weight=None,
-                     extinction_vector=None, ebv_rate=None):
-            self.loc, self.var, self.mask, self.offset_var = loc, var, mask, offset_var
-            self.fraction, self.broad_var, self.weight = fraction, broad_var, weight
-            self.a, self.rate = extinction_vector, ebv_rate
-            super().__init__(batch_shape=loc.shape[:1], event_shape=loc.shape[1:])
-
-        def _logpdf(self, r, s2):
-            if self.a is None:
-                return plain(r, self.var, self.mask, s2)
-            return reddened(r, self.var, self.mask, s2, self.a, self.rate)
-
-        def reddening(self, value):
-            """Posterior mean E(B-V) per star at these parameters (core component)."""
-            return ebv_mean(value - self.loc, self.var, self.mask, self.offset_var, self.a, self.rate)
-
-        def sample(self, key, sample_shape=()):
-            k1, k2 = jax.random.split(key)
-            shape = sample_shape + self.loc.shape
-            common = jax.random.normal(k1, shape[:-1] + (1,)) * jnp.sqrt(self.offset_var)[..., None]
-            return self.loc + jnp.sqrt(self.var) * jax.random.normal(k2, shape) + common
-
-        def log_prob(self, value):
-            r = value - self.loc
-            core = self._logpdf(r, self.offset_var)
-            if self.fraction is not None:
-                broad = self._logpdf(r, self.broad_var)
-                core = jnp.logaddexp(jnp.log1p(-self.fraction) + core, jnp.log(self.fraction) + broad)
-            return core if self.weight is None else core * self.weight
-
-        def membership(self, value):
-            """Posterior probability of the broad (outlier) component, per star."""
-            r = value - self.loc
-            core = jnp.log1p(-self.fraction) + self._logpdf(r, self.offset_var)
-            broad = jnp.log(self.fraction) + self._logpdf(r, self.broad_var)
-            return jnp.exp(broad - jnp.logaddexp(core, broad))
-
-    return StarMagnitudes
-
-
-def distance_ladder_model(arrays: ModelArrays, settings: ModelSettings, layout: Layout):
-    """numpyro model of the joint posterior (see the module docstring)."""
-    import jax
-    import jax.numpy as jnp
-    import numpyro
-    import numpyro.distributions as dist
-    from numpyro.distributions import constraints
-
-    from .priors import sample_parameter
-    from .terms import wesenheit_error, wesenheit_index
-
-    n_gal, n_bands = len(layout.galaxies), len(layout.bands)
-    band_shape = (n_bands,) if settings.multiband else ()
-    mu = sample_parameter("mu", settings.prior("mu"), (layout.n_mu,))
-    zero_point = sample_parameter("pl_zero_point", settings.prior("pl_zero_point"), band_shape)
-    slope = sample_parameter("pl_slope", settings.prior("pl_slope"), band_shape)
-    slope_long = sample_parameter("pl_slope_long", settings.prior("pl_slope_long"), band_shape) \
-        if settings.pl_break else slope
-    gamma = sample_parameter("metallicity_coef", settings.prior("metallicity_coef")) if settings.metallicity \
-        else jnp.zeros(())
-    scatter = sample_parameter("scatter", settings.prior("scatter"))
-    if settings.scatter_model == "per_host":
-        spread = sample_parameter("scatter_spread", settings.prior("scatter_spread"))
-        z = numpyro.sample("host_scatter_z", dist.Normal(0.0, 1.0).expand((n_gal,)))
-        host_scatter = numpyro.deterministic("host_scatter", scatter * jnp.exp(spread * z))
-        star_scatter = host_scatter[arrays.star_host]
+    var, mask = parts.lin.var, parts.lin.mask
+    n = resid.shape[0]
+    ebv = jnp.zeros(n)
+    if extinction is not None:
+        a, rate = extinction
+        ebv = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(resid, var, mask, offset_var, a, rate)
+    if fraction is None:
+        return jnp.zeros(n), ebv
+    if extinction is None:
+        dens = lambda s2: jax.vmap(common_offset_normal_logpdf)(resid, var, mask, s2)  # noqa: E731
     else:
-        star_scatter = jnp.broadcast_to(scatter, arrays.log_period.shape)
+        dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
+            resid, var, mask, s2, a, rate)
+    q = membership_probability(dens(offset_var), dens(offset_var + settings.outlier_width**2), fraction)
+    return q, ebv
 
-    bias = jnp.zeros(n_gal)
-    if arrays.bias_host.shape[0]:
-        bz = numpyro.sample("photometric_bias_z", dist.Normal(0.0, 1.0).expand((arrays.bias_host.shape[0],)))
-        b = numpyro.deterministic("photometric_bias", arrays.bias_mean + arrays.bias_err * bz)
-        bias = bias.at[arrays.bias_host].set(b)
-    star_bias = bias[arrays.star_host]
 
-    # Reddening: R_V, the law at the bands' wavelengths.
-    if settings.needs_law:
+def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0):
+    """Pointwise log densities of the anchors' geometric moduli and of the supernovae at these parameters:
+    ``(anchors (n_anchor,), supernovae (n_sn,))``; the rows of :mod:`ladder.structure`."""
+    import jax.numpy as jnp
+    from jax.scipy.stats import norm
+
+    lin, G = parts.lin, parts.structure.n_galaxies
+    a = norm.logpdf(lin.anchor_y, theta_local[lin.anchor_slot, 0], jnp.sqrt(lin.anchor_var)) \
+        if lin.anchor_slot.shape[0] else jnp.zeros(0)
+    if lin.sn_slot.shape[0]:
+        mu = jnp.concatenate([theta_local[:, 0], jnp.zeros(1)])[lin.sn_slot]
+        loc = jnp.where(lin.sn_slot < G, mu, 0.0) + lin.sn_design @ theta_global
+        sn = norm.logpdf(lin.sn_y, loc, jnp.sqrt(lin.sn_var + sn_extra_var))
+    else:
+        sn = jnp.zeros(0)
+    return a, sn
+
+
+def nonlinear_inputs(parts: ModelParts, settings: ModelSettings, params: dict):
+    """Extinction ``(a, rate)`` and outlier fraction at ``params`` (None where the model has none)."""
+    import jax.numpy as jnp
+
+    extinction = fraction = None
+    if settings.multiband:
         from .reddening import extinction_ratio
 
         rd = settings.reddening
-        r_v = numpyro.sample("r_v", dist.TruncatedNormal(rd.rv, rd.rv_err, low=1.0)) if rd.free else jnp.asarray(rd.rv)
-        ratio = extinction_ratio(rd.law, arrays.wavelength, r_v)  # (k_in,) A_B / A_V
-
-    # The observed magnitudes and their errors as the model sees them.
-    if settings.wesenheit is not None:
-        w = settings.wesenheit
-        if w.from_law:
-            r = numpyro.deterministic("wesenheit_r", ratio[0] / (ratio[1] - ratio[2])) if rd.free \
-                else ratio[0] / (ratio[1] - ratio[2])
-        else:
-            spec = PriorSpec("normal", (("loc", w.r), ("scale", w.r_err))) if w.free else \
-                PriorSpec("fixed", (("value", w.r),))
-            r = sample_parameter("wesenheit_r", spec)
-        m, e = arrays.mag, arrays.mag_err
-        obs = wesenheit_index(m[:, 0], m[:, 1], m[:, 2], r)[:, None]
-        err = wesenheit_error(e[:, 0], e[:, 1], e[:, 2], r, w.bands[0] == w.bands[1], w.bands[0] == w.bands[2])
-        err, mask = err[:, None], jnp.ones_like(obs, dtype=bool)
-    else:
-        obs, err, mask = arrays.mag, arrays.mag_err, arrays.mag_mask
-
-    a_vec = rate = None
-    if settings.multiband:
-        # E(B-V) of each star is integrated out exactly (terms.noise.reddened_star_logpdf).
-        ebv_mean = sample_parameter("ebv_mean", settings.prior("ebv_mean"), (n_gal,))
-        a_vec, rate = ratio * r_v, 1.0 / ebv_mean[arrays.star_host]
-
-    break_x = None if not settings.pl_break else float(np.log10(settings.pl_break_period))
-    zp_b = jnp.broadcast_to(zero_point, (n_bands,))
-    sl_b = jnp.broadcast_to(slope, (n_bands,))
-    sll_b = jnp.broadcast_to(slope_long, (n_bands,))
-    per_band = jax.vmap(_star_magnitude, in_axes=(None, None, None, 0, 0, 0, None, None, None, None))
-    per_star = jax.vmap(per_band, in_axes=(0, 0, 0, None, None, None, None, 0, None, None))
-    pred0 = per_star(jnp.zeros(arrays.log_period.shape), arrays.log_period, arrays.oh, zp_b, sl_b, sll_b, gamma,
-                     star_bias, settings.solar_oh, break_x)  # everything but the distance and the reddening
-
-    # Distances: one modulus per galaxy, plus one per parallax star (latent distance, EDSD prior).
-    mu_all = mu
-    n_par = len(layout.parallax_stars)
-    if n_par:
-        from .terms.parallax import log_prior_in_log_distance
-
-        # Each parallax star's modulus is set far better by its photometry than by its parallax, and that
-        # photometric width scales with the scatter: a funnel for the sampler. So sample u with
-        # mu_j = base_j - c_j u_j (base_j, c_j: the photometric estimate and its width), a linear change of
-        # variables with log-Jacobian log c_j, and put the EDSD prior on d_j = 10^(mu_j/5 + 1) pc.
-        par_rows = arrays.par_star
-        base, var_base = _photometric_modulus(obs[par_rows] - pred0[par_rows], err[par_rows] ** 2, mask[par_rows],
-                                              a_vec)
-        c = jnp.sqrt(var_base + star_scatter[par_rows] ** 2)
-        u = numpyro.sample("parallax_star_u", dist.ImproperUniform(constraints.real, (n_par,), ()))
-        log_d = numpyro.deterministic("log_distance_pc", ((base - c * u) / 5.0 + 1.0) * np.log(10.0))
-        mu_par = 5.0 * log_d / np.log(10.0) - 5.0  # via the recorded site, so a substituted distance is used
-        if settings.parallax.length_scale_pc is None:
-            log_l = numpyro.sample("parallax_log_length_scale", dist.Uniform(np.log(100.0), np.log(1e5)))
-            length = numpyro.deterministic("parallax_length_scale", jnp.exp(log_l))
-        else:
-            length = settings.parallax.length_scale_pc
-        numpyro.factor("distance_prior", jnp.sum(log_prior_in_log_distance(log_d, length))
-                       + jnp.sum(jnp.log(c)) + n_par * np.log(np.log(10.0) / 5.0))
-        d_pc = jnp.exp(log_d)
-        offset = sample_parameter("parallax_offset", settings.prior("parallax_offset"))
-        with numpyro.plate("parallax_star", n_par):
-            numpyro.sample("parallax_obs", dist.Normal(1000.0 / d_pc + offset, arrays.parallax_err),
-                           obs=arrays.parallax)
-        mu_all = jnp.concatenate([mu, mu_par])
-    star_mu = mu_all[arrays.star_mu_index]
-    pred = pred0 + star_mu[:, None]
-
-    Star = _star_distribution()
-    var = err**2
-    offset_var = star_scatter**2
-    fraction = broad_var = None
+        r_v = params["r_v"] if rd.free else jnp.asarray(rd.rv)
+        ebv_mean = params["ebv_mean"] if "ebv_mean" in params else \
+            jnp.full(int(parts.star_galaxy.max()) + 1, settings.prior("ebv_mean").get("value"))
+        extinction = (extinction_ratio(rd.law, jnp.asarray(parts.wavelength), r_v) * r_v,
+                      1.0 / ebv_mean[parts.star_galaxy])
     if settings.outliers == "mixture":
-        fraction = sample_parameter("outlier_fraction", settings.prior("outlier_fraction"))
-        broad_var = offset_var + settings.outlier_width**2
-    d = Star(pred, var, mask, offset_var, fraction, broad_var,
-             weight=arrays.star_weight if settings.outliers == "clip" else None, extinction_vector=a_vec, ebv_rate=rate)
-    with numpyro.plate("star", arrays.log_period.shape[0]):
-        numpyro.sample("mag_obs", d, obs=obs)
-    if fraction is not None:
-        numpyro.deterministic("outlier_prob", d.membership(obs))
-    if a_vec is not None:
-        numpyro.deterministic("ebv", d.reddening(obs))
+        fraction = params["outlier_fraction"] if "outlier_fraction" in params else \
+            jnp.asarray(settings.prior("outlier_fraction").get("value"))
+    return extinction, fraction
 
-    if arrays.anchor_slot.shape[0]:
-        with numpyro.plate("anchor", arrays.anchor_slot.shape[0]):
-            numpyro.sample("mu_geo_obs", dist.Normal(mu[arrays.anchor_slot], arrays.mu_geo_err), obs=arrays.mu_geo)
 
+def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
+    """numpyro model of the joint posterior with every parameter sampled (see the module docstring).
+
+    The prediction is :func:`ladder.structure.residuals`; the per-star density :func:`star_logpdf`.
+    """
+    import jax.numpy as jnp
+    import numpyro
+    import numpyro.distributions as dist
+
+    from .priors import sample_parameter
+    from .structure import pack, residuals
+
+    st, lin = parts.structure, parts.lin
+    n_gal = len(layout.galaxies)
+    band_shape = (len(layout.bands),) if settings.multiband else ()
+    mu = sample_parameter("mu", settings.prior("mu"), (layout.n_mu,))
+    values = {}
+    for name in dict.fromkeys(n for n, _ in st.columns):
+        shape = band_shape if name.startswith("pl_") else ()
+        values[name] = sample_parameter(name, settings.prior(name), shape)
+    theta_global = pack(st, values)
+    local = [mu]
+    if st.n_local == 2:
+        bias = jnp.zeros(layout.n_mu)
+        n_b = parts.bias_slots.shape[0]
+        if n_b:
+            mean, prec = lin.prior_mean_local[parts.bias_slots, 1], lin.prior_prec_local[parts.bias_slots, 1]
+            bz = numpyro.sample("photometric_bias_z", dist.Normal(0.0, 1.0).expand((n_b,)))
+            b = numpyro.deterministic("photometric_bias", mean + bz / jnp.sqrt(prec))
+            bias = bias.at[parts.bias_slots].set(b)
+        local.append(bias)
+    theta_local = jnp.stack(local, axis=1)
+    offset_var = _scatter_sites(parts, settings, n_gal)
+
+    params = {}
+    if settings.needs_law and settings.reddening.free:
+        rd = settings.reddening
+        params["r_v"] = numpyro.sample("r_v", dist.TruncatedNormal(rd.rv, rd.rv_err, low=1.0))
+    if settings.multiband and settings.prior("ebv_mean").dist != "fixed":
+        params["ebv_mean"] = sample_parameter("ebv_mean", settings.prior("ebv_mean"), (n_gal,))
+    if settings.outliers == "mixture" and settings.prior("outlier_fraction").dist != "fixed":
+        params["outlier_fraction"] = sample_parameter("outlier_fraction", settings.prior("outlier_fraction"))
+    extinction, fraction = nonlinear_inputs(parts, settings, params)
+
+    mu_par = None
+    n_par = parts.parallax.shape[0]
+    if n_par:
+        # Each parallax star's modulus is set far better by its photometry than by its parallax, and that
+        # width scales with the scatter: sample it relative to its photometric modulus at the current
+        # parameters (a linear change of variables; see _parallax_sites).
+        r0 = residuals(st, lin, theta_local, theta_global, jnp.zeros(n_par))[lin.par_star]
+        base, var_base = _photometric_modulus(r0, lin.var[lin.par_star], lin.mask[lin.par_star],
+                                              None if extinction is None else extinction[0])
+        mu_par = _parallax_sites(parts, settings, base, jnp.sqrt(var_base + offset_var[lin.par_star]))
+    resid = residuals(st, lin, theta_local, theta_global, mu_par)
+    numpyro.factor("cepheids", jnp.sum(star_logpdf(parts, settings, resid, offset_var, extinction, fraction)))
+    sn_var = 0.0
     if layout.has_sn:
-        from .terms.hubble import calibrator_magnitude, hubble_flow_magnitude, sn_magnitude_sd
+        sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
+    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var)
+    numpyro.factor("anchors_and_supernovae", jnp.sum(a_ll) + jnp.sum(sn_ll))
 
-        m_sn = sample_parameter("sn_abs_mag", settings.prior("sn_abs_mag"))
-        s_sn = sample_parameter("sn_scatter", settings.prior("sn_scatter"))
-        is_flow = arrays.sn_slot < 0
-        cal = calibrator_magnitude(mu[jnp.maximum(arrays.sn_slot, 0)], m_sn)
-        if layout.has_flow:
-            h0 = sample_parameter("h0", settings.prior("h0"))
-            s = settings.supernovae
-            flow = hubble_flow_magnitude(arrays.sn_z, h0, m_sn, s.q0, s.j0)
-            loc = jnp.where(is_flow, flow, cal)
-        else:
-            loc = cal
-        sd = sn_magnitude_sd(arrays.sn_err, arrays.sn_z, settings.supernovae.sigma_v, s_sn, is_flow)
-        with numpyro.plate("sn", arrays.sn_slot.shape[0]):
-            numpyro.sample("sn_obs", dist.Normal(loc, sd), obs=arrays.sn_mag)
+
+# ----------------------------------------------------------------------------- posterior values -> pieces
+def theta_from_params(parts: ModelParts, params: dict):
+    """Output-named parameter values -> (theta_local (G, L), theta_global (p,))."""
+    import jax.numpy as jnp
+
+    from .structure import pack
+
+    st = parts.structure
+    values = {n: params[n] for n, _ in st.columns}
+    local = [jnp.asarray(params["mu"])]
+    if st.n_local == 2:
+        bias = jnp.zeros(st.n_galaxies)
+        if parts.bias_slots.shape[0]:
+            bias = bias.at[parts.bias_slots].set(params["photometric_bias"])
+        local.append(bias)
+    return jnp.stack(local, axis=1), pack(st, values)
+
+
+def offset_var_from_params(parts: ModelParts, settings: ModelSettings, params: dict):
+    """Each star's intrinsic-offset variance s_j^2 at ``params``."""
+    import jax.numpy as jnp
+
+    if "host_scatter" in params:
+        return params["host_scatter"][parts.star_galaxy] ** 2
+    s = params["scatter"] if "scatter" in params else jnp.asarray(settings.prior("scatter").get("value"))
+    return jnp.broadcast_to(s**2, parts.star_galaxy.shape)
+
+
+def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
+    """At one posterior draw (output-named ``params``): per-star log densities (N,), residuals (N, k), the
+    outlier membership (N,), E(B-V) (N,), and the anchors' and supernovae's log densities."""
+    import jax.numpy as jnp
+
+    from .structure import residuals
+
+    theta_local, theta_global = theta_from_params(parts, params)
+    offset_var = offset_var_from_params(parts, settings, params)
+    mu_par = mu_parallax(params) if parts.parallax.shape[0] else None
+    resid = residuals(parts.structure, parts.lin, theta_local, theta_global, mu_par)
+    extinction, fraction = nonlinear_inputs(parts, settings, params)
+    logp = star_logpdf(parts, settings, resid, offset_var, extinction, fraction)
+    q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction)
+    sn_var = params["sn_scatter"] ** 2 if "sn_scatter" in params else \
+        (jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2 if parts.lin.sn_slot.shape[0] else 0.0)
+    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var)
+    clean = resid if extinction is None else resid - ebv[:, None] * extinction[0][None, :]
+    w = jnp.where(parts.lin.seen, 1.0 / parts.lin.var, 0.0)
+    star_resid = jnp.sum(w * clean, axis=1) / jnp.sum(w, axis=1)
+    return {"cepheids": logp, "resid": resid, "star_resid": star_resid, "outlier_prob": q, "ebv": ebv,
+            "anchors": a_ll, "supernovae": sn_ll}
 
 
 def star_residuals(params: dict, arrays: ModelArrays, layout: Layout, settings: ModelSettings) -> np.ndarray:
     """Each star's residual (observed minus predicted, mag) at the parameter values ``params``.
 
-    For several bands, the inverse-variance weighted mean over the bands the star was observed in.
+    For several bands, the inverse-variance weighted mean over the bands the star was observed in, after
+    removing its conditional posterior-mean extinction. From :func:`pointwise`, i.e. the model's own
+    prediction (:func:`ladder.structure.residuals`).
     """
     import jax.numpy as jnp
-    from numpyro import handlers
 
-    model = handlers.substitute(handlers.seed(distance_ladder_model, 0), data={k: jnp.asarray(v) for k, v in params.items()})
-    site = handlers.trace(model).get_trace(arrays, settings, layout)["mag_obs"]
-    d = site["fn"]
-    r = np.asarray(site["value"]) - np.asarray(d.loc)
-    if d.a is not None:  # remove each star's posterior-mean reddening
-        r = r - np.asarray(d.reddening(site["value"]))[:, None] * np.asarray(d.a)[None, :]
-    w = np.where(np.asarray(d.mask), 1.0 / np.asarray(d.var), 0.0)
-    return (w * r).sum(axis=1) / w.sum(axis=1)
+    parts = model_parts(arrays, layout, settings)
+    p = {k: jnp.asarray(v) for k, v in params.items()}
+    for name, value in parts.structure.fixed:
+        p.setdefault(name, jnp.asarray(value))
+    return np.asarray(pointwise(parts, settings, p)["star_resid"])

@@ -1,39 +1,117 @@
-"""NUTS on the CPU -> ArviZ InferenceData.
+"""Sampling the posterior on the CPU -> ArviZ InferenceData, by one of three interchangeable methods.
 
-The No-U-Turn Sampler (Hoffman & Gelman 2014, JMLR 15, 1593) as implemented in numpyro
-(Phan et al. 2019, arXiv:1912.11554), with a dense mass matrix adapted during warm-up, started
-from the weighted-least-squares solution of the model's linear part.
+* ``marginal`` (default wherever it applies): the linear block of :mod:`ladder.structure` is integrated out
+  exactly; the No-U-Turn Sampler (Hoffman & Gelman 2014, JMLR 15, 1593; numpyro, Phan et al. 2019,
+  arXiv:1912.11554) explores the few hyperparameters, and every posterior draw gets one exact draw of the
+  linear block from its conditional Gaussian.
+* ``nuts``: every parameter sampled (needed for the outlier mixture and multiband extinction), dense mass
+  matrix over the globals and galaxy moduli, diagonal over per-star latents.
+* ``gls``: hyperparameters fixed, the posterior is Gaussian: exact independent draws (generalized least
+  squares, Aitken 1935, Proc. R. Soc. Edinburgh 55, 42).
+
+After sampling, one pass over the draws computes the pointwise log-likelihoods (per star, per galaxy or
+none) and the per-star posterior means (outlier probability, E(B-V), residual) as running sums, so no
+per-star quantity is stored per draw.
 """
 
 from __future__ import annotations
 
 import sys
 import time
+from dataclasses import dataclass, field
 
 import numpy as np
 
-from .config import ModelSettings, SamplerSettings
-from .linear import linear_system, weighted_least_squares
-from .model import DERIVED_PER_STAR, Layout, ModelArrays, distance_ladder_model
+from .config import ModelSettings, OutputSettings, SamplerSettings
+from .model import Layout, ModelArrays, ModelParts
 
-__all__ = ["run_nuts", "initial_values", "DIMS"]
+__all__ = ["SampleRun", "run_sampler", "choose_method", "initial_values", "DIMS", "AUX_SITES"]
 
 _EXTRA_FIELDS = ("diverging", "energy", "num_steps", "accept_prob", "potential_energy")
 
-#: Dimension of each vector-valued posterior variable.
+#: Dimension of each vector-valued posterior variable ("galaxy" is every galaxy of the hosts table; ``mu``
+#: is over the galaxies with one modulus, which is "galaxy" too unless the run has a parallax group).
 DIMS = {
-    "mu": "host", "pl_zero_point": "band", "pl_slope": "band", "pl_slope_long": "band",
+    "pl_zero_point": "band", "pl_slope": "band", "pl_slope_long": "band",
     "host_scatter": "galaxy", "host_scatter_z": "galaxy", "ebv_mean": "galaxy",
-    "ebv": "star", "ebv_unit": "star", "outlier_prob": "star",
-    "log_distance_pc": "parallax_star", "parallax_star_u": "parallax_star", "photometric_bias": "bias_galaxy", "photometric_bias_z": "bias_galaxy",
+    "log_distance_pc": "parallax_star", "parallax_star_u": "parallax_star",
+    "photometric_bias": "bias_galaxy", "photometric_bias_z": "bias_galaxy",
 }
+#: Sampler coordinates that are not model parameters: kept in the ``sampler_aux`` group, out of ``posterior``.
+AUX_SITES = ("host_scatter_z", "photometric_bias_z", "parallax_star_u", "parallax_log_length_scale")
+#: Per-star and per-galaxy latent vectors: many, nearly independent, standardised; a dense mass matrix over
+#: them cannot be estimated in a short warm-up, so they get a diagonal one.
+_DIAGONAL_SITES = ("parallax_star_u", "host_scatter_z", "photometric_bias_z", "ebv_mean")
+#: ``log_likelihood = "auto"`` keeps per-star values up to this many (stars x draws).
+AUTO_STAR_LIMIT = 20_000_000
+
+
+@dataclass
+class SampleRun:
+    """What a sampler run gives: the InferenceData, per-star posterior means, timing and what was done."""
+
+    idata: object
+    derived: dict
+    wall_seconds: float
+    chain_method: str
+    method: str
+    notes: list = field(default_factory=list)
+    parts: object = None
+
+
+def mu_dim(layout: Layout) -> str:
+    """Dimension name of ``mu``: "galaxy" when every galaxy has one modulus, else "distance_galaxy"."""
+    return "galaxy" if layout.n_mu == len(layout.galaxies) else "distance_galaxy"
 
 
 def _coords(layout: Layout) -> dict[str, list[str]]:
-    return {"host": list(layout.distance_galaxies), "band": list(layout.bands), "galaxy": list(layout.galaxies),
-            "star": list(layout.stars), "parallax_star": list(layout.parallax_stars),
+    return {"galaxy": list(layout.galaxies), "distance_galaxy": list(layout.distance_galaxies),
+            "band": list(layout.bands), "star": list(layout.stars), "parallax_star": list(layout.parallax_stars),
             "bias_galaxy": list(layout.bias_galaxies), "anchor": list(layout.anchors),
-            "sn": list(layout.supernovae)}
+            "sn": list(layout.supernovae), "fitted_band": list(layout.input_bands)
+            if len(layout.input_bands) > 1 and layout.bands == layout.input_bands else None}
+
+
+def choose_method(settings: ModelSettings, layout: Layout, sampler: SamplerSettings) -> tuple[str, str]:
+    """The method to use and why. Raises :class:`~ladder.errors.InputError` when ``method`` cannot apply."""
+    from .errors import InputError
+    from .structure import linear_gaussian_obstacles
+
+    why = linear_gaussian_obstacles(settings, layout.has_flow)
+    asked = sampler.method
+    if asked == "nuts":
+        return "nuts", "method = \"nuts\" in the run file"
+    if asked in ("marginal", "gls") and why:
+        raise InputError(f"method = \"{asked}\" needs a model that is linear-Gaussian given its hyperparameters; "
+                         f"this one is not because of {'; '.join(why)} (use method = \"nuts\" or \"auto\")",
+                         key="sampler.method")
+    sampled = _hyperparameters(settings, layout)
+    if asked == "gls":
+        if sampled:
+            raise InputError("method = \"gls\" is the closed form for fixed hyperparameters; these are not fixed: "
+                             + "; ".join(sampled), key="sampler.method")
+        return "gls", "method = \"gls\" in the run file"
+    if asked == "marginal":
+        return "marginal", "method = \"marginal\" in the run file"
+    if why:
+        return "nuts", "auto: not linear-Gaussian given the hyperparameters (" + "; ".join(why) + ")"
+    if not sampled:
+        return "gls", "auto: linear-Gaussian with every hyperparameter fixed"
+    return "marginal", "auto: linear-Gaussian given the hyperparameters"
+
+
+def _hyperparameters(settings: ModelSettings, layout: Layout) -> list[str]:
+    """The nonlinear parameters a marginal run samples (empty: the posterior is Gaussian)."""
+    sampled = []
+    if settings.prior("scatter").dist != "fixed":
+        sampled.append("[model.priors] scatter (give { dist = \"fixed\", value = ... })")
+    if settings.scatter_model == "per_host":
+        sampled.append("[model] scatter = \"per_host\"")
+    if layout.parallax_stars:
+        sampled.append("parallax stars (their distances are nonlinear parameters)")
+    if layout.has_sn and settings.prior("sn_scatter").dist != "fixed":
+        sampled.append("[model.priors] sn_scatter (give { dist = \"fixed\", value = ... })")
+    return sampled
 
 
 def _inside(spec, value):
@@ -46,57 +124,66 @@ def _inside(spec, value):
     return value
 
 
-def initial_values(arrays: ModelArrays, layout: Layout, settings: ModelSettings) -> dict[str, np.ndarray]:
-    """A starting point: weighted least squares of the linear part, the EDSD mode for parallax distances,
-    the SN zero point and H0 from the calibrators and the flow, and neutral values for the rest."""
-    init: dict[str, np.ndarray] = {}
-    mu_par = None
-    if layout.parallax_stars:
-        from .terms.parallax import edsd_mode_pc
+def _scatter_guess(parts: ModelParts) -> float:
+    """A robust guess of the intrinsic scatter from the weighted-least-squares residuals (median absolute
+    normalised residual = 0.6745, as for a unit normal)."""
+    import jax.numpy as jnp
 
-        par = np.asarray(arrays.parallax)
-        length = settings.parallax.length_scale_pc or 1350.0
-        d = edsd_mode_pc(np.maximum(par, 1e-3), np.asarray(arrays.parallax_err), length)
-        init["parallax_star_u"] = np.zeros(len(d))  # the photometric estimate (see the model)
-        init["parallax_offset"] = 0.0
-        if settings.parallax.length_scale_pc is None:
-            init["parallax_log_length_scale"] = float(np.clip(np.log(np.mean(d) / 3.0), np.log(150.0), np.log(9e4)))
-        mu_par = 5 * np.log10(d) - 5
-    system = linear_system(arrays, layout, settings, scatter=0.1, mu_parallax=mu_par)
-    theta, _ = weighted_least_squares(system.X, system.y, system.sd)
-    t = dict(zip(system.names, theta))
-    init["mu"] = np.array([t[f"mu[{g}]"] for g in layout.distance_galaxies])
-    for name in ("pl_zero_point", "pl_slope") + (("pl_slope_long",) if settings.pl_break else ()):
-        v = np.array([t[f"{name}[{b}]"] for b in layout.bands])
-        init[name] = v if settings.multiband else v[0]
-    if settings.metallicity:
-        init["metallicity_coef"] = t["metallicity_coef"]
-    init["scatter"] = 0.1
+    from .structure import jit
+
+    st, lin = parts.structure, parts.lin
+    n = lin.y0.shape[0]
+    mu0 = jnp.asarray(parts.par_base) if parts.parallax.shape[0] else None
+    loc, glob = jit("conditional_mean")(st, lin, jnp.full(n, 0.01), mu0)
+    r = np.asarray(jit("residuals")(st, lin, loc, glob, mu0))
+    m = np.asarray(lin.mask)
+    e = np.sqrt(np.asarray(lin.var))
+    rr, ee = np.abs(r[m]), e[m]
+    lo, hi = 0.0, float(np.std(rr)) + 1e-6
+    for _ in range(50):
+        s = 0.5 * (lo + hi)
+        lo, hi = (s, hi) if np.median(rr / np.sqrt(ee**2 + s**2)) > 0.6745 else (lo, s)
+    return float(np.clip(0.5 * (lo + hi), 0.02, 1.0))
+
+
+def initial_values(parts: ModelParts, layout: Layout, settings: ModelSettings, method: str) -> dict:
+    """A starting point: the conditional mean of the linear block at a scatter guessed from the residuals,
+    the photometric estimate for parallax distances, neutral values for the rest."""
+    import jax.numpy as jnp
+
+    from .structure import jit, unpack
+
+    init: dict[str, np.ndarray] = {}
+    s0 = _scatter_guess(parts)
+    init["scatter"] = s0
     if settings.scatter_model == "per_host":
         init["scatter_spread"] = 0.1
         init["host_scatter_z"] = np.zeros(len(layout.galaxies))
-    if settings.wesenheit is not None and settings.wesenheit.free:
-        init["wesenheit_r"] = settings.wesenheit.r
-    if settings.needs_law and settings.reddening.free:
-        init["r_v"] = settings.reddening.rv
-    if settings.multiband:
-        init["ebv_mean"] = np.full(len(layout.galaxies), 0.1)
-    if settings.outliers == "mixture":
-        init["outlier_fraction"] = 0.05
-    if arrays.bias_host.shape[0]:
-        init["photometric_bias_z"] = np.zeros(arrays.bias_host.shape[0])
+    if layout.parallax_stars:
+        init["parallax_star_u"] = np.zeros(len(layout.parallax_stars))
+        init["parallax_offset"] = 0.0
+        if settings.parallax.length_scale_pc is None:
+            d = 10 ** (np.asarray(parts.par_base) / 5 + 1)
+            init["parallax_log_length_scale"] = float(np.clip(np.log(np.mean(d) / 3.0), np.log(150.0), np.log(9e4)))
     if layout.has_sn:
-        slot = np.asarray(arrays.sn_slot)
-        cal = slot >= 0
-        m_sn = float(np.mean(arrays.sn_mag[cal] - init["mu"][slot[cal]]))
-        init["sn_abs_mag"], init["sn_scatter"] = m_sn, 0.1
-        if layout.has_flow:
-            from .cosmography import distance_modulus
-
-            s = settings.supernovae
-            z = np.asarray(arrays.sn_z)[~cal]
-            mu1 = np.asarray(distance_modulus(z, 1.0, s.q0, s.j0))  # modulus at H0 = 1
-            init["h0"] = float(10 ** (np.mean(mu1 + m_sn - arrays.sn_mag[~cal]) / 5.0))
+        init["sn_scatter"] = 0.1
+    if method == "nuts":
+        n = parts.lin.y0.shape[0]
+        mu0 = jnp.asarray(parts.par_base) if parts.parallax.shape[0] else None
+        loc, glob = jit("conditional_mean")(parts.structure, parts.lin, jnp.full(n, s0**2), mu0)
+        init["mu"] = np.asarray(loc[:, 0])
+        for k, v in unpack(parts.structure, glob).items():
+            if k in dict(parts.structure.fixed):
+                continue
+            init[k] = np.asarray(v)
+        if parts.bias_slots.shape[0]:
+            init["photometric_bias_z"] = np.zeros(parts.bias_slots.shape[0])
+        if settings.needs_law and settings.reddening.free:
+            init["r_v"] = settings.reddening.rv
+        if settings.multiband:
+            init["ebv_mean"] = np.full(len(layout.galaxies), 0.1)
+        if settings.outliers == "mixture":
+            init["outlier_fraction"] = 0.05
     for name, spec in settings.priors:
         if name in init:
             if spec.dist == "fixed":
@@ -106,14 +193,11 @@ def initial_values(arrays: ModelArrays, layout: Layout, settings: ModelSettings)
     return {k: np.asarray(v, float) for k, v in init.items()}
 
 
-#: Per-star and per-galaxy latent vectors: many, nearly independent, standardised; a dense mass matrix over
-#: them cannot be estimated in a short warm-up, so they get a diagonal one.
-_DIAGONAL_SITES = ("parallax_star_u", "host_scatter_z", "photometric_bias_z", "ebv_mean")
-
-
 def _dense_block(init: dict) -> list[tuple[str, ...]] | bool:
     """Sites that share a dense mass matrix: the globals and the galaxy moduli (strongly correlated)."""
     block = tuple(k for k in init if k not in _DIAGONAL_SITES)
+    if not block:
+        return False
     return [block] if len(block) < len(init) else True
 
 
@@ -125,101 +209,266 @@ def _chain_method(requested: str, chains: int) -> str:
     return "parallel" if chains > 1 and cpu_devices() >= chains else "sequential"
 
 
-def run_nuts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sampler: SamplerSettings):
-    """Sample the posterior; return ``(InferenceData, derived, wall_seconds, chain_method)``.
+def _quick_gate(samples: dict, limits) -> list[str]:
+    """R-hat / bulk-ESS problems of the sampled sites (group_by_chain arrays)."""
+    import arviz as az
 
-    ``derived`` holds per-star deterministic quantities (posterior means), e.g. ``outlier_prob``.
-    A pure function of its inputs: the seed is ``sampler.seed`` and nothing else is random.
-    """
+    ds = az.convert_to_dataset({k: np.asarray(v) for k, v in samples.items()})
+    rhat = az.rhat(ds, method="rank")
+    ess = az.ess(ds, method="bulk")
+    worst_r = max((float(np.nanmax(np.asarray(v))) for v in rhat.data_vars.values()), default=1.0)
+    worst_e = min((float(np.nanmin(np.asarray(v))) for v in ess.data_vars.values()), default=np.inf)
+    out = []
+    if not worst_r <= limits.max_r_hat:
+        out.append(f"R-hat {worst_r:.4f}")
+    if not worst_e >= limits.min_ess_bulk:
+        out.append(f"bulk ESS {worst_e:.0f}")
+    return out
+
+
+def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
+    """NUTS with warm-up, then extensions of the same chains (no new warm-up) while R-hat or ESS fail, up to
+    ``sampler.draw_limit`` draws per chain. Returns (samples by chain, extra fields, chain method, notes)."""
     import jax
     import jax.numpy as jnp
     from numpyro.infer import MCMC, NUTS, init_to_value
 
+    kernel = NUTS(model, target_accept_prob=sampler.target_accept, max_tree_depth=sampler.max_tree_depth,
+                  dense_mass=_dense_block(init) if sampler.dense_mass else False,
+                  init_strategy=init_to_value(values={k: jnp.asarray(v) for k, v in init.items()}))
+    method = _chain_method(sampler.chain_method, sampler.chains)
+    mcmc = MCMC(kernel, num_warmup=sampler.warmup, num_samples=sampler.draws, num_chains=sampler.chains,
+                chain_method=method, progress_bar=bool(sampler.progress and sys.stderr.isatty()))
+    mcmc.run(jax.random.PRNGKey(sampler.seed), parts, settings, layout, extra_fields=_EXTRA_FIELDS)
+    samples = [mcmc.get_samples(group_by_chain=True)]
+    extra = [mcmc.get_extra_fields(group_by_chain=True)]
+    notes, total = [], sampler.draws
+    while True:
+        joined = {k: np.concatenate([np.asarray(s[k]) for s in samples], axis=1) for k in samples[0]}
+        problems = _quick_gate(joined, limits) if sampler.chains > 1 else []
+        step = min(sampler.draws, sampler.draw_limit - total)
+        if not problems or step <= 0:
+            break
+        msg = (f"{', '.join(problems)} after {total} draws per chain: extending the same chains by {step} draws "
+               f"(no new warm-up; limit max_draws = {sampler.draw_limit})")
+        say(f"ladder: {msg}")
+        notes.append(msg)
+        mcmc.post_warmup_state = mcmc.last_state
+        mcmc.num_samples = step
+        mcmc._set_collection_params()
+        mcmc.run(mcmc.post_warmup_state.rng_key, parts, settings, layout, extra_fields=_EXTRA_FIELDS)
+        samples.append(mcmc.get_samples(group_by_chain=True))
+        extra.append(mcmc.get_extra_fields(group_by_chain=True))
+        total += step
+    joined_extra = {k: np.concatenate([np.asarray(e[k]) for e in extra], axis=1) for k in extra[0]}
+    return joined, joined_extra, method, notes
+
+
+def _say(msg: str) -> None:
+    print(msg, file=sys.stderr, flush=True)
+
+
+def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sampler: SamplerSettings,
+                limits=None, output: OutputSettings = OutputSettings(), say=_say) -> SampleRun:
+    """Sample the posterior by the method :func:`choose_method` picks; a pure function of its inputs (the seed
+    is ``sampler.seed``)."""
+    import jax
+
     from ._jax import enable_x64
+    from .config import DiagnosticThresholds
+    from .model import full_model, marginal_model, model_parts
 
     enable_x64()
-    jarrays = ModelArrays(*(jnp.asarray(a) for a in arrays))
-    init = {k: jnp.asarray(v) for k, v in initial_values(arrays, layout, settings).items()}
-    kernel = NUTS(
-        distance_ladder_model,
-        target_accept_prob=sampler.target_accept,
-        max_tree_depth=sampler.max_tree_depth,
-        dense_mass=_dense_block(init) if sampler.dense_mass else False,
-        init_strategy=init_to_value(values=init),
-    )
-    method = _chain_method(sampler.chain_method, sampler.chains)
-    mcmc = MCMC(
-        kernel,
-        num_warmup=sampler.warmup,
-        num_samples=sampler.draws,
-        num_chains=sampler.chains,
-        chain_method=method,
-        progress_bar=bool(sampler.progress and sys.stderr.isatty()),
-    )
+    limits = limits or DiagnosticThresholds()
+    method, reason = choose_method(settings, layout, sampler)
     start = time.perf_counter()
-    mcmc.run(jax.random.PRNGKey(sampler.seed), jarrays, settings, layout, extra_fields=_EXTRA_FIELDS)
-    jax.block_until_ready(mcmc.get_samples())
+    parts = model_parts(arrays, layout, settings)
+    notes = [f"method {method}: {reason}"]
+    init = initial_values(parts, layout, settings, method)
+    key = jax.random.PRNGKey(sampler.seed)
+    if method == "gls":
+        samples, extra, chain_method = {}, None, "vectorized"
+    else:
+        model = marginal_model if method == "marginal" else full_model
+        samples, extra, chain_method, more = _run_mcmc(model, parts, layout, settings, sampler, init, limits, say)
+        notes += more
+    idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra,
+                                            jax.random.fold_in(key, 1))
+    notes += bound_notes
     wall = time.perf_counter() - start
-    idata, derived = _to_inference_data(mcmc, jarrays, layout, settings)
-    return idata, derived, wall, method
+    return SampleRun(idata, derived, wall, chain_method, method, notes, parts)
 
 
-def _to_inference_data(mcmc, jarrays: ModelArrays, layout: Layout, settings: ModelSettings):
+def _complete_draws(parts, settings, method, samples, chains, draws, key):
+    """Every posterior draw with every output parameter: the sampled sites plus, for ``marginal`` and
+    ``gls``, one exact draw of the linear block per draw. Returns flat (S, ...) arrays by output name."""
+    import jax
+    import jax.numpy as jnp
+
+    from .model import mu_parallax, offset_var_from_params
+    from .structure import conditional_draw, unpack
+
+    S = chains * draws
+    flat = {k: jnp.asarray(np.asarray(v).reshape((S,) + np.shape(v)[2:])) for k, v in samples.items()}
+    if method == "nuts":
+        return flat
+    st = parts.structure
+    fixed = {n: jnp.asarray(v) for n, v in st.fixed}
+
+    def one(x):
+        p, k = x
+        p = {**fixed, **p}
+        if "scatter" not in p:
+            p["scatter"] = jnp.asarray(settings.prior("scatter").get("value"))
+        ov = offset_var_from_params(parts, settings, p)
+        mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
+        sn_var = (p["sn_scatter"] ** 2 if "sn_scatter" in p else
+                  jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2) if parts.lin.sn_slot.shape[0] else 0.0
+        loc, glob = conditional_draw(k, st, parts.lin, ov, mu_par, sn_var)
+        out = {"mu": loc[:, 0], **{n: v for n, v in unpack(st, glob).items() if n not in fixed}}
+        if st.n_local == 2 and parts.bias_slots.shape[0]:
+            out["photometric_bias"] = loc[parts.bias_slots, 1]
+        return out
+
+    keys = jax.random.split(key, S)
+    drawn = jax.jit(lambda xs: jax.lax.map(one, xs))((flat, keys))
+    return {**flat, **drawn}
+
+
+def _assemble(parts, layout, settings, sampler, output, method, samples, extra, key):
     import arviz as az
+    import jax
+    import jax.numpy as jnp
     import xarray as xr
-    from numpyro.infer import log_likelihood
 
-    samples = mcmc.get_samples(group_by_chain=True)
-    chains, draws = next(iter(samples.values())).shape[:2]
+    from . import __version__
+    from .model import pointwise
+
+    chains, draws = (sampler.chains, sampler.draws) if method == "gls" else np.shape(next(iter(samples.values())))[:2]
+    k1, k2 = jax.random.split(key)
+    flat = _complete_draws(parts, settings, method, samples, chains, draws, k1)
+    S = chains * draws
     coords = _coords(layout)
+    dims = dict(DIMS, mu=mu_dim(layout))
+    n_stars, n_gal = parts.lin.y0.shape[0], len(layout.galaxies)
 
-    def _da(x, dim=None, dtype=None):
-        x = np.asarray(x, dtype=dtype)
-        dims = ["chain", "draw"] + ([dim] if dim else [])
+    mode = output.log_likelihood
+    if mode == "auto":
+        mode = "star" if n_stars * S <= AUTO_STAR_LIMIT else "galaxy"
+    fixed = {n: jnp.asarray(v) for n, v in parts.structure.fixed}
+    for name in ("scatter", "sn_scatter", "outlier_fraction", "parallax_offset"):
+        if name not in flat and settings.prior(name).dist == "fixed":
+            fixed[name] = jnp.asarray(settings.prior(name).get("value"))
+
+    def body(carry, p):
+        p = {**fixed, **p}
+        out = pointwise(parts, settings, p)
+        q_sum, e_sum, r_sum = carry
+        carry = (q_sum + out["outlier_prob"], e_sum + out["ebv"], r_sum + out["star_resid"])
+        ll = out["cepheids"]
+        if mode == "galaxy":
+            ll = jax.ops.segment_sum(ll, parts.star_galaxy, num_segments=n_gal)
+        ys = {"anchors": out["anchors"], "supernovae": out["supernovae"]}
+        if mode != "none":
+            ys["cepheids"] = ll.astype(jnp.float32)
+        if parts.parallax.shape[0]:
+            from .terms.parallax import parallax_log_likelihood
+
+            ys["parallaxes"] = parallax_log_likelihood(parts.parallax, parts.parallax_err, jnp.exp(p["log_distance_pc"]),
+                                                       p["parallax_offset"])
+        return carry, ys
+
+    zero = (jnp.zeros(n_stars), jnp.zeros(n_stars), jnp.zeros(n_stars))
+    model_keys = [k_ for k_ in flat]
+    carry, ys = jax.jit(lambda xs: jax.lax.scan(body, zero, xs))({k_: flat[k_] for k_ in model_keys})
+    derived = {"outlier_prob": np.asarray(carry[0]) / S, "ebv": np.asarray(carry[1]) / S,
+               "residual": np.asarray(carry[2]) / S}
+
+    def _da(x, dim=None):
+        x = np.asarray(x).reshape((chains, draws) + np.shape(x)[1:])
+        dd = ["chain", "draw"] + ([dim] if dim else [])
         c = {"chain": np.arange(chains), "draw": np.arange(draws)}
         if dim:
             c[dim] = coords[dim]
-        return xr.DataArray(x, dims=dims, coords=c)
+        return xr.DataArray(x, dims=dd, coords=c)
 
-    derived = {k: np.asarray(samples.pop(k)).mean(axis=(0, 1)) for k in DERIVED_PER_STAR if k in samples}
-    post = {k: _da(v, DIMS.get(k) if np.ndim(v) > 2 else None) for k, v in samples.items()}
-    extra = mcmc.get_extra_fields(group_by_chain=True)
-    stats = {
-        "diverging": _da(extra["diverging"]),
-        "energy": _da(extra["energy"]),
-        "n_steps": _da(extra["num_steps"]),
-        "acceptance_rate": _da(extra["accept_prob"]),
-        "lp": _da(-np.asarray(extra["potential_energy"])),
-    }
-    flat = mcmc.get_samples(group_by_chain=False)
-    ll = log_likelihood(distance_ladder_model, flat, jarrays, settings, layout)
-    # Pointwise log-likelihoods are stored in float32: ample for PSIS-LOO, half the file size.
-    site_dims = {"mag_obs": "star", "mu_geo_obs": "anchor", "parallax_obs": "parallax_star", "sn_obs": "sn"}
-    ll_vars = {k: _da(np.asarray(v, np.float32).reshape(chains, draws, -1), site_dims[k]) for k, v in ll.items() if k in site_dims}
-
-    def _obs(values, dim, extra_dim=None):
-        c = {dim: coords[dim]}
-        if extra_dim:
-            c[extra_dim] = coords[extra_dim]
-        return xr.DataArray(np.asarray(values), dims=[dim] + ([extra_dim] if extra_dim else []), coords=c)
-
-    mag = np.where(np.asarray(jarrays.mag_mask), np.asarray(jarrays.mag), np.nan)
-    observed = {"mu_geo_obs": _obs(jarrays.mu_geo, "anchor")} if layout.anchors else {}
-    if settings.wesenheit is not None:  # W depends on R: record the observed bands it is formed from
-        for j, b in enumerate(settings.wesenheit.bands):
-            observed[f"mag_{b}"] = _obs(mag[:, j], "star")
-    elif settings.multiband:
-        observed["mag_obs"] = _obs(mag, "star", "band")
+    post, aux = {}, {}
+    for name, v in flat.items():
+        v = np.asarray(v)
+        target = aux if name in AUX_SITES else post
+        target[name] = _da(v, dims.get(name) if v.ndim > 1 else None)
+    attrs = {"created_at": __import__("datetime").datetime.now(__import__("datetime").timezone.utc).isoformat(
+        timespec="seconds"), "inference_library": "ladder", "inference_library_version": __version__,
+        "sampling_method": method}
+    groups = {"posterior": xr.Dataset(post, attrs=attrs)}
+    if aux:
+        groups["sampler_aux"] = xr.Dataset(aux, attrs=attrs)
+    if extra is not None:
+        groups["sample_stats"] = xr.Dataset({
+            "diverging": _da(np.asarray(extra["diverging"]).reshape(S)),
+            "energy": _da(np.asarray(extra["energy"]).reshape(S)),
+            "n_steps": _da(np.asarray(extra["num_steps"]).reshape(S)),
+            "acceptance_rate": _da(np.asarray(extra["accept_prob"]).reshape(S)),
+            "lp": _da(-np.asarray(extra["potential_energy"]).reshape(S)),
+        }, attrs=attrs)
     else:
-        observed["mag_obs"] = _obs(mag[:, 0], "star")
-    if layout.parallax_stars:
-        observed["parallax_obs"] = _obs(jarrays.parallax, "parallax_star")
+        groups["sample_stats"] = xr.Dataset({"diverging": _da(np.zeros(S, bool))}, attrs=attrs)
+
+    # Pointwise log-likelihoods: the Cepheids in ``log_likelihood`` (named like their observed_data
+    # variable, so az.loo(idata) needs no arguments); the other observations in their own group.
+    ll = {}
+    if "cepheids" in ys:
+        ll["cepheid_mag"] = _da(ys["cepheids"], "star" if mode == "star" else "galaxy")
+    if ll:
+        groups["log_likelihood"] = xr.Dataset(ll, attrs={**attrs, "unit": mode})
+    other = {}
+    if layout.anchors:
+        other["anchor_mu_geo"] = _da(ys["anchors"], "anchor")
     if layout.has_sn:
-        observed["sn_obs"] = _obs(jarrays.sn_mag, "sn")
-    idata = az.InferenceData(
-        posterior=xr.Dataset(post),
-        sample_stats=xr.Dataset(stats),
-        log_likelihood=xr.Dataset(ll_vars),
-        observed_data=xr.Dataset(observed),
-    )
-    return idata, derived
+        other["sn_mag"] = _da(ys["supernovae"], "sn")
+    if "parallaxes" in ys:
+        other["parallax"] = _da(ys["parallaxes"], "parallax_star")
+    if other:
+        groups["log_likelihood_other"] = xr.Dataset(other, attrs=attrs)
+
+    obs = {}
+    lin = parts.lin
+    seen = np.asarray(lin.seen)
+    from .model import fitted_data  # noqa: F401  (the observed values are what the model fits)
+
+    y_obs = np.where(seen, np.asarray(_observed_values(parts)), np.nan)
+    if y_obs.shape[1] == 1:
+        obs["cepheid_mag"] = xr.DataArray(y_obs[:, 0], dims=["star"], coords={"star": coords["star"]})
+    else:
+        obs["cepheid_mag"] = xr.DataArray(y_obs, dims=["star", "band"], coords={"star": coords["star"],
+                                                                                "band": coords["band"]})
+    if layout.anchors:
+        obs["anchor_mu_geo"] = xr.DataArray(np.asarray(lin.anchor_y), dims=["anchor"], coords={"anchor": coords["anchor"]})
+    groups["observed_data"] = xr.Dataset(obs, attrs=attrs)
+    const = {"log_period": xr.DataArray(np.asarray(parts.log_period), dims=["star"], coords={"star": coords["star"]}),
+             "star_galaxy": xr.DataArray(np.array([layout.galaxies[i] for i in parts.star_galaxy], dtype=object),
+                                         dims=["star"], coords={"star": coords["star"]}),
+             "fitted": xr.DataArray(np.asarray(lin.mask).any(axis=1), dims=["star"], coords={"star": coords["star"]})}
+    if parts.oh is not None:
+        const["oh"] = xr.DataArray(np.asarray(parts.oh), dims=["star"], coords={"star": coords["star"]})
+    groups["constant_data"] = xr.Dataset(const, attrs=attrs)
+    idata = az.InferenceData(**groups)
+    return idata, derived, _bound_notes(parts, flat)
+
+
+def _observed_values(parts):
+    """The fitted magnitudes as observed (the linear block's data plus its fixed contributions)."""
+    return parts.observed
+
+
+def _bound_notes(parts, flat) -> list[str]:
+    """Uniform priors on linear parameters are flat inside the marginal: say if draws leave their bounds."""
+    notes = []
+    for name, lo, hi in parts.structure.uniform_bounds:
+        if name in flat:
+            v = np.asarray(flat[name])
+            out = float(np.mean((v < lo) | (v > hi)))
+            if out > 0:
+                notes.append(f"WARNING: {out:.1%} of the draws of {name} fall outside its uniform prior "
+                             f"[{lo:g}, {hi:g}], which the linear marginal treats as flat")
+    return notes

@@ -28,7 +28,7 @@ def distances_table(idata, data: LadderData):
     from astropy.table import Table
 
     post = idata.posterior["mu"]
-    hosts = [str(h) for h in post["host"].values]
+    hosts = [str(h) for h in post[post.dims[-1]].values]
     index = [data.host_names.index(h) for h in hosts]
     mu = _flat(post)  # (samples, n)
     q = np.quantile(mu, QUANTILES, axis=0)
@@ -77,19 +77,17 @@ def parameters_table(idata, names):
     return t
 
 
-def stars_table(idata, data: LadderData, arrays, layout, settings, outlier_prob):
-    """One row per Cepheid: residual at the posterior mean (mag) and outlier probability."""
+def stars_table(data: LadderData, derived: dict, outlier_prob, settings):
+    """One row per Cepheid: posterior-mean residual (mag) and outlier probability (or 1 = clipped)."""
     import astropy.units as u
     from astropy.table import Table
 
-    from .model import star_residuals
-
-    means = {k: np.asarray(v).mean(axis=(0, 1)) for k, v in idata.posterior.items()}
     t = Table()
     t["star"] = list(data.star_names)
     t["host"] = [data.host_names[i] for i in data.star_host]
-    t["residual"] = star_residuals(means, arrays, layout, settings) * u.mag
+    t["residual"] = np.asarray(derived["residual"], float) * u.mag
     t["outlier_prob"] = np.asarray(outlier_prob, float)
-    t.meta["description"] = ("Residual (observed - predicted at the posterior mean; several bands: inverse-variance "
-                             f"mean) and probability of being an outlier ({settings.outliers})")
+    t.meta["description"] = ("Posterior-mean residual (observed - predicted; several bands: inverse-variance "
+                             f"mean, extinction removed) and probability of being an outlier ({settings.outliers}; "
+                             "clip: 1 = set aside)")
     return t

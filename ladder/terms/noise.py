@@ -1,8 +1,23 @@
 """Noise model of one Cepheid's magnitudes: independent errors plus a star-level common offset."""
 
-__all__ = ["common_offset_normal_logpdf"]
+__all__ = ["precision_weights", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
 
 _LOG_2PI = 1.8378770664093453
+
+
+def precision_weights(var, mask, offset_var):
+    r"""The inverse of one star's band covariance :math:`C = D + s^2\,\mathbf 1\mathbf 1^T` in closed form.
+
+    By the Sherman-Morrison formula :math:`C^{-1} = W - c\,w w^T` with :math:`w_b = 1/\sigma_b^2` on the bands
+    observed (``mask``; 0 elsewhere) and :math:`c = s^2 / (1 + s^2 \sum_b w_b)`, so that for any band vectors
+    :math:`u^T C^{-1} v = \sum_b w_b u_b v_b - c\,(\sum_b w_b u_b)(\sum_b w_b v_b)`. Returns ``(w, c)``:
+    (k,) and a scalar. Used by the per-star likelihood below and by the normal equations of
+    :mod:`ladder.structure`.
+    """
+    import jax.numpy as jnp
+
+    w = jnp.where(mask, 1.0 / jnp.where(mask, var, 1.0), 0.0)
+    return w, offset_var / (1.0 + offset_var * jnp.sum(w))
 
 
 def common_offset_normal_logpdf(resid, var, mask, offset_var):
@@ -12,7 +27,8 @@ def common_offset_normal_logpdf(resid, var, mask, offset_var):
     (``mask``) are Gaussian with covariance :math:`C = D + s^2\,\mathbf 1\mathbf 1^T`,
     :math:`D = \mathrm{diag}(\sigma_b^2)`: independent photometric errors plus one offset
     :math:`\sim N(0, s^2)` shared by all bands (the star's place in the instability strip,
-    :math:`s = \sigma_\mathrm{int}`; a blend adds to it). With the Sherman-Morrison formula,
+    :math:`s = \sigma_\mathrm{int}`; a blend adds to it). With the Sherman-Morrison formula
+    (:func:`precision_weights`),
 
     .. math::
 
@@ -32,28 +48,24 @@ def common_offset_normal_logpdf(resid, var, mask, offset_var):
     """
     import jax.numpy as jnp
 
-    w = jnp.where(mask, 1.0 / jnp.where(mask, var, 1.0), 0.0)
+    w, c = precision_weights(var, mask, offset_var)
     r = jnp.where(mask, resid, 0.0)
-    sw = jnp.sum(w)
     swr = jnp.sum(w * r)
-    one_plus = 1.0 + offset_var * sw
-    quad = jnp.sum(w * r * r) - offset_var * swr * swr / one_plus
-    logdet = jnp.sum(jnp.where(mask, jnp.log(jnp.where(mask, var, 1.0)), 0.0)) + jnp.log(one_plus)
+    quad = jnp.sum(w * r * r) - c * swr * swr
+    logdet = jnp.sum(jnp.where(mask, jnp.log(jnp.where(mask, var, 1.0)), 0.0)) + jnp.log1p(offset_var * jnp.sum(w))
     n = jnp.sum(mask)
     return -0.5 * (quad + logdet + n * _LOG_2PI)
 
 
 def _quadratic_terms(resid, var, mask, offset_var, a):
-    """A = a^T C^-1 a and B = a^T C^-1 r for C = diag(var) + s^2 11^T (Sherman-Morrison)."""
+    """A = a^T C^-1 a and B = a^T C^-1 r for C = diag(var) + s^2 11^T (:func:`precision_weights`)."""
     import jax.numpy as jnp
 
-    w = jnp.where(mask, 1.0 / jnp.where(mask, var, 1.0), 0.0)
+    w, c = precision_weights(var, mask, offset_var)
     r = jnp.where(mask, resid, 0.0)
-    sw = jnp.sum(w)
-    denom = 1.0 + offset_var * sw
     wa, wr = jnp.sum(w * a), jnp.sum(w * r)
-    A = jnp.sum(w * a * a) - offset_var * wa * wa / denom
-    B = jnp.sum(w * a * r) - offset_var * wa * wr / denom
+    A = jnp.sum(w * a * a) - c * wa * wa
+    B = jnp.sum(w * a * r) - c * wa * wr
     return A, B
 
 

@@ -28,7 +28,7 @@ are pure ``jax.numpy`` and safe under ``jax.jit`` and ``jax.grad``. They work in
 import jax.numpy as jnp
 from jax.nn import sigmoid
 
-__all__ = ["mixture_log_likelihood", "outlier_probability"]
+__all__ = ["mixture_logpdf", "membership_probability", "mixture_log_likelihood", "outlier_probability"]
 
 _HALF_LOG_2PI = 0.5 * 1.8378770664093453  # 0.5 * log(2 pi)
 
@@ -39,12 +39,27 @@ def _normal_logpdf(x, sd):
     return -0.5 * z * z - jnp.log(sd) - _HALF_LOG_2PI
 
 
-def _component_logs(resid, sd_core, width, fraction):
-    """Log of the weighted core and broad densities, ``(log[(1-f) N_c], log[f N_b])``."""
+def mixture_logpdf(log_core, log_broad, fraction):
+    r"""Log density of the two-component mixture from its components' log densities.
+
+    .. math:: \ln L = \ln\left[(1 - f)\,e^{\ln p_c} + f\,e^{\ln p_b}\right]
+              = \mathrm{logaddexp}(\ln(1-f) + \ln p_c,\ \ln f + \ln p_b)
+
+    (Hogg, Bovy & Lang 2010, arXiv:1008.4686, Sect. 3). This is what :mod:`ladder.model` evaluates per star,
+    with :math:`p_c, p_b` the star's multi-band densities under the core and broad offset variances.
+    """
+    return jnp.logaddexp(jnp.log1p(-fraction) + log_core, jnp.log(fraction) + log_broad)
+
+
+def membership_probability(log_core, log_broad, fraction):
+    r"""Posterior probability of the broad component, :math:`q = f p_b / [(1-f) p_c + f p_b]`, in log-odds form."""
+    return sigmoid(jnp.log(fraction) + log_broad - jnp.log1p(-fraction) - log_core)
+
+
+def _component_logs(resid, sd_core, width):
+    """Log densities of the core and broad Normals for one residual (one band)."""
     sd_broad = jnp.sqrt(sd_core**2 + width**2)
-    log_core = jnp.log1p(-fraction) + _normal_logpdf(resid, sd_core)
-    log_broad = jnp.log(fraction) + _normal_logpdf(resid, sd_broad)
-    return log_core, log_broad
+    return _normal_logpdf(resid, sd_core), _normal_logpdf(resid, sd_broad)
 
 
 def mixture_log_likelihood(resid, sd_core, width, fraction):
@@ -76,8 +91,7 @@ def mixture_log_likelihood(resid, sd_core, width, fraction):
     float
         :math:`\ln L` (scalar; same shape as the broadcast inputs).
     """
-    log_core, log_broad = _component_logs(resid, sd_core, width, fraction)
-    return jnp.logaddexp(log_core, log_broad)
+    return mixture_logpdf(*_component_logs(resid, sd_core, width), fraction)
 
 
 def outlier_probability(resid, sd_core, width, fraction):
@@ -96,5 +110,4 @@ def outlier_probability(resid, sd_core, width, fraction):
 
     Parameters are those of :func:`mixture_log_likelihood`; returns :math:`q \in [0, 1]`.
     """
-    log_core, log_broad = _component_logs(resid, sd_core, width, fraction)
-    return sigmoid(log_broad - log_core)
+    return membership_probability(*_component_logs(resid, sd_core, width), fraction)

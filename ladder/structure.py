@@ -1,0 +1,522 @@
+r"""The model's structure, defined once: which parameters enter linearly, and how.
+
+Given the *nonlinear* parameters :math:`\phi` (intrinsic scatters, the parallax stars' own moduli, the SN
+scatter; R or R_V are fixed here), every observation of the ladder is linear in
+:math:`\theta = (\theta_\mathrm{loc}, \theta_\mathrm{glob})`:
+
+* per galaxy *i* (the *local* block, :math:`L` columns): its modulus :math:`\mu_i` and, with
+  ``photometric_bias``, its bias :math:`\beta_i`;
+* shared (the *global* block, :math:`p` columns): PL zero point(s) :math:`M_B` and slope(s) :math:`b_B`
+  (:math:`b_{\mathrm{long},B}` above a break), the metallicity coefficient :math:`\gamma`, the SN absolute
+  magnitude :math:`M_\mathrm{SN}` and :math:`a = 5\log_{10} H_0`.
+
+For Cepheid *j* of galaxy *i* in fitted column (band) *B*:
+
+.. math::
+
+    y_{jB} \equiv m_{jB} - c_{jB} = e_j^\top \theta_{\mathrm{loc},i} + G_{jB}^\top \theta_\mathrm{glob}
+             + \epsilon_{jB} + s_j, \qquad
+    G_{jB} = \big(\delta_{B}\,;\ \delta_{B}\,x^\mathrm{short}_j\,;\ \delta_{B}\,x^\mathrm{long}_j\,;\
+             [\mathrm{O/H}]_j - [\mathrm{O/H}]_\odot\big),
+
+where :math:`c_{jB}` holds every fixed contribution (parameters with a ``fixed`` prior, a parallax star's own
+modulus), :math:`e_j = (1, [\text{has bias}])` (a parallax star has no local column), :math:`x^\mathrm{short}
+= \min(x, x_b) - 1`, :math:`x^\mathrm{long} = \max(x - x_b, 0)` with :math:`x = \log_{10} P` (no break:
+:math:`x^\mathrm{short} = x - 1`), and :math:`\mathrm{Cov}(\epsilon_j + s_j\mathbf 1) = C_j = D_j + s_j^2
+\mathbf 1\mathbf 1^T` (:func:`ladder.terms.noise.precision_weights`). Anchors give
+:math:`\mu_{\mathrm{geo},a} = \mu_a + \epsilon`; SN calibrators :math:`m_k = \mu_i + M_\mathrm{SN} + \epsilon`;
+Hubble-flow SNe :math:`m_k - \mu(z_k; H_0{=}1) = M_\mathrm{SN} - a + \epsilon` (the kinematic modulus is
+:math:`\mu(z; H_0) = \mu(z; 1) - 5\log_{10} H_0`).
+
+Every consumer derives from this one definition: the numpyro models (:mod:`ladder.model`), the exact
+marginal and closed-form solvers (:func:`normal_equations`, :func:`log_marginal`, :func:`conditional_draw`),
+initial values and clipping (:func:`conditional_mean`), residuals and figures (:func:`residuals`).
+
+**The normal equations** have arrow structure: one small local block per galaxy plus :math:`p` global
+columns. They are accumulated star by star with per-galaxy segment sums (no dense design matrix), and the
+local blocks are eliminated by their Schur complement, so one evaluation costs :math:`O(N p^2)` and the dense
+algebra is :math:`p \times p` (Cholesky throughout, no explicit inverse). With Gaussian priors
+:math:`\theta \sim \mathcal N(m_0, P_0^{-1})` (flat columns: :math:`P_0 = 0`), an exponential tilt
+:math:`e^{\tau^T\theta}` (a prior uniform in :math:`H_0` is uniform in :math:`10^{a/5}`, i.e. a density
+:math:`\propto e^{a \ln 10 / 5}` in :math:`a`),
+
+.. math::
+
+    A = X^T\Sigma^{-1}X + P_0,\quad b = X^T\Sigma^{-1}y + P_0 m_0 + \tau, \qquad
+    \theta \mid y, \phi \sim \mathcal N(A^{-1}b,\ A^{-1}),
+
+    \ln p(y \mid \phi) = -\tfrac12\left[y^T\Sigma^{-1}y + m_0^T P_0 m_0 - b^T A^{-1} b + \ln|\Sigma|
+                          + \ln|A| - \ln|P_0|_+ + n \ln 2\pi\right] + \text{const}
+
+(:math:`|P_0|_+` over the columns with a proper prior; the constant, from improper flat priors and the
+normalisation of the tilt, does not depend on :math:`\phi`). This is the standard conjugate linear-Gaussian
+marginal (e.g. Bishop 2006, *Pattern Recognition and Machine Learning*, Sect. 3.5; Rasmussen & Williams 2006,
+*Gaussian Processes for Machine Learning*, Sect. 2.7 for the explicit basis functions). Bounds of ``uniform``
+priors on linear parameters are not part of it (the tilt is; the posterior must lie well inside the bounds,
+which the fit checks on the drawn values).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import numpy as np
+
+from .config import ModelSettings
+from .terms.pl import PIVOT_LOG_PERIOD
+
+__all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal",
+           "conditional_mean", "conditional_draw", "residuals", "unpack", "pack", "LINEAR_PARAMETERS",
+           "HUBBLE_TILT"]
+
+#: Global parameters that enter linearly (output names); ``h0`` enters as a = 5 log10 H0.
+LINEAR_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "sn_abs_mag", "h0")
+#: d ln p / da of a prior uniform in H0 = 10^(a/5): ln(10) / 5.
+HUBBLE_TILT = float(np.log(10.0) / 5.0)
+_LOG_2PI = float(np.log(2.0 * np.pi))
+
+
+@dataclass(frozen=True)
+class Structure:
+    """Static description of the linear block (hashable; not traced).
+
+    ``columns``: the free global columns as ``(parameter, band index or None)``; ``fixed``: the
+    parameters held at their ``fixed`` prior value, as ``(parameter, value)``; ``n_local``: columns per
+    galaxy (1: mu; 2: mu and photometric bias); ``n_galaxies``: galaxies with one modulus.
+    """
+
+    columns: tuple[tuple[str, int | None], ...]
+    fixed: tuple[tuple[str, float], ...]
+    n_local: int
+    n_galaxies: int
+    bands: tuple[str, ...]
+    band_shaped: bool  # PL parameters have one value per band (multiband)
+    uniform_bounds: tuple[tuple[str, float, float], ...] = ()  # linear parameters with a uniform prior
+
+    @property
+    def p(self) -> int:
+        return len(self.columns)
+
+    def index(self, name: str) -> list[int]:
+        return [i for i, (n, _) in enumerate(self.columns) if n == name]
+
+
+class LinearArrays(NamedTuple):
+    """Arrays of the linear block (a JAX pytree). N stars, k fitted columns, p global columns, G galaxies."""
+
+    y0: np.ndarray  # (N, k) observed minus fixed contributions; 0 where missing
+    var: np.ndarray  # (N, k) photometric variances; 1 where missing
+    mask: np.ndarray  # (N, k) bool: observed and fitted (clipped stars are all False)
+    seen: np.ndarray  # (N, k) bool: observed (clipped stars included: their residuals are still reported)
+    design: np.ndarray  # (N, k, p) global design G_jB
+    local: np.ndarray  # (N, L) local design e_j (zeros for parallax stars)
+    slot: np.ndarray  # (N,) galaxy slot, G for stars without one (parallax stars)
+    par_star: np.ndarray  # (n_par,) star index of each parallax star
+    anchor_slot: np.ndarray  # (n_anchor,)
+    anchor_y: np.ndarray
+    anchor_var: np.ndarray
+    sn_slot: np.ndarray  # (n_sn,) galaxy slot of calibrators, G for the flow
+    sn_y: np.ndarray  # calibrators: m; flow: m - mu(z; H0=1)
+    sn_var: np.ndarray  # err^2 (+ peculiar-velocity term for the flow)
+    sn_design: np.ndarray  # (n_sn, p)
+    prior_mean_local: np.ndarray  # (G, L)
+    prior_prec_local: np.ndarray  # (G, L)
+    prior_mean: np.ndarray  # (p,)
+    prior_prec: np.ndarray  # (p,)
+    tilt: np.ndarray  # (p,)
+
+
+def _linear_prior(spec):
+    """(mean, precision, is uniform) of a linear parameter's prior; flat/uniform -> precision 0."""
+    if spec.dist == "normal":
+        return spec.get("loc"), 1.0 / spec.get("scale") ** 2, False
+    if spec.dist in ("flat", "uniform"):
+        return 0.0, 0.0, spec.dist == "uniform"
+    raise ValueError(spec.dist)
+
+
+def linear_gaussian_obstacles(settings: ModelSettings, has_flow: bool) -> list[str]:
+    """Settings that make the model not linear-Gaussian given its hyperparameters (empty: marginal applies)."""
+    why = []
+    if settings.multiband:
+        why.append('extinction = "multiband" (each star\'s E(B-V) >= 0 has an exponential prior)')
+    if settings.outliers == "mixture":
+        why.append('outliers = "mixture" (a two-component likelihood)')
+    if settings.wesenheit is not None and (settings.wesenheit.free or
+                                           (settings.wesenheit.from_law and settings.reddening.free)):
+        why.append("an uncertain Wesenheit R (the fitted data would change with R)")
+    for name in ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "sn_abs_mag", "mu"):
+        if settings.prior(name).dist == "halfnormal":
+            why.append(f"a halfnormal prior on {name}")
+    if has_flow and settings.prior("h0").dist not in ("uniform", "fixed"):
+        why.append(f"a {settings.prior('h0').dist} prior on h0 (use uniform or fixed)")
+    return why
+
+
+def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
+    """The static :class:`Structure` and the :class:`LinearArrays` for fitted data ``obs``, ``err``, ``mask``
+    ((N, k): a band, the Wesenheit index at fixed R, or every band). ``arrays``/``layout`` from
+    :func:`ladder.model.model_arrays`."""
+    from .cosmography import distance_modulus, peculiar_velocity_mag
+
+    n, k = obs.shape
+    bands = layout.bands
+    band_shaped = settings.multiband
+    nb = len(bands) if band_shaped else 1
+    has_sn, has_flow = layout.has_sn, layout.has_flow
+    wanted = {"pl_zero_point": True, "pl_slope": True, "pl_slope_long": settings.pl_break,
+              "metallicity_coef": settings.metallicity, "sn_abs_mag": has_sn, "h0": has_flow}
+    columns, fixed, bounds = [], [], []
+    for name in LINEAR_PARAMETERS:
+        if not wanted[name]:
+            continue
+        spec = settings.prior(name)
+        per_band = name in ("pl_zero_point", "pl_slope", "pl_slope_long")
+        if spec.dist == "fixed":
+            fixed.append((name, float(spec.get("value"))))
+            continue
+        if spec.dist == "uniform":
+            bounds.append((name, spec.get("low"), spec.get("high")))
+        columns += [(name, b) for b in range(nb)] if per_band and band_shaped else [(name, None)]
+    n_local = 2 if settings.photometric_bias else 1
+    structure = Structure(tuple(columns), tuple(fixed), n_local, layout.n_mu, tuple(bands), band_shaped,
+                          tuple(bounds))
+
+    x = np.asarray(arrays.log_period, float)
+    if settings.pl_break:
+        xb = float(np.log10(settings.pl_break_period))
+        x_short, x_long = np.minimum(x, xb) - PIVOT_LOG_PERIOD, np.maximum(x - xb, 0.0)
+    else:
+        x_short, x_long = x - PIVOT_LOG_PERIOD, np.zeros_like(x)
+    oh = np.asarray(arrays.oh, float) - settings.solar_oh
+    band_of_col = np.arange(k) if band_shaped else np.zeros(k, int)
+
+    def regressor(name, b):
+        """(N, k) values of one global parameter's regressor in the Cepheid rows."""
+        hit = np.ones((n, k)) if b is None else (band_of_col[None, :] == b) * np.ones((n, 1))
+        base = {"pl_zero_point": np.ones(n), "pl_slope": x_short, "pl_slope_long": x_long,
+                "metallicity_coef": oh, "sn_abs_mag": np.zeros(n), "h0": np.zeros(n)}[name]
+        return hit * base[:, None]
+
+    design = np.stack([regressor(nm, b) for nm, b in columns], axis=-1) if columns else np.zeros((n, k, 0))
+    seen = np.asarray(mask, bool)
+    y0 = np.where(seen, obs, 0.0)
+    for name, value in fixed:  # fixed contributions move to the data side
+        for b in (range(nb) if band_shaped and name.startswith("pl_") else [None]):
+            y0 = y0 - value * regressor(name, b)
+    weight = np.asarray(arrays.star_weight, float) > 0
+    mask = seen & weight[:, None]
+    y0 = np.where(seen, y0, 0.0)
+    var = np.where(seen, np.asarray(err, float) ** 2, 1.0)
+
+    G = layout.n_mu
+    mu_index = np.asarray(arrays.star_mu_index)
+    is_par = mu_index >= G
+    slot = np.where(is_par, G, mu_index)
+    local = np.zeros((n, n_local))
+    local[~is_par, 0] = 1.0
+    has_bias = np.zeros(G + 1, bool)
+    bias_slot = np.full(G, -1)
+    if n_local == 2:
+        gal_slot = np.full(len(layout.galaxies), G)
+        gal_slot[[layout.galaxies.index(g) for g in layout.distance_galaxies]] = np.arange(G)
+        bias_gal = np.asarray(arrays.bias_host)
+        bias_slot_of = gal_slot[bias_gal]  # parallax groups cannot carry a bias column (no local block)
+        has_bias[bias_slot_of] = True
+        has_bias[G] = False
+        local[:, 1] = has_bias[slot] & ~is_par
+
+    mu_spec = settings.prior("mu")
+    m_mu, p_mu, _ = _linear_prior(mu_spec)
+    pm_loc = np.zeros((G, n_local))
+    pp_loc = np.zeros((G, n_local))
+    pm_loc[:, 0], pp_loc[:, 0] = m_mu, p_mu
+    if n_local == 2:
+        pp_loc[:, 1] = 1.0  # galaxies without a bias estimate: the column is empty; unit precision keeps it inert
+        for g_idx, mean, e in zip(np.asarray(arrays.bias_host), np.asarray(arrays.bias_mean),
+                                  np.asarray(arrays.bias_err)):
+            s = gal_slot[g_idx]
+            if s < G:
+                pm_loc[s, 1], pp_loc[s, 1] = mean, 1.0 / e**2
+
+    p = len(columns)
+    pm, pp, tilt = np.zeros(p), np.zeros(p), np.zeros(p)
+    for i, (name, _) in enumerate(columns):
+        if name == "h0":
+            tilt[i] = HUBBLE_TILT if settings.prior("h0").dist == "uniform" else 0.0
+            continue
+        pm[i], pp[i], _ = _linear_prior(settings.prior(name))
+
+    # supernovae
+    sn_slot = np.asarray(arrays.sn_slot)
+    n_sn = sn_slot.shape[0]
+    sn_design = np.zeros((n_sn, p))
+    sn_y = np.asarray(arrays.sn_mag, float).copy()
+    sn_var = np.asarray(arrays.sn_err, float) ** 2
+    if n_sn:
+        flow = sn_slot < 0
+        z = np.asarray(arrays.sn_z, float)
+        s = settings.supernovae
+        mu1 = np.asarray(distance_modulus(np.where(flow, z, 1.0), 1.0, s.q0, s.j0), float)
+        sn_y = np.where(flow, sn_y - mu1, sn_y)
+        sn_var = sn_var + np.where(flow, np.asarray(peculiar_velocity_mag(np.where(flow, z, 1.0), s.sigma_v)) ** 2,
+                                   0.0)
+        fixed_d = dict(fixed)
+        for i, (name, _) in enumerate(columns):
+            if name == "sn_abs_mag":
+                sn_design[:, i] = 1.0
+            elif name == "h0":
+                sn_design[:, i] = np.where(flow, -1.0, 0.0)
+        if "sn_abs_mag" in fixed_d:
+            sn_y = sn_y - fixed_d["sn_abs_mag"]
+        if "h0" in fixed_d:
+            sn_y = np.where(flow, sn_y + 5.0 * np.log10(fixed_d["h0"]), sn_y)
+        sn_slot = np.where(flow, G, sn_slot)
+
+    lin = LinearArrays(
+        y0=y0, var=var, mask=mask, seen=seen, design=design, local=local, slot=slot.astype(np.int64),
+        par_star=np.asarray(arrays.par_star, np.int64),
+        anchor_slot=np.asarray(arrays.anchor_slot, np.int64), anchor_y=np.asarray(arrays.mu_geo, float),
+        anchor_var=np.asarray(arrays.mu_geo_err, float) ** 2,
+        sn_slot=sn_slot.astype(np.int64), sn_y=sn_y, sn_var=sn_var, sn_design=sn_design,
+        prior_mean_local=pm_loc, prior_prec_local=pp_loc, prior_mean=pm, prior_prec=pp, tilt=tilt,
+    )
+    return structure, lin
+
+
+def _star_y(lin: LinearArrays, mu_par):
+    """(N, k) data of the linear block: parallax stars' own moduli moved to the data side (0 where unseen)."""
+    import jax.numpy as jnp
+
+    y = jnp.asarray(lin.y0)
+    if lin.par_star.shape[0]:
+        y = y.at[lin.par_star].add(-mu_par[:, None])
+    return jnp.where(lin.seen, y, 0.0)
+
+
+class NormalEquations(NamedTuple):
+    ll: object  # (G, L, L) local blocks
+    lh: object  # (G, L, p)
+    hh: object  # (p, p)
+    bl: object  # (G, L)
+    bh: object  # (p,)
+    yy: object  # scalar y^T Sigma^-1 y (data only)
+    logdet_sigma: object  # ln|Sigma|
+    n_obs: object  # number of observations
+
+
+def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
+                     include_prior: bool = True) -> NormalEquations:
+    r"""Accumulate :math:`A = X^T\Sigma^{-1}X\ [+ P_0]` and :math:`b = X^T\Sigma^{-1}y\ [+ P_0 m_0 + \tau]`
+    in arrow form, plus :math:`y^T\Sigma^{-1}y` and :math:`\ln|\Sigma|`.
+
+    ``offset_var`` (N,) is each star's :math:`s_j^2`; ``mu_par`` (n_par,) the parallax stars' moduli;
+    ``sn_extra_var`` the SN intrinsic variance :math:`\sigma_\mathrm{SN}^2`. JAX; differentiable.
+    """
+    import jax
+    import jax.numpy as jnp
+
+    from .terms.noise import precision_weights
+
+    G, L = structure.n_galaxies, structure.n_local
+    y = jnp.where(lin.mask, _star_y(lin, mu_par), 0.0)
+    w, c = jax.vmap(precision_weights)(lin.var, lin.mask, offset_var)  # (N, k), (N,)
+    sw = jnp.sum(w, axis=1)
+    d = 1.0 / (1.0 + offset_var * sw)  # = 1 - c * sw
+    wy = w * y
+    t = jnp.sum(wy, axis=1)
+    g = jnp.einsum("nk,nkp->np", w, lin.design)
+    hh = jnp.einsum("nk,nkp,nkq->pq", w, lin.design, lin.design) - jnp.einsum("n,np,nq->pq", c, g, g)
+    bh = jnp.einsum("nk,nkp->p", wy, lin.design) - jnp.einsum("n,n,np->p", c, t, g)
+    yy = jnp.sum(wy * y) - jnp.sum(c * t * t)
+    logdet = jnp.sum(jnp.where(lin.mask, jnp.log(lin.var), 0.0)) + jnp.sum(jnp.log1p(offset_var * sw))
+    n_obs = jnp.sum(lin.mask)
+    e = lin.local
+    seg = lambda v: jax.ops.segment_sum(v, lin.slot, num_segments=G + 1)[:G]  # noqa: E731
+    ll = seg((sw * d)[:, None, None] * e[:, :, None] * e[:, None, :])
+    lh = seg(d[:, None, None] * e[:, :, None] * g[:, None, :])
+    bl = seg((d * t)[:, None] * e)
+
+    # anchors: mu_geo = mu + eps (local column 0)
+    if lin.anchor_slot.shape[0]:
+        aw = 1.0 / lin.anchor_var
+        ll = ll.at[lin.anchor_slot, 0, 0].add(aw)
+        bl = bl.at[lin.anchor_slot, 0].add(aw * lin.anchor_y)
+        yy = yy + jnp.sum(aw * lin.anchor_y**2)
+        logdet = logdet + jnp.sum(jnp.log(lin.anchor_var))
+        n_obs = n_obs + lin.anchor_slot.shape[0]
+    # supernovae: calibrators mu + M_SN, flow M_SN - a
+    if lin.sn_slot.shape[0]:
+        v = lin.sn_var + sn_extra_var
+        sw_ = 1.0 / v
+        X = lin.sn_design
+        cal = lin.sn_slot < G
+        slot = jnp.minimum(lin.sn_slot, G - 1) if G else lin.sn_slot
+        hh = hh + jnp.einsum("n,np,nq->pq", sw_, X, X)
+        bh = bh + jnp.einsum("n,np->p", sw_ * lin.sn_y, X)
+        if G:
+            ll = ll.at[slot, 0, 0].add(jnp.where(cal, sw_, 0.0))
+            lh = lh.at[slot, 0, :].add(jnp.where(cal, sw_, 0.0)[:, None] * X)
+            bl = bl.at[slot, 0].add(jnp.where(cal, sw_ * lin.sn_y, 0.0))
+        yy = yy + jnp.sum(sw_ * lin.sn_y**2)
+        logdet = logdet + jnp.sum(jnp.log(v))
+        n_obs = n_obs + lin.sn_slot.shape[0]
+    if include_prior:
+        ll = ll + jax.vmap(jnp.diag)(lin.prior_prec_local)
+        bl = bl + lin.prior_prec_local * lin.prior_mean_local
+        hh = hh + jnp.diag(lin.prior_prec)
+        bh = bh + lin.prior_prec * lin.prior_mean + lin.tilt
+    return NormalEquations(ll, lh, hh, bl, bh, yy, logdet, n_obs)
+
+
+class _Solved(NamedTuple):
+    chol_l: object  # (G, L, L) Cholesky factors of the local blocks
+    chol_s: object  # (p, p) Cholesky factor of the Schur complement
+    mean_h: object  # (p,)
+    inv_l_bl: object  # (G, L) ll^-1 bl
+    inv_l_lh: object  # (G, L, p) ll^-1 lh
+    quad_b: object  # b^T A^-1 b
+    logdet_a: object
+
+
+def _solve(eq: NormalEquations) -> _Solved:
+    """Eliminate the local blocks (Schur complement) and solve; Cholesky factors only."""
+    import jax.numpy as jnp
+    from jax.scipy.linalg import cho_solve
+
+    chol_l = jnp.linalg.cholesky(eq.ll)
+    solve_l = lambda rhs: cho_solve((chol_l, True), rhs)  # noqa: E731  batched over galaxies
+    inv_l_bl = solve_l(eq.bl[..., None])[..., 0]
+    inv_l_lh = solve_l(eq.lh)
+    S = eq.hh - jnp.einsum("glp,glq->pq", eq.lh, inv_l_lh)
+    r = eq.bh - jnp.einsum("glp,gl->p", eq.lh, inv_l_bl)
+    p = S.shape[0]
+    if p:
+        chol_s = jnp.linalg.cholesky(S)
+        mean_h = cho_solve((chol_s, True), r)
+        logdet_s = 2.0 * jnp.sum(jnp.log(jnp.diagonal(chol_s)))
+    else:
+        chol_s, mean_h, logdet_s = S, r, 0.0
+    quad_b = jnp.sum(eq.bl * inv_l_bl) + jnp.dot(r, mean_h)
+    logdet_a = 2.0 * jnp.sum(jnp.log(jnp.diagonal(chol_l, axis1=-2, axis2=-1))) + logdet_s
+    return _Solved(chol_l, chol_s, mean_h, inv_l_bl, inv_l_lh, quad_b, logdet_a)
+
+
+def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
+    r""":math:`\ln p(y \mid \phi)` with the linear block integrated out exactly (see the module docstring)."""
+    import jax.numpy as jnp
+
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
+    sol = _solve(eq)
+    proper_l = lin.prior_prec_local > 0
+    proper = lin.prior_prec > 0
+    prior_quad = jnp.sum(lin.prior_prec_local * lin.prior_mean_local**2) + jnp.sum(lin.prior_prec * lin.prior_mean**2)
+    prior_logdet = jnp.sum(jnp.where(proper_l, jnp.log(jnp.where(proper_l, lin.prior_prec_local, 1.0)), 0.0)) \
+        + jnp.sum(jnp.where(proper, jnp.log(jnp.where(proper, lin.prior_prec, 1.0)), 0.0))
+    # empty bias columns (unit precision, no data) contribute log 1 = 0 to both determinants
+    return -0.5 * (eq.yy + prior_quad - sol.quad_b + eq.logdet_sigma + sol.logdet_a - prior_logdet
+                   + eq.n_obs * _LOG_2PI)
+
+
+def conditional_mean(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
+                     include_prior: bool = True):
+    r""":math:`E[\theta \mid y, \phi] = A^{-1} b`: ``(theta_local (G, L), theta_global (p,))``.
+
+    With ``include_prior=False`` (and no tilt) this is the weighted least-squares solution (Aitken 1935,
+    Proc. R. Soc. Edinburgh 55, 42)."""
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, include_prior)
+    if not include_prior:  # keep empty bias columns inert
+        import jax.numpy as jnp
+
+        empty = jnp.all(eq.ll == 0.0, axis=-1) & jnp.all(eq.ll == 0.0, axis=-2)
+        eq = eq._replace(ll=eq.ll + jnp.where(empty, 1.0, 0.0)[..., None] * jnp.eye(eq.ll.shape[-1]))
+    sol = _solve(eq)
+    loc = sol.inv_l_bl - sol.inv_l_lh @ sol.mean_h
+    return loc, sol.mean_h
+
+
+def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
+    r"""One exact draw of :math:`\theta \sim \mathcal N(A^{-1}b, A^{-1})`: ``(theta_local, theta_global)``.
+
+    Globals first, :math:`\theta_\mathrm{glob} = \hat\theta + L_S^{-T} z` with :math:`S = L_S L_S^T`, then each
+    galaxy given them, :math:`\theta_{\mathrm{loc},i} = A_{ii}^{-1}(b_i - A_{ih}\theta_\mathrm{glob}) + L_i^{-T} z_i`.
+    """
+    import jax
+    import jax.numpy as jnp
+    from jax.scipy.linalg import solve_triangular
+
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
+    sol = _solve(eq)
+    k1, k2 = jax.random.split(key)
+    p = sol.mean_h.shape[0]
+    if p:
+        z = jax.random.normal(k1, (p,))
+        h = sol.mean_h + solve_triangular(sol.chol_s.T, z, lower=False)
+    else:
+        h = sol.mean_h
+    zl = jax.random.normal(k2, eq.bl.shape)
+    noise = solve_triangular(jnp.swapaxes(sol.chol_l, -1, -2), zl[..., None], lower=False)[..., 0]
+    loc = sol.inv_l_bl - sol.inv_l_lh @ h + noise
+    return loc, h
+
+
+def residuals(structure: Structure, lin: LinearArrays, theta_local, theta_global, mu_par=None):
+    r"""(N, k) residuals :math:`y_{jB} - e_j^T\theta_{\mathrm{loc},i} - G_{jB}^T\theta_\mathrm{glob}` of every
+    Cepheid (observed minus predicted; 0 where not observed). The one prediction every consumer uses."""
+    import jax.numpy as jnp
+
+    y = _star_y(lin, mu_par)
+    loc = jnp.concatenate([theta_local, jnp.zeros((1, structure.n_local))], axis=0)[lin.slot]  # (N, L)
+    pred = jnp.sum(lin.local * loc, axis=1)[:, None] + jnp.einsum("nkp,p->nk", lin.design, theta_global)
+    return jnp.where(lin.seen, y - pred, 0.0)
+
+
+def unpack(structure: Structure, theta_global) -> dict:
+    """Global vector -> output parameters (``h0`` from a = 5 log10 H0; per-band ones as (n_bands,) arrays)."""
+    import jax.numpy as jnp
+
+    out = {}
+    for name in dict.fromkeys(n for n, _ in structure.columns):
+        idx = structure.index(name)
+        v = theta_global[..., idx]
+        if name == "h0":
+            out[name] = 10.0 ** (v[..., 0] / 5.0)
+        else:
+            out[name] = v if structure.band_shaped and name.startswith("pl_") else v[..., 0]
+    for name, value in structure.fixed:
+        out.setdefault(name, jnp.asarray(value))
+    return out
+
+
+def pack(structure: Structure, values: dict):
+    """Output parameters -> global vector (inverse of :func:`unpack`; ``h0`` -> a = 5 log10 H0)."""
+    import jax.numpy as jnp
+
+    parts = []
+    for name, b in structure.columns:
+        v = jnp.asarray(values[name])
+        if name == "h0":
+            v = 5.0 * jnp.log10(v)
+        parts.append(v[b] if (b is not None and jnp.ndim(v)) else v)
+    return jnp.stack(parts) if parts else jnp.zeros(0)
+
+
+def _jitted():
+    """jit-compiled versions of the solver entry points (the structure is static; compiled once per shape)."""
+    import jax
+
+    return {
+        "conditional_mean": jax.jit(conditional_mean, static_argnums=(0,), static_argnames=("include_prior",)),
+        "residuals": jax.jit(residuals, static_argnums=(0,)),
+    }
+
+
+_JIT: dict = {}
+
+
+def jit(name: str):
+    """The jit-compiled :func:`conditional_mean` or :func:`residuals` (for calls outside a traced model)."""
+    if not _JIT:
+        _JIT.update(_jitted())
+    return _JIT[name]
