@@ -1,7 +1,7 @@
 r"""Iterative sigma-clipping of a weighted linear fit (the ``outliers = "clip"`` option).
 
 The linear part of the model, :math:`y = X\theta + \epsilon` with :math:`\epsilon_i \sim \mathcal{N}(0, \sigma_i)`
-(see :mod:`ladder.linear`), is fitted by weighted least squares (Aitken 1935, Proc. R. Soc. Edinburgh 55, 42)
+(see :mod:`ladder.structure`), is fitted by weighted least squares (Aitken 1935, Proc. R. Soc. Edinburgh 55, 42)
 on the rows currently kept; every row's *normalised* residual
 
 .. math:: z_i = \frac{y_i - x_i^\top \hat\theta}{\sigma_i}

@@ -172,13 +172,15 @@ def _bias_draws(result) -> np.ndarray:
 
 def _mu_columns(result) -> dict[int, int]:
     """Galaxy index (data order) -> column of the posterior ``mu`` (galaxies with one distance)."""
-    hosts = [str(h) for h in result.idata.posterior["mu"]["host"].values]
+    mu = result.idata.posterior["mu"]
+    hosts = [str(h) for h in mu[mu.dims[-1]].values]
     return {result.data.host_names.index(h): k for k, h in enumerate(hosts)}
 
 
 def _mu_draws(result) -> np.ndarray:
     """Posterior draws of the distance moduli, (n_samples, n_mu), in the order of the posterior's ``host``."""
-    mu = result.idata.posterior["mu"].transpose("chain", "draw", "host")
+    mu = result.idata.posterior["mu"]
+    mu = mu.transpose("chain", "draw", mu.dims[-1])
     return _flat(mu)
 
 

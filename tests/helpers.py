@@ -49,8 +49,9 @@ def assert_recovers(result, truth: dict, names=None, z=RECOVERY_Z):
         x = np.asarray(post[name]).ravel()
         zs[name] = (x.mean() - truth[name]) / x.std()
     if "mu" in truth:
-        mu = np.asarray(post["mu"]).reshape(-1, post.sizes["host"])
-        for i, h in enumerate(post["host"].values):
+        dim = post["mu"].dims[-1]
+        mu = np.asarray(post["mu"]).reshape(-1, post.sizes[dim])
+        for i, h in enumerate(post[dim].values):
             if h in truth["mu"]:
                 zs[f"mu[{h}]"] = (mu[:, i].mean() - truth["mu"][h]) / mu[:, i].std()
     bad = {k: round(float(v), 2) for k, v in zs.items() if abs(v) > z}

@@ -38,7 +38,7 @@ def _host_offsets(result, truth):
     d = result.distances
     host = np.asarray(d["role"]) == "host"
     off = np.asarray(d["mu_mean"])[host] - np.array([truth["mu"][h] for h in d["host"][host]])
-    mu = np.asarray(result.idata.posterior["mu"].sel(host=list(d["host"][host])))
+    mu = np.asarray(result.idata.posterior["mu"].sel({result.idata.posterior["mu"].dims[-1]: list(d["host"][host])}))
     mean_draws = (mu - np.array([truth["mu"][h] for h in d["host"][host]])).mean(axis=-1).ravel()
     return off, mean_draws.mean() / mean_draws.std()
 
