@@ -92,3 +92,7 @@ CONDITIONAL_VS_DENSE_RTOL = 1e-8  # A^-1 b by Schur complement vs numpy.linalg.s
 EXACT_DRAW_MEAN_Z = 4.5  # 4000 exact draws: each mean within 4.5 standard errors (per-parameter false alarm ~7e-6)
 METHOD_MEAN_IN_SD = 0.1  # issue 6: methods' means within 0.1 posterior sd; MC error of a difference with ESS ~2000 each ~0.03 sd
 METHOD_SD_RTOL = 0.10  # issue 6: sds within 10%; relative MC error of an sd with ESS ~2000 is ~1.6%
+
+# --- predictive draws (tests/test_predictive.py) ---
+PREDICTIVE_KS_MIN_P = 1e-3  # KS p-value floor for 20,000 replicates vs the model's own CDF (common practice); a wrong component gives p ~ 0
+PREDICTIVE_COV_RTOL = 0.08  # 20,000 replicates: relative MC error of a covariance ~ sqrt(2/N) ~ 1% for Gaussians, a few % with exponential/mixture tails

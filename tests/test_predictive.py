@@ -1,0 +1,114 @@
+"""Replicated data at fixed parameters follow the model's own density, in every model mode.
+
+For each mode (one band; per-galaxy scatter; outlier mixture; multiband extinction; multiband + mixture) we draw
+20,000 replicates of the Cepheids with :func:`ladder.predictive.replicate_stars` and check, for one star:
+
+* each band's replicates against that band's marginal density from the model's own likelihood
+  (:func:`ladder.model.star_logpdf` with only that band observed: dropping a band is marginalising it),
+  integrated numerically into a CDF: Kolmogorov-Smirnov test (scipy.stats.kstest);
+* with several bands, the replicates' covariance against the closed form of the generative model:
+  diag(sigma^2) + E[s^2] 11^T + Var(E) a a^T with E[s^2] = s^2 + f w^2 and Var(E) = (mean E)^2 for an exponential.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+import pytest
+from scipy import stats
+
+import ladder
+from ladder.model import model_arrays, model_parts, star_logpdf
+from ladder.predictive import replicate_stars
+from ladder.simulate import MockSettings, simulate, write_mock
+from tolerances import PREDICTIVE_KS_MIN_P, PREDICTIVE_COV_RTOL
+
+N_REP = 20_000
+MODES = {
+    "one band": {},
+    "per-galaxy scatter": {"scatter_model": "per_host"},
+    "mixture": {"outliers": "mixture"},
+    "multiband": {"extinction": "multiband"},
+    "multiband + mixture": {"extinction": "multiband", "outliers": "mixture"},
+}
+
+
+@pytest.fixture(scope="module")
+def mock_run(tmp_path_factory):
+    mock = simulate(MockSettings(n_hosts=4, n_anchors=1, n_cepheids=60, reddening_law="fitzpatrick99"), seed=2)
+    paths = write_mock(mock, tmp_path_factory.mktemp("pred"))
+    cfg = ladder.load_run(paths["run"])
+    return cfg, ladder.load_data(cfg), mock.truth
+
+
+def _settings(cfg, mode):
+    change = dict(MODES[mode])
+    m = cfg.model
+    if change.get("extinction") == "multiband":
+        change.update(band="W", wesenheit=None, bands=("V", "I", "H"),
+                      wavelengths=(("V", 0.55), ("I", 0.80), ("H", 1.60)))
+    return dataclasses.replace(m, **change)
+
+
+def _params(parts, layout, settings, truth):
+    n_gal = len(layout.galaxies)
+    p = {"mu": jnp.array([truth["mu"][g] for g in layout.distance_galaxies]),
+         "metallicity_coef": jnp.asarray(-0.2), "scatter": jnp.asarray(0.08)}
+    nb = len(layout.bands) if settings.multiband else None
+    p["pl_zero_point"] = jnp.linspace(-4.0, -5.5, nb) if nb else jnp.asarray(-5.9)
+    p["pl_slope"] = jnp.linspace(-2.7, -3.2, nb) if nb else jnp.asarray(-3.3)
+    if settings.scatter_model == "per_host":
+        p["host_scatter"] = jnp.linspace(0.05, 0.15, n_gal)
+    if settings.outliers == "mixture":
+        p["outlier_fraction"] = jnp.asarray(0.2)
+    if settings.multiband:
+        p["ebv_mean"] = jnp.linspace(0.1, 0.3, n_gal)
+    return p
+
+
+@pytest.mark.parametrize("mode", list(MODES))
+def test_replicates_follow_the_model_density(mock_run, mode):
+    cfg, data, truth = mock_run
+    settings = _settings(cfg, mode)
+    arrays, layout = model_arrays(data, settings)
+    parts = model_parts(arrays, layout, settings)
+    params = _params(parts, layout, settings, truth)
+    keys = jax.random.split(jax.random.PRNGKey(7), N_REP)
+    j = int(np.flatnonzero(np.asarray(parts.star_galaxy) == len(layout.galaxies) - 1)[0])  # a star of the last galaxy
+    rep = np.asarray(jax.jit(jax.vmap(lambda k: replicate_stars(k, parts, settings, params)[j]))(keys))  # (N_REP, k)
+    from ladder.model import nonlinear_inputs, offset_var_from_params, theta_from_params
+    from ladder.structure import residuals
+
+    tl, tg = theta_from_params(parts, params)
+    pred = np.asarray(parts.observed - residuals(parts.structure, parts.lin, tl, tg))[j]
+    ov = offset_var_from_params(parts, settings, params)
+    ext, frac = nonlinear_inputs(parts, settings, params)
+    k = rep.shape[1]
+    for b in range(k):
+        # the model's marginal density of band b for star j, on a grid, from star_logpdf with only band b seen
+        sd = float(np.sqrt(parts.lin.var[j, b] + ov[j] + (settings.outlier_width**2 if frac is not None else 0)))
+        lo, hi = pred[b] - 12 * sd, pred[b] + 12 * sd + (3.0 if ext is not None else 0.0)
+        grid = np.linspace(lo, hi, 6001)
+        only_b = parts.lin.mask & (jnp.arange(k) == b)[None, :]
+        parts_b = parts._replace(lin=parts.lin._replace(mask=only_b, seen=only_b))
+
+        def dens(y):
+            resid = jnp.zeros(parts.lin.y0.shape).at[j, b].set(y - pred[b])
+            return star_logpdf(parts_b, settings, resid, ov, ext, frac)[j]
+
+        logp = np.asarray(jax.jit(jax.vmap(dens))(jnp.asarray(grid)))
+        pdf = np.exp(logp - logp.max())
+        cdf = np.concatenate([[0.0], np.cumsum(0.5 * (pdf[1:] + pdf[:-1]) * np.diff(grid))])
+        cdf /= cdf[-1]
+        p = stats.kstest(rep[:, b], lambda x: np.interp(x, grid, cdf)).pvalue
+        assert p > PREDICTIVE_KS_MIN_P, (mode, b, p)
+    if k > 1:
+        a, rate = ext
+        a = np.asarray(a)
+        e_s2 = float(ov[j]) + (float(frac) * settings.outlier_width**2 if frac is not None else 0.0)
+        var_e = float(1.0 / rate[j]) ** 2
+        cov = np.diag(np.asarray(parts.lin.var[j])) + e_s2 + var_e * np.outer(a, a)
+        np.testing.assert_allclose(np.cov(rep.T), cov, rtol=PREDICTIVE_COV_RTOL)
