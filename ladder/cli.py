@@ -34,6 +34,9 @@ def _parser() -> argparse.ArgumentParser:
     f.add_argument("--force", action="store_true", help="replace an existing non-empty output directory")
     f.add_argument("--strict", action="store_true", help="exit 3 when the diagnostics fail")
     f.add_argument("--no-plots", action="store_true", help="skip the PNG figures")
+    f.add_argument("--predictive", action="store_true",
+                   help="store replicated Cepheid magnitudes (200 posterior draws) as posterior_predictive in posterior.nc")
+    f.add_argument("--no-check", action="store_true", help="skip the posterior predictive check (ppc.ecsv, ppc.png)")
 
     c = sub.add_parser("check", help="validate the inputs of a run file and print a summary")
     c.add_argument("run", metavar="RUN.toml", help="run file")
@@ -80,9 +83,14 @@ def _fit(args) -> int:
     data = load_data(cfg)
     s = cfg.sampler
     _say(f"ladder: {data.n_hosts} galaxies ({int(data.is_anchor.sum())} anchors), {data.n_stars} Cepheids; "
-         f"NUTS {s.chains} chains x ({s.warmup} warm-up + {s.draws} draws), seed {s.seed}")
-    result = fit(data, cfg.model, cfg.sampler, cfg.diagnostics)
+         f"method {s.method}, {s.chains} chains x ({s.warmup} warm-up + {s.draws} draws), seed {s.seed}")
+    result = fit(data, cfg)
     _say(result.diagnostics.report())
+    if not args.no_check or args.predictive:
+        from .predictive import add_predictive
+
+        _say("ladder: posterior predictive check ...")
+        add_predictive(result, group=args.predictive)
     out = write_outputs(result, args.out, config=cfg, force=args.force, argv=["ladder", *sys.argv[1:]],
                         plots=not args.no_plots)
     _say(f"ladder: wrote {out}")

@@ -291,6 +291,16 @@ def fitted_data(arrays: ModelArrays, settings: ModelSettings):
     return obs[:, None], e[:, None], np.ones((obs.size, 1), bool)
 
 
+def split_static(parts: "ModelParts"):
+    """``(structure, array-only parts)``: the structure is static; everything else can be a traced argument
+    (so that jit compiles the data as arguments, not as constants folded into the program)."""
+    return parts.structure, parts._replace(structure=None)
+
+
+def with_structure(structure, array_parts: "ModelParts") -> "ModelParts":
+    return array_parts._replace(structure=structure)
+
+
 class ModelParts(NamedTuple):
     """Everything the numpyro models read: the linear structure and arrays, plus the nonlinear inputs."""
 
@@ -519,10 +529,11 @@ def nonlinear_inputs(parts: ModelParts, settings: ModelSettings, params: dict):
 
         rd = settings.reddening
         r_v = params["r_v"] if rd.free else jnp.asarray(rd.rv)
-        ebv_mean = params["ebv_mean"] if "ebv_mean" in params else \
-            jnp.full(int(parts.star_galaxy.max()) + 1, settings.prior("ebv_mean").get("value"))
-        extinction = (extinction_ratio(rd.law, jnp.asarray(parts.wavelength), r_v) * r_v,
-                      1.0 / ebv_mean[parts.star_galaxy])
+        if "ebv_mean" in params:
+            rate = 1.0 / params["ebv_mean"][parts.star_galaxy]
+        else:
+            rate = jnp.full(parts.star_galaxy.shape, 1.0 / settings.prior("ebv_mean").get("value"))
+        extinction = (extinction_ratio(rd.law, jnp.asarray(parts.wavelength), r_v) * r_v, rate)
     if settings.outliers == "mixture":
         fraction = params["outlier_fraction"] if "outlier_fraction" in params else \
             jnp.asarray(settings.prior("outlier_fraction").get("value"))

@@ -61,6 +61,13 @@ def write_outputs(result, out_dir, *, config=None, force=False, argv=None, plots
         result.parameters.write(tmp / "parameters.ecsv", format="ascii.ecsv")
         if getattr(result, "stars", None) is not None:
             result.stars.write(tmp / "stars.ecsv", format="ascii.ecsv")
+        ppc = getattr(result, "extra", {}).get("ppc")
+        if ppc is not None:
+            ppc.write(tmp / "ppc.ecsv", format="ascii.ecsv")
+            if plots:
+                from .ppc_plot import plot_predictive_check
+
+                plot_predictive_check(ppc, tmp / "ppc.png")
         for name, table in (extra_tables or {}).items():
             table.write(tmp / name, format="ascii.ecsv")
         diag = result.diagnostics.to_dict()

@@ -233,13 +233,21 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
     import jax.numpy as jnp
     from numpyro.infer import MCMC, NUTS, init_to_value
 
+    from .model import split_static, with_structure
+
+    structure, array_parts = split_static(parts)
+    bound = model
+
+    def model(ap):  # the data as a traced argument (jit_model_args), the structure and settings static
+        return bound(with_structure(structure, ap), settings, layout)
+
     kernel = NUTS(model, target_accept_prob=sampler.target_accept, max_tree_depth=sampler.max_tree_depth,
                   dense_mass=_dense_block(init) if sampler.dense_mass else False,
                   init_strategy=init_to_value(values={k: jnp.asarray(v) for k, v in init.items()}))
     method = _chain_method(sampler.chain_method, sampler.chains)
     mcmc = MCMC(kernel, num_warmup=sampler.warmup, num_samples=sampler.draws, num_chains=sampler.chains,
-                chain_method=method, progress_bar=bool(sampler.progress and sys.stderr.isatty()))
-    mcmc.run(jax.random.PRNGKey(sampler.seed), parts, settings, layout, extra_fields=_EXTRA_FIELDS)
+                chain_method=method, progress_bar=bool(sampler.progress and sys.stderr.isatty()), jit_model_args=True)
+    mcmc.run(jax.random.PRNGKey(sampler.seed), array_parts, extra_fields=_EXTRA_FIELDS)
     samples = [mcmc.get_samples(group_by_chain=True)]
     extra = [mcmc.get_extra_fields(group_by_chain=True)]
     notes, total = [], sampler.draws
@@ -256,7 +264,7 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
         mcmc.post_warmup_state = mcmc.last_state
         mcmc.num_samples = step
         mcmc._set_collection_params()
-        mcmc.run(mcmc.post_warmup_state.rng_key, parts, settings, layout, extra_fields=_EXTRA_FIELDS)
+        mcmc.run(mcmc.post_warmup_state.rng_key, array_parts, extra_fields=_EXTRA_FIELDS)
         samples.append(mcmc.get_samples(group_by_chain=True))
         extra.append(mcmc.get_extra_fields(group_by_chain=True))
         total += step
@@ -305,17 +313,17 @@ def _complete_draws(parts, settings, method, samples, chains, draws, key):
     import jax
     import jax.numpy as jnp
 
-    from .model import mu_parallax, offset_var_from_params
+    from .model import mu_parallax, offset_var_from_params, split_static, with_structure
     from .structure import conditional_draw, unpack
 
     S = chains * draws
     flat = {k: jnp.asarray(np.asarray(v).reshape((S,) + np.shape(v)[2:])) for k, v in samples.items()}
     if method == "nuts":
         return flat
-    st = parts.structure
+    st, array_parts = split_static(parts)
     fixed = {n: jnp.asarray(v) for n, v in st.fixed}
 
-    def one(x):
+    def one(x, parts):
         p, k = x
         p = {**fixed, **p}
         if "scatter" not in p:
@@ -331,7 +339,8 @@ def _complete_draws(parts, settings, method, samples, chains, draws, key):
         return out
 
     keys = jax.random.split(key, S)
-    drawn = jax.jit(lambda xs: jax.lax.map(one, xs))((flat, keys))
+    drawn = jax.jit(lambda xs, ap: jax.lax.map(lambda x: one(x, with_structure(st, ap)), xs))((flat, keys),
+                                                                                             array_parts)
     return {**flat, **drawn}
 
 
@@ -360,7 +369,11 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
         if name not in flat and settings.prior(name).dist == "fixed":
             fixed[name] = jnp.asarray(settings.prior(name).get("value"))
 
-    def body(carry, p):
+    from .model import split_static, with_structure
+
+    st, array_parts = split_static(parts)
+
+    def body(carry, p, parts):
         p = {**fixed, **p}
         out = pointwise(parts, settings, p)
         q_sum, e_sum, r_sum = carry
@@ -380,7 +393,8 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
 
     zero = (jnp.zeros(n_stars), jnp.zeros(n_stars), jnp.zeros(n_stars))
     model_keys = [k_ for k_ in flat]
-    carry, ys = jax.jit(lambda xs: jax.lax.scan(body, zero, xs))({k_: flat[k_] for k_ in model_keys})
+    carry, ys = jax.jit(lambda xs, ap: jax.lax.scan(lambda c, p: body(c, p, with_structure(st, ap)), zero, xs))(
+        {k_: flat[k_] for k_ in model_keys}, array_parts)
     derived = {"outlier_prob": np.asarray(carry[0]) / S, "ebv": np.asarray(carry[1]) / S,
                "residual": np.asarray(carry[2]) / S}
 

@@ -96,3 +96,7 @@ METHOD_SD_RTOL = 0.10  # issue 6: sds within 10%; relative MC error of an sd wit
 # --- predictive draws (tests/test_predictive.py) ---
 PREDICTIVE_KS_MIN_P = 1e-3  # KS p-value floor for 20,000 replicates vs the model's own CDF (common practice); a wrong component gives p ~ 0
 PREDICTIVE_COV_RTOL = 0.08  # 20,000 replicates: relative MC error of a covariance ~ sqrt(2/N) ~ 1% for Gaussians, a few % with exponential/mixture tails
+
+# --- total log density vs an independent implementation (tests/test_log_density.py) ---
+LOG_DENSITY_ATOL = 1e-8  # log joint ~ -1e2..1e3, same densities summed in another order by scipy: float64 rounding ~1e-12
+LOG_DENSITY_QUAD_ATOL = 1e-6  # per-star extinction integral by scipy.integrate.quad (epsrel 1e-11) and F99 from `extinction` (~1e-14)
