@@ -85,3 +85,8 @@ BIAS_Z = 3.0  # an offset beyond 3 posterior sds is a bias, not noise (one-sided
 
 # --- figures for every model variant (tests/test_plots.py) ---
 PARALLAX_MODULUS_ATOL = 0.01  # parallax stars, model residual vs the equation at the posterior-mean distance: 0.01 mag is far below what a residual panel (~1 mag over ~1 inch) shows
+
+# --- conventions (tests/test_conventions.py) ---
+BIAS_SHIFT_ATOL = 0.015  # mag; host modulus without minus with the bias term = reported bias: MC error of the difference ~0.004 (600 draws, sd ~0.05), x ~4
+MU_PRIOR_PULL_MCSE_Z = 4.0  # posterior mean vs the normal-normal closed form, in Monte Carlo standard errors (common practice)
+MU_PRIOR_SD_RTOL = 0.15  # posterior sd vs closed form; 600 draws give a relative MC error of ~1/sqrt(2 ESS) ~ 4 %, x ~4
