@@ -356,7 +356,7 @@ class _Section:
         return _Section(self.raw[k], self._key(k), self.file) if k in self.raw else None
 
 
-#: Why the Wesenheit ratio R must be fixed (issue "Correct by construction"): the fitted data change with R.
+#: Why the Wesenheit ratio R must be fixed: the fitted data would change with R.
 _UNCERTAIN_R_REASON = (
     "The fitted data W = m1 - R (m2 - m3) would change with R itself, so sampling R is an errors-in-variables "
     "regression: the colour errors pull R low (and the distances with it), and the likelihood would refer to "

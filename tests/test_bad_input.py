@@ -580,7 +580,7 @@ FULL_LADDER_TOML_CASES = [
              "model.supernovae.z_min", also=("z_max",)),
     TomlCase("toml-supernovae-sigma_v-negative", _doc("model.supernovae.sigma_v", -250.0), RUN,
              "model.supernovae.sigma_v", also=(">= 0",)),
-    TomlCase("toml-supernovae-unknown-key", _doc("model.supernovae.H0", 73.0), RUN, "model.supernovae.H0",
+    TomlCase("toml-supernovae-unknown-key", _doc("model.supernovae.H0", 68.5), RUN, "model.supernovae.H0",
              also=("unknown key",)),
     TomlCase("toml-parallax-length_scale-wide", _doc("model.parallax.length_scale_pc", "wide"), RUN,
              "model.parallax.length_scale_pc", also=("free", "'wide'")),

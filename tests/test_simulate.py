@@ -85,6 +85,7 @@ def test_names_and_roles(default_mock):
     names = list(default_mock.hosts["host"])
     assert len(set(names)) == len(names)
     assert not any(re.match(r"^(NGC|IC|UGC|PGC|ESO|M ?\d)", n) for n in names)  # no catalogue designations
+    assert MockSettings().parallax_group not in ("Milky Way", "Galaxy", "the Galaxy", "MW")  # invented, not ours
     assert list(default_mock.hosts["role"]) == ["anchor"] * 2 + ["host"] * 18
     for star, host in zip(default_mock.cepheids["star"], default_mock.cepheids["host"]):
         assert re.fullmatch(rf"{host}-c\d{{4}}", star)
