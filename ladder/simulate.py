@@ -220,8 +220,8 @@ class MockSettings:
         to whole galaxies, chosen at random) of the role-"host" galaxies. Truths ``h0``
         (68.5 km/s/Mpc), ``sn_abs_mag`` (-19.12), ``sn_scatter`` (0.12 mag), ``sigma_v``
         (250 km/s), ``q0`` (-0.55), ``j0`` (1.0); errors uniform in ``sn_mag_err``
-        (0.08, 0.12) mag. The truths are invented for the scenario: plausible, and chosen not to
-        coincide with any published measurement.
+        (0.08, 0.12) mag. The truths are invented for the scenario: plausible values, not taken
+        from any measurement.
     """
 
     # --- sample -----------------------------------------------------------------------------
