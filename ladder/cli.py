@@ -53,14 +53,14 @@ def _parser() -> argparse.ArgumentParser:
                        help=f"[sampler] {name} written into the mock's run file (default {default})")
     # further effects, each off by default; values are checked by _simulate (a bad value -> exit 2)
     for flag, metavar, help_ in (
-        ("--parallax", "N", "Cepheids with parallaxes in a Milky Way group (default 0: none)"),
+        ("--parallax", "N", "Cepheids with parallaxes in the invented home galaxy Nearfold (default 0: none)"),
         ("--outlier-fraction", "F", "fraction of host Cepheids that are blends (default 0)"),
         ("--pl-break-period", "P", "period of a PL break in days (default: no break)"),
         ("--pl-slope-long", "B", "W slope above the break (required with --pl-break-period)"),
         ("--scatter-spread", "S", "spread of the per-galaxy intrinsic scatter, log scale (default 0)"),
-        ("--bias-sd", "S", "sd of the per-galaxy photometric bias in mag (default 0)"),
+        ("--bias-sd", "S", "sd of the per-galaxy photometric bias in mag (default 0); the bias the catalogue has: observed = true + bias (positive = measured too faint), the same in every band and so in W"),
         ("--hubble-flow", "N", "supernovae in the Hubble flow, plus one per host galaxy (default 0: none)"),
-        ("--h0", "H", "true Hubble constant in km/s/Mpc (default 73)"),
+        ("--h0", "H", "true Hubble constant in km/s/Mpc (default 68.5, invented)"),
         ("--reddening-law", "LAW", "extinction ratios from ccm89 or fitzpatrick99 (default none: fixed ratios)"),
         ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
     ):

@@ -169,10 +169,16 @@ class ParallaxSettings:
 class SupernovaSettings:
     """Hubble-flow SNe Ia: kinematic expansion (q0, j0), peculiar velocities (km/s), redshift range."""
 
-    q0: float = -0.55
-    j0: float = 1.0
+    q0: float = -0.55  # flat Lambda-CDM with Omega_m = 0.3: q0 = 3 Omega_m / 2 - 1 (no radiation)
+    j0: float = 1.0  # flat Lambda-CDM: j0 = 1 exactly
     sigma_v: float = 250.0
-    z_min: float = 0.023
+    # Hubble-flow window, our own choice (not taken from any analysis):
+    # z_min = 0.025: above it a peculiar velocity of sigma_v = 250 km/s is < 3.4% of cz (c z_min = 7495 km/s), a
+    #   modulus scatter (5 / ln 10) sigma_v / (c z) < 0.073 mag, below the 0.08-0.12 mag errors
+    #   the simulator gives a supernova (ladder.simulate).
+    # z_max = 0.15: up to it the third-order kinematic expansion d_L(z; q0, j0) stays within 1e-4 (relative) of flat
+    #   Lambda-CDM with the same q0, j0 (measured 5.1e-5 at z = 0.15 in tests/test_cosmography.py).
+    z_min: float = 0.025
     z_max: float = 0.15
 
 
@@ -386,6 +392,15 @@ class _Section:
         return _Section(self.raw[k], self._key(k), self.file) if k in self.raw else None
 
 
+#: Why the Wesenheit ratio R must be fixed: the fitted data would change with R.
+_UNCERTAIN_R_REASON = (
+    "The fitted data W = m1 - R (m2 - m3) would change with R itself, so sampling R is an errors-in-variables "
+    "regression: the colour errors pull R low (and the distances with it), and the likelihood would refer to "
+    "different data at every draw. Fix R (r_err = 0, or law = true with rv_err = 0), or carry an uncertain "
+    "R_V properly with extinction = \"multiband\" (every band fitted, E(B-V) integrated out) and "
+    "[model.reddening] rv_err > 0.")
+
+
 def _parse_wesenheit(sec: _Section) -> WesenheitSettings:
     sec.check_keys({"bands", "r", "r_err", "law"})
     bands = sec.get("bands", list, None)
@@ -405,6 +420,9 @@ def _parse_wesenheit(sec: _Section) -> WesenheitSettings:
                          file=sec.file, key=sec._key("r"))
     r = sec.float_("r", 0.0)
     r_err = sec.float_("r_err", 0.0, lo=0.0)
+    if r_err > 0:
+        raise InputError(f"r_err = {r_err:g}: an uncertain Wesenheit ratio is not supported. "
+                         + _UNCERTAIN_R_REASON, file=sec.file, key=sec._key("r_err"))
     return WesenheitSettings(tuple(bands), r, r_err)  # type: ignore[arg-type]
 
 
@@ -433,12 +451,12 @@ def _parse_parallax(sec: _Section | None) -> ParallaxSettings:
     if sec is None:
         return d
     sec.check_keys({"length_scale_pc"})
-    if sec.raw.get("length_scale_pc") == "free":
-        return ParallaxSettings(None)
+    if "length_scale_pc" not in sec.raw or sec.raw["length_scale_pc"] == "free":
+        return d  # an empty [model.parallax] means what no section means: a free length scale
     if isinstance(sec.raw.get("length_scale_pc"), str):
         raise InputError(f"must be a number (pc) or \"free\", got {sec.raw['length_scale_pc']!r}", file=sec.file,
                          key=sec._key("length_scale_pc"))
-    return ParallaxSettings(length_scale_pc=sec.float_("length_scale_pc", 1350.0, lo=0.0, open_lo=True))
+    return ParallaxSettings(length_scale_pc=sec.float_("length_scale_pc", 0.0, lo=0.0, open_lo=True))
 
 
 def _parse_supernovae(sec: _Section | None) -> SupernovaSettings:
@@ -545,6 +563,10 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
             if not lo <= out.wavelength(b) <= hi:
                 raise InputError(f"{out.wavelength(b)} um is outside the range of the {out.reddening.law} law "
                                  f"({lo:.3g} - {hi:.3g} um)", file=sec.file, key=f"bands.{b}.wavelength_um")
+    if wes is not None and wes.from_law and out.reddening.free:  # see _UNCERTAIN_R_REASON
+        raise InputError(f"rv_err = {out.reddening.rv_err:g} with [model.wesenheit] law = true: an uncertain R_V "
+                         "makes the Wesenheit ratio R uncertain, which is not supported. " + _UNCERTAIN_R_REASON,
+                         file=sec.file, key="model.reddening.rv_err")
     if out.outliers == "clip" and out.multiband:
         raise InputError("outliers = \"clip\" works on one fitted magnitude; use \"mixture\" with multiband",
                          file=sec.file, key="model.outliers")

@@ -46,9 +46,9 @@ With every switch on, star :math:`k` of galaxy :math:`g` has
   at the band wavelengths ``band_wavelength_um`` and ``r_v``, instead of the fixed
   ``extinction_ratios``; the W truths then use :math:`R = a_H/(a_V - a_I)` of the law.
 * **Parallax group** (``n_parallax``): a galaxy of role ``parallax`` (``parallax_group``,
-  "Milky Way") whose stars each have their own distance :math:`d_k`, drawn from the
-  exponentially decreasing space density prior :math:`p(d) \propto d^2 e^{-d/L}`
-  (Bailer-Jones 2015, PASP 127, 994) truncated to ``parallax_distance_pc``;
+  "Nearfold", the invented home galaxy of the scenario's observers) whose stars each have
+  their own distance :math:`d_k`, drawn from the exponentially decreasing space density prior
+  :math:`p(d) \propto d^2 e^{-d/L}` (Bailer-Jones 2015, PASP 127, 994) truncated to ``parallax_distance_pc``;
   :math:`\mu_k = 5\log_{10}(d_k/10\,\mathrm{pc})` and the reported parallax is
   :math:`\varpi_k = 1000/d_k + \varpi_0 + N(0, e_\varpi)` mas.
 * **PL break** (``pl_break_period`` :math:`P_b`, ``pl_slope_long``): every band's slope above
@@ -59,7 +59,9 @@ With every switch on, star :math:`k` of galaxy :math:`g` has
   e^{s u_g}`, :math:`u_g \sim N(0, 1)`, so ``scatter`` is the population median.
 * **Photometric bias** (``bias_sd``): :math:`\beta_g \sim N(0, \sigma_\beta)` for every galaxy
   of role ``host`` (0 for anchors and the parallax group), added to all bands (W moves by
-  :math:`\beta_g` too); the hosts table reports :math:`\beta_g + N(0, e_\beta)`.
+  :math:`\beta_g` too); the hosts table reports :math:`\beta_g + N(0, e_\beta)`. Sign: the
+  catalogue *has* the bias, observed = true + :math:`\beta_g` (positive: the stars measured
+  fainter), as in docs/data-contract.md; the model adds ``bias`` to its prediction.
 * **Outliers** (``outlier_fraction`` :math:`f`): a star of a ``host`` galaxy is blended with
   probability :math:`f`; a blend is brighter in all bands by :math:`o_k` uniform in
   ``outlier_shift`` (and so is its W).
@@ -185,8 +187,8 @@ class MockSettings:
 
     Parallax group
         ``n_parallax`` (0) stars, in addition to ``n_cepheids``, in one extra galaxy
-        ``parallax_group`` ("Milky Way", role "parallax", appended after the others). Distances
-        from p(d) ~ d^2 exp(-d/L), L = ``parallax_length_scale_pc`` (1350; Bailer-Jones 2015,
+        ``parallax_group`` ("Nearfold", the invented home galaxy, role "parallax", appended
+        after the others). Distances from p(d) ~ d^2 exp(-d/L), L = ``parallax_length_scale_pc`` (1350; Bailer-Jones 2015,
         PASP 127, 994), truncated to ``parallax_distance_pc`` (300, 5000). Parallax =
         1000/d + ``parallax_offset`` (0.0 mas) + N(0, ``parallax_err_mas`` = 0.03). log10 P
         uniform in ``parallax_log_period`` (0.4, 1.8); photometric errors uniform in
@@ -208,16 +210,18 @@ class MockSettings:
 
     Photometric bias
         ``bias_sd`` (0.0): b_g ~ N(0, bias_sd) added to all magnitudes of the stars of
-        role-"host" galaxies; hosts table columns ``bias`` = b_g + N(0, ``bias_err`` = 0.02)
+        role-"host" galaxies (observed = true + b_g, so W too moves by b_g); hosts table columns ``bias`` = b_g + N(0, ``bias_err`` = 0.02)
         and ``bias_err`` (masked for anchors and the parallax group).
 
     Supernovae
         ``n_hubble_flow`` (0: no supernovae) SNe Ia in the Hubble flow, z uniform in ``sn_z``
-        (0.023, 0.15), plus one SN in each of a share ``sn_calibrator_fraction`` (1.0, rounded
+        (0.025, 0.15: the default window of :class:`ladder.config.SupernovaSettings`, where its
+        reasons are given), plus one SN in each of a share ``sn_calibrator_fraction`` (1.0, rounded
         to whole galaxies, chosen at random) of the role-"host" galaxies. Truths ``h0``
-        (73.0 km/s/Mpc), ``sn_abs_mag`` (-19.25), ``sn_scatter`` (0.12 mag), ``sigma_v``
+        (68.5 km/s/Mpc), ``sn_abs_mag`` (-19.12), ``sn_scatter`` (0.12 mag), ``sigma_v``
         (250 km/s), ``q0`` (-0.55), ``j0`` (1.0); errors uniform in ``sn_mag_err``
-        (0.08, 0.12) mag.
+        (0.08, 0.12) mag. The truths are invented for the scenario: plausible values, not taken
+        from any measurement.
     """
 
     # --- sample -----------------------------------------------------------------------------
@@ -265,7 +269,7 @@ class MockSettings:
     band_wavelength_um: tuple[float, float, float] = (0.55, 0.80, 1.60)
     # parallax group
     n_parallax: int = 0
-    parallax_group: str = "Milky Way"
+    parallax_group: str = "Nearfold"
     parallax_length_scale_pc: float = 1350.0
     parallax_distance_pc: tuple[float, float] = (300.0, 5000.0)
     parallax_offset: float = 0.0
@@ -286,11 +290,11 @@ class MockSettings:
     # supernovae
     n_hubble_flow: int = 0
     sn_calibrator_fraction: float = 1.0
-    h0: float = 73.0
-    sn_abs_mag: float = -19.25
+    h0: float = 68.5  # invented (see the class docstring)
+    sn_abs_mag: float = -19.12  # invented
     sn_scatter: float = 0.12
     sigma_v: float = 250.0
-    sn_z: tuple[float, float] = (0.023, 0.15)
+    sn_z: tuple[float, float] = (0.025, 0.15)
     sn_mag_err: tuple[float, float] = (0.08, 0.12)
     q0: float = -0.55
     j0: float = 1.0

@@ -8,9 +8,9 @@ Fixture data are real, not invented: 10 fundamental-mode Cepheids each in the La
 Magellanic Cloud from the OGLE-IV Collection of Variable Stars (Soszynski, I., et al. 2015, Acta
 Astronomica 65, 297; rows copied from /work/shared/data/ogle4_{lmc,smc}_cepheids.csv), with both
 clouds as geometric anchors (distance moduli from detached eclipsing binaries, cited at HOSTS).
-Cases of the full ladder add, where they need them, a Milky Way parallax group of four real Cepheids
-with HST trigonometric parallaxes (cited at MW_CEPHEIDS) and a supernovae table of three real type Ia
-supernovae in the Hubble flow (cited at SUPERNOVAE).
+Cases of the full ladder add, where they need them, a parallax group of four invented Cepheids in the
+invented home galaxy "Nearfold" (PARALLAX_CEPHEIDS) and a supernovae table of three invented type Ia
+supernovae in the Hubble flow (SUPERNOVAE): our own scenario, no real objects.
 """
 
 from __future__ import annotations
@@ -68,24 +68,22 @@ MAG_ERR = 0.02
 HOSTS = [("LMC", "anchor", 18.477, 0.026), ("SMC", "anchor", 18.977, 0.032)]
 # Reddening-free Wesenheit W_I = I - 1.55 (V - I) for OGLE V, I photometry (common practice).
 W_I_RATIO = 1.55
-# Milky Way Cepheids with HST Fine Guidance Sensor parallaxes (Benedict, G. F., et al. 2007, AJ 133, 1810):
-# (star, period [d], <V> [mag], <I> [mag], parallax [mas], parallax_err [mas]); all values approximate,
-# from memory. No check here depends on them: the cases only test validation.
-MW_CEPHEIDS = [
-    ("zeta Gem", 10.150, 3.918, 3.10, 2.78, 0.18),
-    ("beta Dor", 9.843, 3.731, 2.94, 3.14, 0.16),
-    ("W Sgr", 7.595, 4.668, 3.86, 2.28, 0.20),
-    ("X Sgr", 7.013, 4.549, 3.66, 3.00, 0.18),
+# Invented parallax group (our own scenario): (star, period [d], <V> [mag], <I> [mag], parallax [mas],
+# parallax_err [mas]). Plausible values for stars about 0.4 kpc away; no check here depends on them: the cases
+# only test validation.
+PARALLAX_CEPHEIDS = [
+    ("Nearfold-c0001", 9.62, 5.84, 5.02, 2.41, 0.12),
+    ("Nearfold-c0002", 6.35, 6.47, 5.73, 2.07, 0.15),
+    ("Nearfold-c0003", 12.8, 5.51, 4.62, 2.66, 0.11),
+    ("Nearfold-c0004", 4.91, 6.93, 6.26, 1.88, 0.16),
 ]
-PARALLAX_GROUP = "Milky Way"
-# Type Ia supernovae of the Calan/Tololo survey in the Hubble flow (Hamuy, M., et al. 1996, AJ 112, 2391;
-# citation from memory): (sn, host, mag [mag], mag_err [mag], z). Approximate peak B magnitudes and CMB-frame
-# redshifts, from memory, as in tests/test_supernovae.py; only validation is checked. The LMC and SMC have
-# hosted no known type Ia supernova, so this table has no calibrator of its own.
+PARALLAX_GROUP = "Nearfold"
+# Invented type Ia supernovae in the Hubble flow (our own scenario): (sn, host, mag [mag], mag_err [mag], z).
+# Only validation is checked. None is in a fixture galaxy, so this table has no calibrator of its own.
 SUPERNOVAE = [
-    ("SN 1992bc", "", 15.1, 0.05, 0.0198),
-    ("SN 1992P", "", 16.1, 0.05, 0.0265),
-    ("SN 1990O", "", 16.2, 0.05, 0.0307),
+    ("flow-sn1", "", 15.1, 0.05, 0.0198),
+    ("flow-sn2", "", 16.1, 0.05, 0.0265),
+    ("flow-sn3", "", 16.2, 0.05, 0.0307),
 ]
 
 
@@ -285,19 +283,19 @@ def _masked(t: Table) -> Table:
 
 
 def _parallax_group(r: Run):
-    """Append the Milky Way parallax group: a hosts row (role parallax) and MW_CEPHEIDS, with parallax columns."""
+    """Append the parallax group: a hosts row (role parallax) and PARALLAX_CEPHEIDS, with parallax columns."""
     hosts = _masked(r.hosts)
     hosts.add_row({c: {"host": PARALLAX_GROUP, "role": "parallax"}.get(c, 0.0) for c in hosts.colnames},
                   mask={c: c not in ("host", "role") for c in hosts.colnames})
     r.hosts = hosts
     cep = _masked(r.cepheids)
     n_old = len(cep)
-    for star, period, v, i, *_ in MW_CEPHEIDS:
+    for star, period, v, i, *_ in PARALLAX_CEPHEIDS:
         cep.add_row({"star": star, "host": PARALLAX_GROUP, "period": period, "mag_V": v, "mag_V_err": MAG_ERR,
                      "mag_I": i, "mag_I_err": MAG_ERR}, mask={c: False for c in cep.colnames})
     for k, col in ((4, "parallax"), (5, "parallax_err")):
-        values = [0.0] * n_old + [x[k] for x in MW_CEPHEIDS]
-        cep[col] = MaskedColumn(values, name=col, unit=u.mas, mask=[True] * n_old + [False] * len(MW_CEPHEIDS))
+        values = [0.0] * n_old + [x[k] for x in PARALLAX_CEPHEIDS]
+        cep[col] = MaskedColumn(values, name=col, unit=u.mas, mask=[True] * n_old + [False] * len(PARALLAX_CEPHEIDS))
     r.cepheids = cep
 
 
@@ -385,7 +383,7 @@ TABLE_CASES = [
     Case("anchor-without-mu_geo_err", _mask("hosts", "mu_geo_err", 1), HOST, "mu_geo_err", rows=(2,),
          also=("anchor",)),
     Case("anchor-without-mu_geo", _mask("hosts", "mu_geo", 0), HOST, "mu_geo", rows=(1,), also=("anchor",)),
-    Case("host-without-cepheids", _add_host("M33", "host"), HOST, "host", rows=(3,), also=("'M33'",)),
+    Case("host-without-cepheids", _add_host("Quillmoor", "host"), HOST, "host", rows=(3,), also=("'Quillmoor'",)),
     Case("unknown-role", _set("hosts", "role", 1, "anker"), HOST, "role", rows=(2,), also=("'anker'",)),
     Case("no-anchor", _all_roles("host"), HOST, "role", also=("anchor",)),
     # what the model needs, named by the run file
@@ -434,11 +432,11 @@ TOML_CASES = [
 ]
 
 # --- the full ladder (docs/contract-extensions.md) ---
-# With the parallax group the Milky Way is hosts data row 3 and its Cepheids are data rows 21-24.
+# With the parallax group, Nearfold is hosts data row 3 and its Cepheids are data rows 21-24.
 SN = "supernovae.{fmt}"
-_MW_ROWS = tuple(range(21, 21 + len(MW_CEPHEIDS)))
-_SN_2014J = ("SN 2014J", "M82", 11.8, 0.05, None)  # a real SN Ia whose host (M82) is not in the hosts table
-_SN_1006 = ("SN 1006", PARALLAX_GROUP, -7.5, 0.5, None)  # a real SN in the Milky Way (peak about -7.5, from memory)
+_PARALLAX_ROWS = tuple(range(21, 21 + len(PARALLAX_CEPHEIDS)))
+_SN_UNKNOWN_HOST = ("Quillmoor-sn1", "Quillmoor", 11.8, 0.05, None)  # invented; Quillmoor is not in the hosts table
+_SN_IN_GROUP = ("Nearfold-sn1", PARALLAX_GROUP, -7.5, 0.5, None)  # invented SN in the parallax group
 _MULTIBAND = _both(_doc("model.wesenheit", None), _doc("model.extinction", "multiband"))
 # Approximate effective wavelengths of V and I (common practice, as in ladder.simulate).
 _WAVELENGTHS = _both(_doc("bands.V.wavelength_um", 0.55), _doc("bands.I.wavelength_um", 0.80))
@@ -487,10 +485,10 @@ FULL_LADDER_CASES = [
     Case("sn-column-sn-missing", _both(_sn_table(), _drop("supernovae", "sn")), SN, "sn", also=("missing",)),
     Case("sn-column-z-missing", _both(_sn_table(), _drop("supernovae", "z")), SN, "z", rows=(1, 2, 3),
          also=("missing", "Hubble flow")),
-    Case("sn-duplicate", _both(_sn_table(), _set("supernovae", "sn", 2, "SN 1992bc")), SN, "sn", rows=(3,),
-         also=("'SN 1992bc'", "row 1")),
-    Case("sn-unknown-host", _sn_table(SUPERNOVAE + [_SN_2014J]), SN, "host", rows=(4,), also=("'M82'",)),
-    Case("sn-in-parallax-group", _both(_parallax_group, _sn_table(SUPERNOVAE + [_SN_1006])), SN, "host", rows=(4,),
+    Case("sn-duplicate", _both(_sn_table(), _set("supernovae", "sn", 2, "flow-sn1")), SN, "sn", rows=(3,),
+         also=("'flow-sn1'", "row 1")),
+    Case("sn-unknown-host", _sn_table(SUPERNOVAE + [_SN_UNKNOWN_HOST]), SN, "host", rows=(4,), also=("'Quillmoor'",)),
+    Case("sn-in-parallax-group", _both(_parallax_group, _sn_table(SUPERNOVAE + [_SN_IN_GROUP])), SN, "host", rows=(4,),
          also=(f"'{PARALLAX_GROUP}'", "parallax")),
     Case("sn-flow-without-z", _both(_sn_table(), _mask("supernovae", "z", 1)), SN, "z", rows=(2,),
          also=("redshift",)),
@@ -582,7 +580,7 @@ FULL_LADDER_TOML_CASES = [
              "model.supernovae.z_min", also=("z_max",)),
     TomlCase("toml-supernovae-sigma_v-negative", _doc("model.supernovae.sigma_v", -250.0), RUN,
              "model.supernovae.sigma_v", also=(">= 0",)),
-    TomlCase("toml-supernovae-unknown-key", _doc("model.supernovae.H0", 73.0), RUN, "model.supernovae.H0",
+    TomlCase("toml-supernovae-unknown-key", _doc("model.supernovae.H0", 68.5), RUN, "model.supernovae.H0",
              also=("unknown key",)),
     TomlCase("toml-parallax-length_scale-wide", _doc("model.parallax.length_scale_pc", "wide"), RUN,
              "model.parallax.length_scale_pc", also=("free", "'wide'")),
@@ -700,8 +698,8 @@ def test_good_fixture_with_a_parallax_group_passes_check(tmp_path, capsys):
     run.write()
     code, out, err = _run_cli(["check", run.path], capsys)
     assert code == EXIT_OK, err
-    assert f"3 galaxies (2 anchors), {20 + len(MW_CEPHEIDS)} Cepheids" in out, out
-    assert re.search(rf"^{PARALLAX_GROUP}\s+parallax\s+{len(MW_CEPHEIDS)}\s+-", out, re.M), out
+    assert f"3 galaxies (2 anchors), {20 + len(PARALLAX_CEPHEIDS)} Cepheids" in out, out
+    assert re.search(rf"^{PARALLAX_GROUP}\s+parallax\s+{len(PARALLAX_CEPHEIDS)}\s+-", out, re.M), out
 
 
 @pytest.mark.parametrize("fmt", ["ecsv", "csv"])
@@ -724,6 +722,7 @@ def test_good_supernovae_table_loads(fmt, tmp_path):
     # The Hubble-flow-only fixture table is valid as a table (the run only fails for want of a calibrator,
     # case sn-flow-without-calibrator); with the run file's default z range two of its three rows are used.
     from ladder.catalog import load_catalogues
+    from ladder.config import SupernovaSettings
     from ladder.supernovae import select_hubble_flow
 
     run = Run(tmp_path / "run", fmt=fmt)
@@ -734,7 +733,7 @@ def test_good_supernovae_table_loads(fmt, tmp_path):
     assert sne.sn_names == tuple(x[0] for x in SUPERNOVAE)
     assert sne.is_flow.all()
     np.testing.assert_array_equal(sne.z, [x[4] for x in SUPERNOVAE])
-    assert int(select_hubble_flow(sne, 0.023, 0.15).sum()) == 2
+    assert int(select_hubble_flow(sne, SupernovaSettings().z_min, SupernovaSettings().z_max).sum()) == 2
 
 
 def test_out_dir_not_empty_without_force(tmp_path, capsys):

@@ -85,6 +85,7 @@ def test_names_and_roles(default_mock):
     names = list(default_mock.hosts["host"])
     assert len(set(names)) == len(names)
     assert not any(re.match(r"^(NGC|IC|UGC|PGC|ESO|M ?\d)", n) for n in names)  # no catalogue designations
+    assert MockSettings().parallax_group not in ("Milky Way", "Galaxy", "the Galaxy", "MW")  # invented, not ours
     assert list(default_mock.hosts["role"]) == ["anchor"] * 2 + ["host"] * 18
     for star, host in zip(default_mock.cepheids["star"], default_mock.cepheids["host"]):
         assert re.fullmatch(rf"{host}-c\d{{4}}", star)
@@ -393,11 +394,11 @@ def test_parallax_tables_load_with_astropy(parallax_mock, tmp_path):
     cep = Table.read(paths["cepheids"], format="ascii.ecsv")
     hosts = Table.read(paths["hosts"], format="ascii.ecsv")
     assert cep["parallax"].unit == u.mas and cep["parallax_err"].unit == u.mas
-    group = np.asarray(cep["host"]) == "Milky Way"
+    group = np.asarray(cep["host"]) == "Nearfold"
     assert group.sum() == 2000 and len(cep) == 2300
     assert np.all(cep["parallax"].mask == ~group) and np.all(cep["parallax_err"].mask == ~group)
     assert np.all(np.asarray(cep["parallax_err"][group]) == 0.03)
-    assert hosts["host"][-1] == "Milky Way" and hosts["role"][-1] == "parallax"
+    assert hosts["host"][-1] == "Nearfold" and hosts["role"][-1] == "parallax"
     assert hosts["mu_geo"].mask[-1] and hosts["mu_geo_err"].mask[-1]
     assert list(hosts["role"][:-1]) == ["anchor"] * 2 + ["host"] * 4
     lp = np.log10(np.asarray(cep["period"][group]))
@@ -405,7 +406,7 @@ def test_parallax_tables_load_with_astropy(parallax_mock, tmp_path):
     err = np.array([np.asarray(cep[f"mag_{b}_err"][group]) for b in BANDS])
     assert err.min() >= 0.01 and err.max() <= 0.03
     t = json.loads(paths["truth"].read_text())
-    assert t["parallax_offset"] == -0.02 and "Milky Way" not in t["mu"] and t["parallax_group"] == "Milky Way"
+    assert t["parallax_offset"] == -0.02 and "Nearfold" not in t["mu"] and t["parallax_group"] == "Nearfold"
     cfg = load_run(paths["run"])
     data = load_catalogues(cfg.cepheids, cfg.hosts)  # the lead's reader takes role "parallax"
     assert data.n_stars == 2300
@@ -577,7 +578,7 @@ def test_supernova_table_and_run_file(tmp_path):
     assert data.supernovae is not None
     t = json.loads(paths["truth"].read_text())
     assert (t["h0"], t["sn_abs_mag"], t["sn_scatter"], t["sigma_v"], t["q0"], t["j0"]) == (
-        73.0, -19.25, 0.12, 250.0, -0.55, 1.0)
+        68.5, -19.12, 0.12, 250.0, -0.55, 1.0)
 
 
 def test_supernova_magnitudes_closed_form():
@@ -587,15 +588,15 @@ def test_supernova_magnitudes_closed_form():
     z = np.asarray(sn["z"])[~cal]
     np.testing.assert_array_equal(z, np.asarray(m.sn_latent["z_cosmo"])[~cal])  # sigma_v = 0: z is cosmological
     flow_mag = np.asarray(sn["mag"])[~cal]
-    np.testing.assert_allclose(flow_mag, _visser_mu(z, 73.0) - 19.25, rtol=0, atol=tol.MOCK_CLOSED_FORM_ATOL)
-    # Source: astropy.cosmology FlatLambdaCDM (reference library), H0 = 73, Om0 = 0.3
+    np.testing.assert_allclose(flow_mag, _visser_mu(z, 68.5) - 19.12, rtol=0, atol=tol.MOCK_CLOSED_FORM_ATOL)
+    # Source: astropy.cosmology FlatLambdaCDM (reference library), H0 = 68.5, Om0 = 0.3
     # (flat LCDM: q0 = 3 Om0 / 2 - 1 = -0.55, j0 = 1).
     from astropy.cosmology import FlatLambdaCDM
 
-    lcdm = FlatLambdaCDM(H0=73.0, Om0=0.3).distmod(z).value
-    np.testing.assert_allclose(flow_mag + 19.25, lcdm, rtol=0, atol=tol.MOCK_SN_VS_LCDM_ATOL)
+    lcdm = FlatLambdaCDM(H0=68.5, Om0=0.3).distmod(z).value
+    np.testing.assert_allclose(flow_mag + 19.12, lcdm, rtol=0, atol=tol.MOCK_SN_VS_LCDM_ATOL)
     mu_host = np.array([t["mu"][h] for h in np.asarray(sn["host"])[cal]])
-    np.testing.assert_allclose(np.asarray(sn["mag"])[cal], mu_host - 19.25, rtol=0, atol=tol.MOCK_CLOSED_FORM_ATOL)
+    np.testing.assert_allclose(np.asarray(sn["mag"])[cal], mu_host - 19.12, rtol=0, atol=tol.MOCK_CLOSED_FORM_ATOL)
 
 
 def test_supernovae_give_h0_and_velocity_scatter_of_their_size():
@@ -604,13 +605,13 @@ def test_supernovae_give_h0_and_velocity_scatter_of_their_size():
     cal = np.asarray(sn["z"].mask)
     m_cal = np.asarray(sn["mag"])[cal] - np.array([t["mu"][h] for h in np.asarray(sn["host"])[cal]])
     m_hat, m_se = m_cal.mean(), m_cal.std(ddof=1) / np.sqrt(cal.sum())
-    assert abs(m_hat - (-19.25)) < tol.MOCK_EFFECT_SIGMA * m_se
+    assert abs(m_hat - (-19.12)) < tol.MOCK_EFFECT_SIGMA * m_se
     # 5 log10 H0 = 5 log10(d_L(z) H0) + 25 - (m - M), per flow SN, with the reported z
     z = np.asarray(sn["z"])[~cal]
     a = _visser_mu(z, 1.0) - (np.asarray(sn["mag"])[~cal] - m_hat)
     log_h0 = a.mean() / 5
     se = np.hypot(a.std(ddof=1) / np.sqrt(a.size), m_se) / 5
-    assert abs(log_h0 - np.log10(73.0)) < tol.MOCK_EFFECT_SIGMA * se
+    assert abs(log_h0 - np.log10(68.5)) < tol.MOCK_EFFECT_SIGMA * se
     v = (z - np.asarray(lat["z_cosmo"])[~cal]) * 299792.458
     assert abs(v.std(ddof=1) - 250.0) < tol.MOCK_EFFECT_SIGMA * 250.0 / np.sqrt(2 * (v.size - 1))
     off = np.asarray(lat["offset"])

@@ -100,3 +100,7 @@ PREDICTIVE_COV_RTOL = 0.08  # 20,000 replicates: relative MC error of a covarian
 # --- total log density vs an independent implementation (tests/test_log_density.py) ---
 LOG_DENSITY_ATOL = 1e-8  # log joint ~ -1e2..1e3, same densities summed in another order by scipy: float64 rounding ~1e-12
 LOG_DENSITY_QUAD_ATOL = 1e-6  # per-star extinction integral by scipy.integrate.quad (epsrel 1e-11) and F99 from `extinction` (~1e-14)
+# --- conventions (tests/test_conventions.py) ---
+BIAS_SHIFT_ATOL = 0.015  # mag; host modulus without minus with the bias term = reported bias: MC error of the difference ~0.004 (600 draws, sd ~0.05), x ~4
+MU_PRIOR_PULL_MCSE_Z = 4.0  # posterior mean vs the normal-normal closed form, in Monte Carlo standard errors (common practice)
+MU_PRIOR_SD_RTOL = 0.15  # posterior sd vs closed form; 600 draws give a relative MC error of ~1/sqrt(2 ESS) ~ 4 %, x ~4
