@@ -781,7 +781,7 @@ def test_good_fixture_with_a_plain_host_passes_check(tmp_path, capsys):
     run.write()
     code, out, err = _run_cli(["check", run.path], capsys)
     assert code == EXIT_OK, err
-    assert "2 galaxies (1 anchors), 20 Cepheids" in out, out
+    assert "2 galaxies (1 anchor), 20 Cepheids" in out, out  # singular: one anchor
 
 
 def test_bad_input_as_a_real_process(tmp_path):
