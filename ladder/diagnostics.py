@@ -9,6 +9,7 @@ max R-hat <= 1.01, min bulk ESS >= 400 and there are no divergences; E-BFMI belo
 
 from __future__ import annotations
 
+import warnings as _warnings
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -49,11 +50,30 @@ class Diagnostics:
 
 
 def _worst(ds, reducer) -> tuple[float, str]:
-    vals = {k: float(reducer(np.asarray(v))) for k, v in ds.data_vars.items()}
+    """The worst value over all variables and elements, and its name: ``mu[<galaxy>]`` for an element of a
+    vector (labelled by the coordinates of its dimensions), the plain name for a scalar."""
+    with _warnings.catch_warnings():  # an all-NaN variable (e.g. R-hat of one chain) is NaN, not a warning
+        _warnings.simplefilter("ignore", RuntimeWarning)
+        vals = {k: float(reducer(np.asarray(v))) for k, v in ds.data_vars.items()}
+    vals = {k: v for k, v in vals.items() if np.isfinite(v)} or vals
     if not vals:
         return float("nan"), ""
     name = (max if reducer is np.nanmax else min)(vals, key=vals.get)
-    return vals[name], name
+    return vals[name], _element_name(ds[name], name, reducer)
+
+
+def _element_name(var, name: str, reducer) -> str:
+    """``name[label, ...]`` of the element where ``reducer`` is attained (``name`` for a scalar)."""
+    x = np.asarray(var, float)
+    if x.ndim == 0 or np.all(np.isnan(x)):
+        return name
+    flat = (np.nanargmax if reducer is np.nanmax else np.nanargmin)(x)
+    index = np.unravel_index(flat, x.shape)
+    labels = []
+    for dim, i in zip(var.dims, index):
+        coord = var[dim].values if dim in var.coords else None
+        labels.append(str(coord[i]) if coord is not None else str(int(i)))
+    return f"{name}[{', '.join(labels)}]"
 
 
 def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = DiagnosticThresholds()) -> Diagnostics:

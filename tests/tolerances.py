@@ -85,3 +85,6 @@ BIAS_Z = 3.0  # an offset beyond 3 posterior sds is a bias, not noise (one-sided
 
 # --- figures for every model variant (tests/test_plots.py) ---
 PARALLAX_MODULUS_ATOL = 0.01  # parallax stars, model residual vs the equation at the posterior-mean distance: 0.01 mag is far below what a residual panel (~1 mag over ~1 inch) shows
+
+# --- plausibility messages (tests/test_plausibility.py) ---
+KPC_MODULUS_ROUNDING = 0.005  # 49.59 kpc and 18.477 mag are both published to their last digit (Pietrzynski et al. 2019); 5 log10 of the rounded distance differs by < 0.005 mag
