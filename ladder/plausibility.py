@@ -40,13 +40,14 @@ LIMITS = {
                          "(common practice); smaller values are a wrong scale or a variance of a small error"),
     "period_all_below": Limit(2.0, "d", "samples for distances are of classical Cepheids of about 3-100 d; "
                               "a sample entirely below 2 d is, read as log10(P/d), one of 1-100 d"),
-    "period_log_max": Limit(3.0, "d", "log10(P/d) of the longest known classical Cepheid periods (~200 d) "
-                            "is ~2.3; no period above 3 d with 90% below 2 d looks like log10(P)"),
+    "period_log_max": Limit(3.0, "d", "log10(P/d) of the longest known classical Cepheid periods (a few "
+                            "hundred days, from memory) is ~2.3-2.5; no period above 3 d with 90% below 2 d "
+                            "looks like log10(P)"),
     "period_log_share": Limit(0.9, "", "share of periods below 2 d in the log10(P) rule above"),
     "mu_min": Limit(10.0, "mag", "mu = 10 mag is 1 kpc, inside the Milky Way (its Cepheids belong in a parallax "
                     "group); a smaller value is more likely a distance in Mpc"),
-    "mu_max": Limit(45.0, "mag", "mu = 45 mag is 10 Gpc (z ~ 1.5), beyond any Cepheid host or geometric anchor; "
-                    "a larger value is more likely a distance in kpc"),
+    "mu_max": Limit(45.0, "mag", "mu = 45 mag is 10 Gpc (a luminosity distance at z ~ 1.4), beyond any Cepheid "
+                    "host or geometric anchor; a larger value is more likely a distance in kpc"),
     "mu_err_max": Limit(1.0, "mag", "an anchor error above 1 mag (a factor 1.6 in distance) carries no "
                         "geometric information; more likely an error in kpc or Mpc"),
     "parallax_all_below": Limit(0.02, "mas", "0.02 mas is 50 kpc, outside the Milky Way: a parallax group "
