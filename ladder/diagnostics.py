@@ -15,6 +15,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from .config import DiagnosticThresholds
+from .errors import plural
 
 __all__ = ["Diagnostics", "diagnose"]
 
@@ -43,7 +44,7 @@ class Diagnostics:
         head = "diagnostics PASSED" if self.passed else "DIAGNOSTICS FAILED"
         lines = [f"{head}: max R-hat {self.max_r_hat:.4f}, min bulk ESS {self.min_ess_bulk:.0f}, "
                  f"min tail ESS {self.min_ess_tail:.0f}, divergences {self.divergences}, min E-BFMI {self.min_bfmi:.2f} "
-                 f"({self.chains} chains x {self.draws} draws, {self.wall_seconds:.1f} s)"]
+                 f"({plural(self.chains, 'chain')} x {plural(self.draws, 'draw')}, {self.wall_seconds:.1f} s)"]
         lines += [f"  FAIL: {p}" for p in self.problems]
         lines += [f"  warning: {w}" for w in self.warnings]
         return "\n".join(lines)
@@ -98,7 +99,7 @@ def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = Diagnost
     if not min_bulk >= limits.min_ess_bulk:
         problems.append(f"bulk ESS {min_bulk:.0f} < {limits.min_ess_bulk:.0f} (worst: {bulk_name})")
     if div > limits.max_divergences:
-        problems.append(f"{div} divergent transitions (limit {limits.max_divergences}); the posterior may be biased")
+        problems.append(f"{plural(div, 'divergent transition')} (limit {limits.max_divergences}); the posterior may be biased")
     if bfmi < limits.min_bfmi:
         warnings.append(f"E-BFMI {bfmi:.2f} < {limits.min_bfmi}: momentum resampling explores the energy poorly")
     return Diagnostics(divergences=div, max_r_hat=max_rhat, min_ess_bulk=min_bulk, min_ess_tail=min_tail,

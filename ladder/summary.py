@@ -11,10 +11,11 @@ __all__ = ["distances_table", "parameters_table", "stars_table", "QUANTILES", "U
 
 #: Reported quantiles: 90% and 68% central intervals and the median.
 QUANTILES = (0.05, 0.16, 0.50, 0.84, 0.95)
-#: Unit of each global parameter, as an astropy unit string (``astropy.units.Unit(UNITS[name])`` parses it).
+#: Unit of each global parameter, a string astropy parses (``astropy.units.Unit(UNITS[name])``; km/s/Mpc with a
+#: UnitsWarning about its two slashes, kept as written for readers).
 UNITS = {"pl_zero_point": "mag", "pl_slope": "mag/dex", "pl_slope_long": "mag/dex", "metallicity_coef": "mag/dex",
          "scatter": "mag", "scatter_spread": "", "wesenheit_r": "", "r_v": "", "outlier_fraction": "",
-         "parallax_offset": "mas", "parallax_length_scale": "pc", "h0": "km / (Mpc s)", "sn_abs_mag": "mag", "sn_scatter": "mag"}
+         "parallax_offset": "mas", "parallax_length_scale": "pc", "h0": "km/s/Mpc", "sn_abs_mag": "mag", "sn_scatter": "mag"}
 
 
 def _flat(x) -> np.ndarray:

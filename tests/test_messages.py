@@ -134,7 +134,7 @@ def test_headline_with_many_galaxies_shows_anchors_first_few_and_the_count():
 
 
 def test_diagnostics_name_the_worst_element():
-    # Chains that disagree on one galaxy's modulus: R-hat (and bulk ESS) point at that galaxy by name.
+    # Chains that disagree on one galaxy's modulus: R-hat (and bulk ESS) point at that galaxy by name; plurals.
     import arviz as az
 
     from ladder.diagnostics import diagnose
@@ -142,13 +142,17 @@ def test_diagnostics_name_the_worst_element():
     rng = np.random.default_rng(3)
     mu = rng.normal(size=(2, 500, 3))
     mu[1, :, 1] += 3.0  # the chains disagree on the second galaxy
+    diverging = np.zeros((2, 500), bool)
+    diverging[0, 7] = True  # one divergence: "1 divergent transition"
     idata = az.from_dict(posterior={"mu": mu, "pl_slope": rng.normal(size=(2, 500))},
-                         sample_stats={"diverging": np.zeros((2, 500), bool), "energy": rng.normal(size=(2, 500))},
+                         sample_stats={"diverging": diverging, "energy": rng.normal(size=(2, 500))},
                          coords={"host": ["Alder", "Birchwell", "Cedarholm"]}, dims={"mu": ["host"]})
     d = diagnose(idata, 1.0)
     assert not d.passed
     assert any("(worst: mu[Birchwell])" in p and p.startswith("R-hat") for p in d.problems), d.problems
     assert any("(worst: mu[Birchwell])" in p and p.startswith("bulk ESS") for p in d.problems), d.problems
+    assert any(p.startswith("1 divergent transition (limit 0)") for p in d.problems), d.problems
+    assert "(2 chains x 500 draws, 1.0 s)" in d.report()
 
 
 def _python(code, env):
