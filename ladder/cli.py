@@ -175,7 +175,8 @@ def _check(args) -> int:
     if data is None:
         return EXIT_BAD_INPUT
     print(f"run file {cfg.path}: OK" if not warned else
-          f"run file {cfg.path}: valid, with {plural(warned, 'plausibility warning')} (see above; --strict refuses)")
+          f"run file {cfg.path}: valid, with {plural(warned, 'plausibility warning')} "
+          "(see above; --strict makes them errors)")
     print(data.summary())
     if data.is_parallax_group.any():
         n = int(data.is_parallax_group[data.star_host].sum())
