@@ -2,8 +2,9 @@
 notebook warning about JAX devices, and plurals.
 
 The fit runs on the real fixture of tests/test_bad_input.py (OGLE-IV Cepheids of the Magellanic Clouds,
-Soszynski et al. 2015, AcA 65, 297; both clouds anchors), through ``ladder.cli.main`` as a user runs it,
-with one intrinsic scatter per galaxy so that a per-galaxy parameter exists.
+Soszynski et al. 2015, AcA 65, 297), through ``ladder.cli.main`` as a user runs it,
+with one intrinsic scatter per galaxy so that a per-galaxy parameter exists, the LMC as the anchor and the
+SMC as a host.
 """
 
 from __future__ import annotations
@@ -29,6 +30,7 @@ REPO = Path(__file__).resolve().parents[1]
 def fitted(tmp_path_factory):
     root = tmp_path_factory.mktemp("messages")
     run = Run(root / "run")
+    run.hosts["role"][1] = "host"  # the SMC as a plain host, its mu_geo left in the table: a plausibility warning
     run.doc["model"]["scatter"] = "per_host"
     run.doc["sampler"].update(chains=2, warmup=300, draws=300, seed=5)
     run.write()
@@ -59,7 +61,18 @@ def test_headline_prints_every_host_modulus(fitted):
 def test_plurals_in_the_fit_messages(fitted):
     _, _, stderr = fitted
     n = len(LMC_CEPHEIDS) + len(SMC_CEPHEIDS)
-    assert f"ladder: 2 galaxies (2 anchors), {n} Cepheids; NUTS 2 chains x (300 warm-up + 300 draws)" in stderr
+    assert f"ladder: 2 galaxies (1 anchor), {n} Cepheids; NUTS 2 chains x (300 warm-up + 300 draws)" in stderr
+
+
+def test_fit_prints_the_plausibility_warning_and_goes_on(fitted):
+    # Without --strict the warning comes first, one line, then the sampler runs (tests/test_plausibility.py
+    # checks the text of every warning and that --strict refuses them).
+    _, _, stderr = fitted
+    lines = stderr.splitlines()
+    warned = [i for i, ln in enumerate(lines) if ln.startswith("ladder: warning: ")]
+    assert len(warned) == 1, stderr
+    assert "hosts.ecsv: 'mu_geo': data row 2: given but not used" in lines[warned[0]], stderr
+    assert warned[0] < next(i for i, ln in enumerate(lines) if "NUTS" in ln), stderr
 
 
 def test_per_galaxy_scatter_in_the_distances_table(fitted):
@@ -87,6 +100,7 @@ def test_per_galaxy_columns_follow_the_galaxy_name_whatever_the_dimension(fitted
     import xarray as xr
 
     from ladder import load_data, load_run
+    from ladder.errors import PlausibilityWarning
     from ladder.summary import distances_table
 
     out, _, _ = fitted
@@ -104,7 +118,8 @@ def test_per_galaxy_columns_follow_the_galaxy_name_whatever_the_dimension(fitted
     else:
         new = xr.Dataset({"mu": post["mu"], "host_scatter": (("chain", "draw", "galaxy"), values)},
                          coords={"chain": post.chain, "draw": post.draw, "galaxy": names})
-    data = load_data(load_run(out.parent / "run" / "run.toml"))
+    with pytest.warns(PlausibilityWarning, match="'mu_geo'"):  # the fixture's SMC mu_geo, as in the fit
+        data = load_data(load_run(out.parent / "run" / "run.toml"))
     t = distances_table(az.InferenceData(posterior=new), data)
     for row in t:
         x = np.asarray(scat.sel({old: row["host"]})).ravel()
