@@ -420,6 +420,10 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
         raise InputError(f"host {hnames[empty[0]]!r} has no Cepheids in {file}", file=str(hosts), key="host",
                          rows=empty)
     period = _numbers(t, "period", file, "d", allow_missing=False)
+    if (period <= 0).any() and period.max() <= plausibility.LIMITS["period_log_max"].value:
+        raise InputError("must be > 0; with no period above 3 d these look like log10(P) (a star under 1 d gives a "
+                         "negative log): the column needs P in days", file=file, key="period",
+                         rows=np.flatnonzero(period <= 0))
     _positive(period, file, "period")
     bands = _bands(t, file)
     mag = np.column_stack([_numbers(t, f"mag_{b}", file, "mag", allow_missing=True) for b in bands])

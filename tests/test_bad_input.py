@@ -847,3 +847,14 @@ def test_relative_table_paths_are_taken_from_the_run_files_folder(tmp_path, caps
                 also=(str((run.dir / "tables" / "cepheids.ecsv").resolve()),
                       "relative paths are taken from the run file's folder"))
     _assert_one_clear_error(code, out, err, case, "ecsv")
+
+
+def test_log10_periods_with_a_negative_value_are_named(tmp_path, capsys):
+    # log10(P) of a star under 1 d is negative: an error (P must be > 0) whose message names the likely mistake.
+    run = Run(tmp_path / "run", fmt="csv")
+    run.cepheids["period"] = np.log10(np.asarray(run.cepheids["period"]))
+    run.cepheids["period"][4] = np.log10(0.8)  # a short-period star, as log10
+    run.write()
+    code, out, err = _run_cli(["check", run.path], capsys)
+    case = Case("log10-period-negative", None, "cepheids.csv", "period", rows=(5,), also=("> 0", "log10(P)"))
+    _assert_one_clear_error(code, out, err, case, "csv")
