@@ -13,7 +13,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
+from . import plausibility
+from .errors import InputError, plural
 
 __all__ = ["LadderData", "read_table", "load_catalogues", "ROLES"]
 
@@ -98,7 +99,8 @@ class LadderData:
         """Human-readable summary (what ``ladder check`` prints)."""
         n = self.n_cepheids
         lines = [
-            f"{self.n_hosts} galaxies ({int(self.is_anchor.sum())} anchors), {self.n_stars} Cepheids, "
+            f"{plural(self.n_hosts, 'galaxy', 'galaxies')} ({plural(self.is_anchor.sum(), 'anchor')}), "
+            f"{plural(self.n_stars, 'Cepheid')}, "
             f"bands: {', '.join(self.bands)}",
             f"periods {10 ** self.log_period.min():.3g} - {10 ** self.log_period.max():.3g} d",
         ]
@@ -106,7 +108,7 @@ class LadderData:
             m = self.mag[:, j]
             ok = np.isfinite(m)
             if ok.any():
-                lines.append(f"mag_{b}: {ok.sum()} stars, {np.nanmin(m):.2f} - {np.nanmax(m):.2f} mag, "
+                lines.append(f"mag_{b}: {plural(ok.sum(), 'star')}, {np.nanmin(m):.2f} - {np.nanmax(m):.2f} mag, "
                              f"median error {np.nanmedian(self.mag_err[:, j]):.3f} mag")
         width = max(len(h) for h in self.host_names)
         lines.append(f"{'galaxy':<{width}}  role    n_cep  mu_geo")
@@ -121,18 +123,30 @@ def read_table(path: str | Path):
     """Read an ECSV or CSV table with astropy; any failure is an :class:`InputError` naming the file."""
     from astropy.table import Table
 
-    path = Path(path)
+    path = Path(path).expanduser()
     if not path.is_file():
-        raise InputError("file not found", file=str(path))
+        raise InputError("file not found" if not path.exists() else "is not a file",
+                         file=str(path.resolve()))
     fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
     try:
-        return Table.read(path, format=fmt)
+        return Table.read(_without_bom(path), format=fmt)
     except Exception as exc:  # astropy raises many kinds; the user needs one message
         msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         failure = InputError(f"could not be read as {fmt.split('.')[1].upper()}: {msg}", file=str(path))
     if fmt == "ascii.ecsv":
         _raise_bad_ecsv_cells(path)  # a more precise message (column and rows) when one can be found
     raise failure
+
+
+_BOM = b"\xef\xbb\xbf"  # the UTF-8 byte-order mark that spreadsheet exports put before the first column name
+
+
+def _without_bom(path: Path):
+    """``path``, or the file's text without its UTF-8 byte-order mark (as lines) when it starts with one."""
+    with open(path, "rb") as fh:
+        if fh.read(len(_BOM)) != _BOM:
+            return path
+    return path.read_text(encoding="utf-8-sig").splitlines()
 
 
 def _raise_bad_ecsv_cells(path: Path) -> None:
@@ -145,10 +159,10 @@ def _raise_bad_ecsv_cells(path: Path) -> None:
     from astropy.table import meta
 
     try:
-        lines = path.read_text(encoding="utf-8").splitlines()
+        lines = path.read_text(encoding="utf-8-sig").splitlines()
         header = meta.get_header_from_yaml([ln[2:] if ln.startswith("# ") else ln[1:]
                                             for ln in lines if ln.startswith("#")])
-        text = ascii.read(path, format="basic", delimiter=header.get("delimiter", " "), comment=r"\s*#",
+        text = ascii.read(lines, format="basic", delimiter=header.get("delimiter", " "), comment=r"\s*#",
                           guess=False, fast_reader=False, converters={"*": [ascii.convert_numpy(str)]})
     except Exception:
         return
@@ -291,7 +305,8 @@ def _read_hosts(path: Path):
         raise InputError("no anchor: at least one galaxy needs role 'anchor' with mu_geo and mu_geo_err "
                          "(or role 'parallax' with star parallaxes)", file=file, key="role")
     n = len(t)
-    geo = {}
+    geo, unused = {}, {}
+    findings = []
     for col in ("mu_geo", "mu_geo_err"):
         if col not in t.colnames:
             raise InputError("required column for anchors is missing", file=file, key=col)
@@ -299,14 +314,22 @@ def _read_hosts(path: Path):
         miss = np.flatnonzero(anchor & np.isnan(geo[col]))
         if miss.size:
             raise InputError(f"anchor without {col}", file=file, key=col, rows=miss)
-        # Non-anchors carry no geometric distance in the fit.
-        geo[col] = np.where(anchor, geo[col], np.nan)
+        unused[col] = np.where(anchor, np.nan, geo[col])
+        geo[col] = np.where(anchor, geo[col], np.nan)  # non-anchors carry no geometric distance in the fit
+    # ... and a value given there is a plausibility warning (one for the pair of columns)
+    for col, other in (("mu_geo", "mu_geo_err"), ("mu_geo_err", "mu_geo")):
+        only = np.where(np.isnan(unused[other]) if col == "mu_geo_err" else True, unused[col], np.nan)
+        findings += plausibility.unused_for_role(
+            only, ~anchor, col, "only galaxies with role 'anchor' carry a geometric distance (mu_geo, mu_geo_err); "
+            "give the galaxy role 'anchor' if it has one, or leave these cells empty")
     bad = np.flatnonzero(anchor & ~(geo["mu_geo_err"] > 0))
     if bad.size:
         raise InputError("must be > 0", file=file, key="mu_geo_err", rows=bad)
+    findings += plausibility.geometric_moduli(geo["mu_geo"], geo["mu_geo_err"], anchor)
     oh = _numbers(t, "oh", file, "dex", allow_missing=True) if "oh" in t.colnames else np.full(n, np.nan)
+    findings += plausibility.metallicities(oh)
     bias, bias_err = _optional_pair(t, "bias", "bias_err", file, n)
-    return t, names, roles, geo["mu_geo"], geo["mu_geo_err"], oh, bias, bias_err
+    return t, names, roles, geo["mu_geo"], geo["mu_geo_err"], oh, bias, bias_err, findings
 
 
 def _optional_pair(t, col, err_col, file, n, unit="mag"):
@@ -379,7 +402,7 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
         naming the file, the column and the first offending rows.
     """
     hosts, cepheids = Path(hosts), Path(cepheids)
-    _, hnames, roles, mu_geo, mu_geo_err, host_oh, bias, bias_err = _read_hosts(hosts)
+    _, hnames, roles, mu_geo, mu_geo_err, host_oh, bias, bias_err, host_findings = _read_hosts(hosts)
     file = str(cepheids)
     t = read_table(cepheids)
     _require(t, ["star", "host", "period"], file)
@@ -397,6 +420,10 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
         raise InputError(f"host {hnames[empty[0]]!r} has no Cepheids in {file}", file=str(hosts), key="host",
                          rows=empty)
     period = _numbers(t, "period", file, "d", allow_missing=False)
+    if (period <= 0).any() and period.max() <= plausibility.LIMITS["period_log_max"].value:
+        raise InputError("must be > 0; with no period above 3 d these look like log10(P) (a star under 1 d gives a "
+                         "negative log): the column needs P in days", file=file, key="period",
+                         rows=np.flatnonzero(period <= 0))
     _positive(period, file, "period")
     bands = _bands(t, file)
     mag = np.column_stack([_numbers(t, f"mag_{b}", file, "mag", allow_missing=True) for b in bands])
@@ -414,6 +441,21 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
     in_group = np.asarray(roles, dtype=object)[star_host] == "parallax"
     groups = [h for h, r in zip(hnames, roles) if r == "parallax"]
     parallax, parallax_err = _parallaxes(t, file, in_group, groups)
+    # Valid but implausible values (unit mistakes): warnings, issued once both tables are valid.
+    findings = plausibility.periods(period)
+    for j, b in enumerate(bands):
+        findings += plausibility.magnitude_errors(err[:, j], f"mag_{b}_err")
+    findings += plausibility.metallicities(star_oh)
+    findings += plausibility.parallaxes(parallax, in_group)
+    given = {col: _numbers(t, col, file, "mas", allow_missing=True) if col in t.colnames else np.full(len(t), np.nan)
+             for col in ("parallax", "parallax_err")}
+    key = "parallax" if np.isfinite(given["parallax"][~in_group]).any() else "parallax_err"
+    findings += plausibility.unused_for_role(
+        np.where(np.isfinite(given["parallax"]), given["parallax"], given["parallax_err"]), ~in_group, key,
+        "only stars of galaxies with role 'parallax' use parallaxes (parallax, parallax_err); leave these cells "
+        "empty, or give the star's galaxy role 'parallax'")
+    plausibility.warn(host_findings, str(hosts))
+    plausibility.warn(findings, file)
     sne = None
     if supernovae is not None:
         from .supernovae import load_supernovae

@@ -1,8 +1,9 @@
 """Command line: a thin skin over the Python API.
 
-``ladder fit RUN.toml --out DIR [--strict] [--force]``, ``ladder check RUN.toml``,
-``ladder simulate --out DIR [--seed N] ...``. Exit codes: 0 ok, 2 bad input, 3 failed
-diagnostics under ``--strict``.
+``ladder fit RUN.toml --out DIR [--strict] [--force]``, ``ladder check RUN.toml [--strict]``,
+``ladder simulate --out DIR [--seed N] ...``. Exit codes: 0 ok, 2 bad input (and, under ``--strict``,
+implausible input), 3 failed diagnostics under ``--strict``. Implausible values (likely unit mistakes,
+:mod:`ladder.plausibility`) are printed as ``ladder: warning: ...``, one line each.
 """
 
 from __future__ import annotations
@@ -12,7 +13,7 @@ import sys
 
 import numpy as np
 
-from .errors import InputError
+from .errors import InputError, plural
 
 __all__ = ["main", "EXIT_OK", "EXIT_BAD_INPUT", "EXIT_DIAGNOSTICS"]
 
@@ -32,7 +33,8 @@ def _parser() -> argparse.ArgumentParser:
     f.add_argument("run", metavar="RUN.toml", help="run file")
     f.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
     f.add_argument("--force", action="store_true", help="replace an existing non-empty output directory")
-    f.add_argument("--strict", action="store_true", help="exit 3 when the diagnostics fail")
+    f.add_argument("--strict", action="store_true",
+                   help="refuse implausible input (exit 2) and exit 3 when the diagnostics fail")
     f.add_argument("--no-plots", action="store_true", help="skip the PNG figures")
     f.add_argument("--predictive", action="store_true",
                    help="store replicated Cepheid magnitudes (200 posterior draws) as posterior_predictive in posterior.nc")
@@ -40,6 +42,7 @@ def _parser() -> argparse.ArgumentParser:
 
     c = sub.add_parser("check", help="validate the inputs of a run file and print a summary")
     c.add_argument("run", metavar="RUN.toml", help="run file")
+    c.add_argument("--strict", action="store_true", help="refuse implausible input (exit 2) instead of warning")
 
     s = sub.add_parser("simulate", help="write a mock universe (catalogues, run file, truth)")
     s.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
@@ -75,15 +78,18 @@ def _version() -> str:
 
 
 def _fit(args) -> int:
-    from . import fit, load_data, load_run
+    from . import fit, load_run
     from .outputs import check_out_dir, write_outputs
 
     cfg = load_run(args.run)
     check_out_dir(args.out, args.force)
-    data = load_data(cfg)
+    data, warned = _load_data(cfg, args.strict)
+    if data is None:
+        return EXIT_BAD_INPUT
     s = cfg.sampler
-    _say(f"ladder: {data.n_hosts} galaxies ({int(data.is_anchor.sum())} anchors), {data.n_stars} Cepheids; "
-         f"method {s.method}, {s.chains} chains x ({s.warmup} warm-up + {s.draws} draws), seed {s.seed}")
+    _say(f"ladder: {plural(data.n_hosts, 'galaxy', 'galaxies')} ({plural(data.is_anchor.sum(), 'anchor')}), "
+         f"{plural(data.n_stars, 'Cepheid')}; method {s.method}, {plural(s.chains, 'chain')} x ({s.warmup} warm-up + "
+         f"{plural(s.draws, 'draw')}), seed {s.seed}")
     result = fit(data, cfg)
     _say(result.diagnostics.report())
     if not args.no_check or args.predictive:
@@ -103,19 +109,82 @@ def _fit(args) -> int:
     return EXIT_OK
 
 
+# ----------------------------------------------------------------------------- plausibility warnings
+def _load_data(cfg, strict: bool):
+    """``load_data`` with its :class:`~ladder.errors.PlausibilityWarning` s printed one line each.
+
+    Returns ``(data, n_warnings)``; under ``strict`` the warnings are printed as errors and ``(None, n)``
+    is returned (exit 2, before anything is written). When the input is invalid, the :class:`InputError`
+    propagates alone: the warnings of a half-read input are not shown.
+    """
+    import warnings
+
+    from . import load_data
+    from .errors import PlausibilityWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        data = load_data(cfg)
+    found = [w for w in caught if issubclass(w.category, PlausibilityWarning)]
+    for w in caught:  # anything else is passed on as it came
+        if not issubclass(w.category, PlausibilityWarning):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    kind = "error" if strict else "warning"
+    for w in found:
+        _say(f"ladder: {kind}: {w.message}")
+    if strict and found:
+        _say(f"ladder: --strict: refused {plural(len(found), 'implausible input')} (without --strict "
+             f"{'it is a warning' if len(found) == 1 else 'they are warnings'}); nothing was written")
+        return None, len(found)
+    return data, len(found)
+
+
+#: The post-fit summary lists every distance modulus up to this many galaxies, else the anchors and the first few.
+_HEADLINE_ALL_GALAXIES = 12
+_HEADLINE_FIRST_HOSTS = 5
+
+
+def _interval(q16: float, q50: float, q84: float) -> str:
+    return f"{q50:.4f} (+{q84 - q50:.4f} -{q50 - q16:.4f})"
+
+
 def _headline(result) -> str:
+    """Global parameters, then the galaxies' distance moduli (all, or the anchors + the first few + the count)."""
     lines = []
     for row in result.parameters:
-        lines.append(f"{row['name']:>18s} = {row['q50']:.4f} (+{row['q84'] - row['q50']:.4f} -{row['q50'] - row['q16']:.4f})")
+        lines.append(f"{row['name']:>18s} = {_interval(row['q16'], row['q50'], row['q84'])}")
+    dist = result.distances
+    if dist is None or len(dist) == 0:
+        return "\n".join(lines)
+    n = len(dist)
+    roles = [str(r) for r in dist["role"]]
+    if n <= _HEADLINE_ALL_GALAXIES:
+        shown = list(range(n))
+    else:
+        anchors = [i for i in range(n) if roles[i] == "anchor"]
+        others = [i for i in range(n) if roles[i] != "anchor"][:_HEADLINE_FIRST_HOSTS]
+        shown = anchors + others
+    lines.append(f"distance moduli (median, 68% interval; mag) of {plural(n, 'galaxy', 'galaxies')}:")
+    for i in shown:
+        label = f"mu[{dist['host'][i]}]"
+        value = _interval(*(float(np.asarray(dist[f"mu_q{q}"][i])) for q in ("16", "50", "84")))
+        lines.append(f"{label:>18s} = {value}  {roles[i]}")
+    if len(shown) < n:
+        lines.append(f"{'':>18s}   ... and {plural(n - len(shown), 'more galaxy', 'more galaxies')} "
+                     "(all in distances.ecsv)")
     return "\n".join(lines)
 
 
 def _check(args) -> int:
-    from . import load_data, load_run
+    from . import load_run
 
     cfg = load_run(args.run)
-    data = load_data(cfg)
-    print(f"run file {cfg.path}: OK")
+    data, warned = _load_data(cfg, args.strict)
+    if data is None:
+        return EXIT_BAD_INPUT
+    print(f"run file {cfg.path}: OK" if not warned else
+          f"run file {cfg.path}: valid, with {plural(warned, 'plausibility warning')} "
+          "(see above; --strict makes them errors)")
     print(data.summary())
     if data.is_parallax_group.any():
         n = int(data.is_parallax_group[data.star_host].sum())

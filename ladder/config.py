@@ -629,8 +629,18 @@ def _parse_diagnostics(sec: _Section | None) -> DiagnosticThresholds:
     )
 
 
+#: How table paths of the run file are read (also said in the messages about them).
+PATH_RULE = "relative paths are taken from the run file's folder; ~ is your home folder"
+
+
+def _table_path(text: str, base: Path) -> Path:
+    """A ``[data]`` path: ``~`` expanded, relative paths taken from ``base`` (the run file's folder)."""
+    p = Path(text).expanduser()
+    return p if p.is_absolute() else base / p
+
+
 def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> RunConfig:
-    """Validate a parsed run-file mapping; relative data paths are taken relative to ``base``."""
+    """Validate a parsed run-file mapping; data paths: ``~`` expanded, relative ones taken from ``base``."""
     top = _Section(raw, "", file)
     top.check_keys({"data", "model", "sampler", "diagnostics", "bands", "output"})
     data = top.sub("data")
@@ -645,8 +655,7 @@ def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> Run
                 paths[k] = None
                 continue
             raise InputError("is required: a path to the table, relative to the run file", file=file, key=f"data.{k}")
-        p = Path(v)
-        paths[k] = p if p.is_absolute() else (base / p)
+        paths[k] = _table_path(v, base)
     return RunConfig(
         path=None,
         cepheids=paths["cepheids"],
@@ -661,11 +670,13 @@ def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> Run
 
 def load_run(path: str | Path) -> RunConfig:
     """Read and validate a run file (TOML). Raises :class:`InputError` on any problem."""
-    path = Path(path)
+    path = Path(path).expanduser()
     if not path.is_file():
-        raise InputError("run file not found", file=str(path))
+        raise InputError("run file not found" if not path.exists() else "run file is not a file",
+                         file=str(path))
     try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+        # utf-8-sig: a byte-order mark (some editors on Windows write one) is not part of the TOML.
+        raw = tomllib.loads(path.read_text(encoding="utf-8-sig"))
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"malformed TOML: {exc}", file=str(path)) from None
     except UnicodeDecodeError:
@@ -674,5 +685,5 @@ def load_run(path: str | Path) -> RunConfig:
     for key, table in (("data.cepheids", cfg.cepheids), ("data.hosts", cfg.hosts), ("data.supernovae", cfg.supernovae)):
         if table is not None and not table.is_file():
             what = "is not a file" if table.exists() else "not found"
-            raise InputError(f"table {what}: {table}", file=str(path), key=key)
+            raise InputError(f"table {what}: {table.resolve()} ({PATH_RULE})", file=str(path), key=key)
     return dataclasses.replace(cfg, path=path)

@@ -9,11 +9,13 @@ max R-hat <= 1.01, min bulk ESS >= 400 and there are no divergences; E-BFMI belo
 
 from __future__ import annotations
 
+import warnings as _warnings
 from dataclasses import asdict, dataclass
 
 import numpy as np
 
 from .config import DiagnosticThresholds
+from .errors import plural
 
 __all__ = ["Diagnostics", "diagnose"]
 
@@ -45,7 +47,7 @@ class Diagnostics:
         head = "diagnostics PASSED" if self.passed else "DIAGNOSTICS FAILED"
         lines = [f"{head}: max R-hat {self.max_r_hat:.4f}, min bulk ESS {self.min_ess_bulk:.0f}, "
                  f"min tail ESS {self.min_ess_tail:.0f}, divergences {self.divergences}, min E-BFMI {self.min_bfmi:.2f} "
-                 f"({self.method}, {self.chains} chains x {self.draws} draws, {self.wall_seconds:.1f} s)"]
+                 f"({self.method}, {plural(self.chains, 'chain')} x {plural(self.draws, 'draw')}, {self.wall_seconds:.1f} s)"]
         lines += [f"  FAIL: {p}" for p in self.problems]
         lines += [f"  warning: {w}" for w in self.warnings]
         lines += [f"  note: {n}" for n in self.notes]
@@ -53,11 +55,30 @@ class Diagnostics:
 
 
 def _worst(ds, reducer) -> tuple[float, str]:
-    vals = {k: float(reducer(np.asarray(v))) for k, v in ds.data_vars.items()}
+    """The worst value over all variables and elements, and its name: ``mu[<galaxy>]`` for an element of a
+    vector (labelled by the coordinates of its dimensions), the plain name for a scalar."""
+    with _warnings.catch_warnings():  # an all-NaN variable (e.g. R-hat of one chain) is NaN, not a warning
+        _warnings.simplefilter("ignore", RuntimeWarning)
+        vals = {k: float(reducer(np.asarray(v))) for k, v in ds.data_vars.items()}
+    vals = {k: v for k, v in vals.items() if np.isfinite(v)} or vals
     if not vals:
         return float("nan"), ""
     name = (max if reducer is np.nanmax else min)(vals, key=vals.get)
-    return vals[name], name
+    return vals[name], _element_name(ds[name], name, reducer)
+
+
+def _element_name(var, name: str, reducer) -> str:
+    """``name[label, ...]`` of the element where ``reducer`` is attained (``name`` for a scalar)."""
+    x = np.asarray(var, float)
+    if x.ndim == 0 or np.all(np.isnan(x)):
+        return name
+    flat = (np.nanargmax if reducer is np.nanmax else np.nanargmin)(x)
+    index = np.unravel_index(flat, x.shape)
+    labels = []
+    for dim, i in zip(var.dims, index):
+        coord = var[dim].values if dim in var.coords else None
+        labels.append(str(coord[i]) if coord is not None else str(int(i)))
+    return f"{name}[{', '.join(labels)}]"
 
 
 def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = DiagnosticThresholds(), *,
@@ -89,7 +110,7 @@ def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = Diagnost
     if not min_bulk >= limits.min_ess_bulk:
         problems.append(f"bulk ESS {min_bulk:.0f} < {limits.min_ess_bulk:.0f} (worst: {bulk_name})")
     if div > limits.max_divergences:
-        problems.append(f"{div} divergent transitions (limit {limits.max_divergences}); the posterior may be biased")
+        problems.append(f"{plural(div, 'divergent transition')} (limit {limits.max_divergences}); the posterior may be biased")
     if bfmi < limits.min_bfmi:
         warnings.append(f"E-BFMI {bfmi:.2f} < {limits.min_bfmi}: momentum resampling explores the energy poorly")
     return Diagnostics(divergences=div, max_r_hat=max_rhat, min_ess_bulk=min_bulk, min_ess_tail=min_tail,

@@ -1,10 +1,10 @@
-"""The one exception a user sees for bad input."""
+"""The one exception a user sees for bad input, and the one warning for implausible input."""
 
 from __future__ import annotations
 
 from collections.abc import Sequence
 
-__all__ = ["InputError"]
+__all__ = ["InputError", "PlausibilityWarning", "plural"]
 
 _MAX_ROWS_SHOWN = 5
 
@@ -33,16 +33,44 @@ class InputError(ValueError):
         super().__init__(self.format())
 
     def format(self) -> str:
-        parts = []
-        if self.file:
-            parts.append(self.file)
-        if self.key:
-            parts.append(f"'{self.key}'")
-        if self.rows:
-            shown = ", ".join(str(r + 1) for r in self.rows[:_MAX_ROWS_SHOWN])
-            more = len(self.rows) - _MAX_ROWS_SHOWN
-            tail = f" (and {more} more)" if more > 0 else ""
-            word = "row" if len(self.rows) == 1 else "rows"
-            parts.append(f"data {word} {shown}{tail}")
-        where = ": ".join(parts)
-        return f"{where}: {self.message}" if where else self.message
+        return _format(self.message, self.file, self.key, self.rows)
+
+
+def plural(n: int, word: str, many: str | None = None) -> str:
+    """``"1 anchor"``, ``"2 anchors"``; ``many`` for irregular plurals (``plural(n, "galaxy", "galaxies")``)."""
+    n = int(n)
+    return f"{n} {word if n == 1 else (many or word + 's')}"
+
+
+def _format(message, file, key, rows) -> str:
+    """``file: 'key': data rows 1, 2: message`` (the parts that are known)."""
+    parts = []
+    if file:
+        parts.append(file)
+    if key:
+        parts.append(f"'{key}'")
+    if rows:
+        shown = ", ".join(str(r + 1) for r in rows[:_MAX_ROWS_SHOWN])
+        more = len(rows) - _MAX_ROWS_SHOWN
+        tail = f" (and {more} more)" if more > 0 else ""
+        word = "row" if len(rows) == 1 else "rows"
+        parts.append(f"data {word} {shown}{tail}")
+    where = ": ".join(parts)
+    return f"{where}: {message}" if where else message
+
+
+class PlausibilityWarning(UserWarning):
+    """A valid number that is implausible for its column (most often a unit mistake).
+
+    Same parts as :class:`InputError` (file, column or key, rows, what is likely wrong). ``ladder check``
+    and ``ladder fit`` print each as ``ladder: warning: ...``; with ``--strict`` they are errors (exit 2).
+    From Python, turn them into exceptions with ``warnings.simplefilter("error", PlausibilityWarning)``.
+    """
+
+    def __init__(self, message: str, *, file: str | None = None, key: str | None = None,
+                 rows: Sequence[int] | None = None):
+        self.message = message
+        self.file = None if file is None else str(file)
+        self.key = key
+        self.rows = None if rows is None else [int(r) for r in rows]
+        super().__init__(_format(self.message, self.file, self.key, self.rows))

@@ -11,6 +11,8 @@ __all__ = ["distances_table", "parameters_table", "stars_table", "QUANTILES", "U
 
 #: Reported quantiles: 90% and 68% central intervals and the median.
 QUANTILES = (0.05, 0.16, 0.50, 0.84, 0.95)
+#: Unit of each global parameter, a string astropy parses (``astropy.units.Unit(UNITS[name])``; km/s/Mpc with a
+#: UnitsWarning about its two slashes, kept as written for readers).
 UNITS = {"pl_zero_point": "mag", "pl_slope": "mag/dex", "pl_slope_long": "mag/dex", "metallicity_coef": "mag/dex",
          "scatter": "mag", "scatter_spread": "", "wesenheit_r": "", "r_v": "", "outlier_fraction": "",
          "parallax_offset": "mas", "parallax_length_scale": "pc", "h0": "km/s/Mpc", "sn_abs_mag": "mag", "sn_scatter": "mag"}
@@ -46,8 +48,50 @@ def distances_table(idata, data: LadderData):
         t[f"distance_mpc_q{round(p * 100):02d}"] = modulus_to_mpc(np.quantile(mu, p, axis=0)) * u.Mpc
     t["r_hat"] = rhat
     t["ess_bulk"] = ess
-    t.meta["description"] = "Posterior distance moduli (mag) and distances (Mpc) of every galaxy with one distance"
+    added = _per_galaxy_columns(t, idata.posterior, hosts, data.host_names)
+    t.meta["description"] = ("Posterior distance moduli (mag) and distances (Mpc) of every galaxy with one distance"
+                             + (f"; per-galaxy parameters {', '.join(added)} (mean, sd)" if added else ""))
     return t
+
+
+#: Units of the per-galaxy parameters (posterior variables with one value per galaxy) in the distances table.
+PER_GALAXY_UNITS = {"host_scatter": "mag", "ebv_mean": "mag", "photometric_bias": "mag"}
+#: Posterior variables that are not reported per galaxy: the moduli themselves (columns mu_*) and the sampler's
+#: standardised auxiliaries (``<name>_z``: the parameter divided by its scale, no meaning of its own).
+_NOT_PER_GALAXY = ("mu",)
+
+
+def _per_galaxy_columns(t, post, hosts, galaxies) -> list[str]:
+    """Add ``<name>_mean``, ``<name>_sd`` for each posterior variable with one value per galaxy.
+
+    A variable counts when it has a single dimension besides chain and draw whose coordinates are galaxy
+    names of the hosts table, ``galaxies`` (the dimension may be named ``galaxy``, ``host`` or otherwise); it is
+    looked up by galaxy name for the rows ``hosts``, and rows of galaxies it has no value for are masked (e.g. a
+    galaxy without a bias estimate).
+    """
+    import astropy.units as u
+    from astropy.table import MaskedColumn
+
+    known, rows = set(galaxies), set(hosts)
+    added = []
+    for name in sorted(post.data_vars):
+        if name in _NOT_PER_GALAXY or name.endswith("_z"):
+            continue
+        var = post[name]
+        dims = [d for d in var.dims if d not in ("chain", "draw")]
+        if len(dims) != 1 or dims[0] not in var.coords:
+            continue
+        labels = [str(v) for v in var[dims[0]].values]
+        if not labels or not set(labels) <= known or not set(labels) & rows:
+            continue
+        x = _flat(var)  # (samples, n_labels)
+        where = {lab: i for i, lab in enumerate(labels)}
+        unit = u.Unit(PER_GALAXY_UNITS.get(name, ""))
+        for stat, values in (("mean", x.mean(axis=0)), ("sd", x.std(axis=0, ddof=1))):
+            col = np.array([values[where[h]] if h in where else np.nan for h in hosts])
+            t[f"{name}_{stat}"] = MaskedColumn(col, mask=~np.isfinite(col), unit=unit)
+        added.append(name)
+    return added
 
 
 def parameters_table(idata, names):
@@ -73,7 +117,10 @@ def parameters_table(idata, names):
                          float(rhat[n].sel(sel)), float(ess_b[n].sel(sel)), float(ess_t[n].sel(sel)), UNITS.get(n, "")))
     cols = ["name", "mean", "sd", *[f"q{round(p * 100):02d}" for p in QUANTILES], "r_hat", "ess_bulk", "ess_tail", "unit"]
     t = Table(rows=rows, names=cols, dtype=[str] + [float] * (len(cols) - 2) + [str]) if rows else Table(names=cols)
-    t.meta["description"] = "Posterior summaries of the global parameters (units in column 'unit')"
+    # The rows have different units, so the value columns cannot carry one: each row's unit is in column 'unit',
+    # a string astropy parses (``row['q50'] * astropy.units.Unit(row['unit'])``).
+    t.meta["description"] = ("Posterior summaries of the global parameters; the unit of each row's values is in "
+                             "column 'unit' (an astropy unit string; empty: dimensionless)")
     return t
 
 

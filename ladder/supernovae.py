@@ -25,8 +25,9 @@ from pathlib import Path
 
 import numpy as np
 
+from . import plausibility
 from .catalog import _numbers, _positive, _require, _strings, _unique, read_table
-from .errors import InputError
+from .errors import InputError, plural
 
 __all__ = ["SupernovaData", "load_supernovae", "select_hubble_flow", "HUBBLE_FLOW", "SN_HOST_ROLES"]
 
@@ -81,8 +82,9 @@ class SupernovaData:
         """Human-readable summary; with ``z_min``/``z_max`` also the Hubble-flow rows in that range."""
         flow, cal = self.is_flow, self.is_calibrator
         n_gal = len(np.unique(self.host_index[cal]))
-        head = (f"{self.n_sn} supernovae ({self.file}): {int(cal.sum())} calibrators in {n_gal} "
-                f"galax{'y' if n_gal == 1 else 'ies'}, {int(flow.sum())} in the Hubble flow")
+        head = (f"{plural(self.n_sn, 'supernova', 'supernovae')} ({self.file}): "
+                f"{plural(cal.sum(), 'calibrator')} in {plural(n_gal, 'galaxy', 'galaxies')}, "
+                f"{int(flow.sum())} in the Hubble flow")
         if flow.any():
             zf = self.z[flow]
             head += f" (z {zf.min():.4g} - {zf.max():.4g})"
@@ -218,5 +220,6 @@ def load_supernovae(path: str | Path, host_names: Sequence[str], host_roles: Seq
     if bad.size:
         raise InputError("must be > 0", file=file, key="z", rows=bad)
 
+    plausibility.warn(plausibility.magnitude_errors(mag_err, "mag_err") + plausibility.redshifts(z), file)
     return SupernovaData(sn_names=tuple(str(s) for s in names), host_index=host_index, mag=mag,
                          mag_err=mag_err, z=z, file=file, host_names=tuple(host_names))

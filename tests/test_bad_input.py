@@ -780,7 +780,7 @@ def test_good_fixture_with_a_plain_host_passes_check(tmp_path, capsys):
     run.write()
     code, out, err = _run_cli(["check", run.path], capsys)
     assert code == EXIT_OK, err
-    assert "2 galaxies (1 anchors), 20 Cepheids" in out, out
+    assert "2 galaxies (1 anchor), 20 Cepheids" in out, out  # singular: one anchor
 
 
 def test_bad_input_as_a_real_process(tmp_path):
@@ -798,3 +798,62 @@ def test_bad_input_as_a_real_process(tmp_path):
     assert len(error_lines) == 1, proc.stderr
     assert "cepheids.ecsv" in error_lines[0] and "'host'" in error_lines[0] and "data row 15" in error_lines[0]
     assert not out_dir.exists()
+
+
+# ----------------------------------------------------------------------------- forgiving inputs
+_BOM = "\ufeff"  # the UTF-8 byte-order mark a spreadsheet's "CSV UTF-8" export (or a Windows editor) writes first
+
+
+@pytest.mark.parametrize("fmt", ["ecsv", "csv"])
+def test_byte_order_mark_in_tables_and_run_file_is_accepted(fmt, tmp_path, capsys):
+    plain = Run(tmp_path / "plain", fmt=fmt)
+    plain.write()
+    code, expected, err = _run_cli(["check", plain.path], capsys)
+    assert code == EXIT_OK, err
+    run = Run(tmp_path / "bom", fmt=fmt)
+    run.write()
+    for p in (run.dir / f"cepheids.{fmt}", run.dir / f"hosts.{fmt}", run.path):
+        p.write_text(_BOM + p.read_text(encoding="utf-8"), encoding="utf-8")
+        assert p.read_bytes().startswith(b"\xef\xbb\xbf")
+    code, out, err = _run_cli(["check", run.path], capsys)
+    assert code == EXIT_OK and err == "", err
+    assert out.replace(str(run.path), "RUN") == expected.replace(str(plain.path), "RUN")
+
+
+def test_table_paths_expand_the_home_folder(tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("HOME", str(tmp_path))
+    run = Run(tmp_path / "run")
+    run.doc["data"] = {"cepheids": "~/run/cepheids.ecsv", "hosts": "~/run/hosts.ecsv"}
+    run.write()
+    code, out, err = _run_cli(["check", run.path], capsys)
+    assert code == EXIT_OK, err
+    assert "2 galaxies (2 anchors), 20 Cepheids" in out, out
+
+
+def test_relative_table_paths_are_taken_from_the_run_files_folder(tmp_path, capsys, monkeypatch):
+    run = Run(tmp_path / "project" / "run")
+    run.write()
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)  # the tables are not in the working folder, only beside the run file
+    code, out, err = _run_cli(["check", Path("..") / "project" / "run" / "run.toml"], capsys)
+    assert code == EXIT_OK, err
+    # a missing table is named by its resolved path, with the rule
+    run.doc["data"]["cepheids"] = "tables/cepheids.ecsv"
+    run.write()
+    code, out, err = _run_cli(["check", Path("..") / "project" / "run" / "run.toml"], capsys)
+    case = Case("table-missing-resolved", None, "run.toml", "data.cepheids",
+                also=(str((run.dir / "tables" / "cepheids.ecsv").resolve()),
+                      "relative paths are taken from the run file's folder"))
+    _assert_one_clear_error(code, out, err, case, "ecsv")
+
+
+def test_log10_periods_with_a_negative_value_are_named(tmp_path, capsys):
+    # log10(P) of a star under 1 d is negative: an error (P must be > 0) whose message names the likely mistake.
+    run = Run(tmp_path / "run", fmt="csv")
+    run.cepheids["period"] = np.log10(np.asarray(run.cepheids["period"]))
+    run.cepheids["period"][4] = np.log10(0.8)  # a short-period star, as log10
+    run.write()
+    code, out, err = _run_cli(["check", run.path], capsys)
+    case = Case("log10-period-negative", None, "cepheids.csv", "period", rows=(5,), also=("> 0", "log10(P)"))
+    _assert_one_clear_error(code, out, err, case, "csv")

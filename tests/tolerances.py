@@ -104,3 +104,5 @@ LOG_DENSITY_QUAD_ATOL = 1e-6  # per-star extinction integral by scipy.integrate.
 BIAS_SHIFT_ATOL = 0.015  # mag; host modulus without minus with the bias term = reported bias: MC error of the difference ~0.004 (600 draws, sd ~0.05), x ~4
 MU_PRIOR_PULL_MCSE_Z = 4.0  # posterior mean vs the normal-normal closed form, in Monte Carlo standard errors (common practice)
 MU_PRIOR_SD_RTOL = 0.15  # posterior sd vs closed form; 600 draws give a relative MC error of ~1/sqrt(2 ESS) ~ 4 %, x ~4
+# --- plausibility messages (tests/test_plausibility.py) ---
+KPC_MODULUS_ROUNDING = 0.005  # 49.59 kpc and 18.477 mag are both published to their last digit (Pietrzynski et al. 2019); 5 log10 of the rounded distance differs by < 0.005 mag
