@@ -145,12 +145,8 @@ class WesenheitSettings:
 
     bands: tuple[str, str, str]
     r: float = float("nan")
-    r_err: float = 0.0
+    r_err: float = 0.0  # always 0: an uncertain R is refused (see _UNCERTAIN_R_REASON)
     from_law: bool = False
-
-    @property
-    def free(self) -> bool:
-        return self.r_err > 0 and not self.from_law
 
 
 @dataclass(frozen=True)
@@ -569,9 +565,6 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
                          file=sec.file, key="model.reddening.rv_err")
     if out.outliers == "clip" and out.multiband:
         raise InputError("outliers = \"clip\" works on one fitted magnitude; use \"mixture\" with multiband",
-                         file=sec.file, key="model.outliers")
-    if out.outliers == "clip" and wes is not None and (wes.free or wes.from_law and out.reddening.free):
-        raise InputError("outliers = \"clip\" needs a fixed Wesenheit R (the clip is done once, before sampling)",
                          file=sec.file, key="model.outliers")
     return out
 

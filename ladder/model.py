@@ -240,12 +240,11 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
     par = bool(layout and layout.parallax_stars)
     sn = bool(layout and layout.has_sn)
     flow = bool(layout and layout.has_flow)
-    w = settings.wesenheit
     wanted = {
         "pl_zero_point": True, "pl_slope": True, "pl_slope_long": settings.pl_break,
         "metallicity_coef": settings.metallicity, "scatter": True,
         "scatter_spread": settings.scatter_model == "per_host",
-        "wesenheit_r": w is not None and w.free,
+        "wesenheit_r": False,  # R is fixed in every model (an uncertain R is refused by the run-file parser)
         "r_v": settings.needs_law and settings.reddening.free,
         "outlier_fraction": settings.outliers == "mixture",
         "parallax_offset": par, "parallax_length_scale": par and settings.parallax.length_scale_pc is None,

@@ -491,7 +491,7 @@ def _what_is_fitted(result) -> tuple[str, list[str]]:
             how = (f"from the {model.reddening.law} law at $R_V$ = {float(_draws(result, 'r_v').mean()):.3g}"
                    + (", posterior mean" if model.reddening.free else ""))
         else:
-            how = "posterior mean" if w.free else "fixed"
+            how = "fixed"
         return rf"$W = {b1} - R\,({b2} - {b3})$, $R$ = {r:.3f} ({how})", []
     return f"band {model.band}", []
 

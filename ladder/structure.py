@@ -143,9 +143,6 @@ def linear_gaussian_obstacles(settings: ModelSettings, has_flow: bool) -> list[s
         why.append('extinction = "multiband" (each star\'s E(B-V) >= 0 has an exponential prior)')
     if settings.outliers == "mixture":
         why.append('outliers = "mixture" (a two-component likelihood)')
-    if settings.wesenheit is not None and (settings.wesenheit.free or
-                                           (settings.wesenheit.from_law and settings.reddening.free)):
-        why.append("an uncertain Wesenheit R (the fitted data would change with R)")
     for name in ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "sn_abs_mag", "mu"):
         if settings.prior(name).dist == "halfnormal":
             why.append(f"a halfnormal prior on {name}")
