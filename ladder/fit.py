@@ -67,7 +67,7 @@ def _clip(arrays, layout, model):
     from .errors import InputError
     from .model import model_parts
     from .sampling import _scatter_guess
-    from .structure import jit
+    from .structure import jit, with_mask
 
     parts = model_parts(arrays, layout, model)
     st, lin = parts.structure, parts.lin
@@ -85,7 +85,7 @@ def _clip(arrays, layout, model):
         if empty:
             raise InputError(f"clipping at clip_sigma = {model.clip_sigma:g} would reject every Cepheid of "
                              f"{', '.join(empty)} (raise [model] clip_sigma)", key="model.clip_sigma")
-        kept = lin._replace(mask=jnp.asarray(seen & keep[:, None]))
+        kept = with_mask(lin, seen & keep[:, None])
         loc, glob = jit("conditional_mean")(st, kept, ov, mu0, include_prior=False)
         return np.asarray(jit("residuals")(st, kept, loc, glob, mu0))[:, 0] / sd
 

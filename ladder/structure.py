@@ -93,6 +93,7 @@ class Structure:
     bands: tuple[str, ...]
     band_shaped: bool  # PL parameters have one value per band (multiband)
     uniform_bounds: tuple[tuple[str, float, float], ...] = ()  # linear parameters with a uniform prior
+    sorted_slots: bool = False  # stars ordered by galaxy (faster segment sums)
 
     @property
     def p(self) -> int:
@@ -125,6 +126,15 @@ class LinearArrays(NamedTuple):
     prior_mean: np.ndarray  # (p,)
     prior_prec: np.ndarray  # (p,)
     tilt: np.ndarray  # (p,)
+    # per-star sufficient statistics of the fitted bands (constant: they depend on the data and mask only);
+    # with w_jB = 1/sigma_jB^2 on fitted bands: sw = sum_B w, g = sum_B w G_B, t0 = sum_B w y0
+    sw: np.ndarray  # (N,)
+    g: np.ndarray  # (N, p)
+    t0: np.ndarray  # (N,)
+    b0: np.ndarray  # (p,) sum_j sum_B w y0 G_B
+    q0: np.ndarray  # (p, p) sum_j sum_B w G_B G_B^T
+    yy0: np.ndarray  # () sum_j sum_B w y0^2
+    logvar: np.ndarray  # () sum of ln sigma^2 over fitted bands
 
 
 def _linear_prior(spec):
@@ -177,8 +187,10 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
             bounds.append((name, spec.get("low"), spec.get("high")))
         columns += [(name, b) for b in range(nb)] if per_band and band_shaped else [(name, None)]
     n_local = 2 if settings.photometric_bias else 1
+    mu_index0 = np.asarray(arrays.star_mu_index)
+    slot0 = np.where(mu_index0 >= layout.n_mu, layout.n_mu, mu_index0)
     structure = Structure(tuple(columns), tuple(fixed), n_local, layout.n_mu, tuple(bands), band_shaped,
-                          tuple(bounds))
+                          tuple(bounds), bool(np.all(np.diff(slot0) >= 0)))
 
     x = np.asarray(arrays.log_period, float)
     if settings.pl_break:
@@ -278,8 +290,29 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
         anchor_var=np.asarray(arrays.mu_geo_err, float) ** 2,
         sn_slot=sn_slot.astype(np.int64), sn_y=sn_y, sn_var=sn_var, sn_design=sn_design,
         prior_mean_local=pm_loc, prior_prec_local=pp_loc, prior_mean=pm, prior_prec=pp, tilt=tilt,
+        **_statistics(mask, var, y0, design),
     )
     return structure, lin
+
+
+def _statistics(mask, var, y0, design) -> dict:
+    """The per-star sufficient statistics of :class:`LinearArrays` (numpy)."""
+    mask = np.asarray(mask, bool)
+    w = np.where(mask, 1.0 / np.asarray(var, float), 0.0)
+    y = np.where(mask, np.asarray(y0, float), 0.0)
+    design = np.asarray(design, float)
+    return {"sw": w.sum(axis=1), "g": np.einsum("nk,nkp->np", w, design), "t0": (w * y).sum(axis=1),
+            "b0": np.einsum("nk,nkp->p", w * y, design), "q0": np.einsum("nk,nkp,nkq->pq", w, design, design),
+            "yy0": np.asarray((w * y * y).sum()), "logvar": np.asarray(np.where(mask, np.log(var), 0.0).sum())}
+
+
+def with_mask(lin: LinearArrays, mask) -> LinearArrays:
+    """The same data fitted on another set of (star, band) values (e.g. after clipping)."""
+    import jax.numpy as jnp
+
+    mask = np.asarray(mask, bool)
+    stats = _statistics(mask, np.asarray(lin.var), np.asarray(lin.y0), np.asarray(lin.design))
+    return lin._replace(mask=jnp.asarray(mask), **{k: jnp.asarray(v) for k, v in stats.items()})
 
 
 def _star_y(lin: LinearArrays, mu_par):
@@ -314,26 +347,37 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
     import jax
     import jax.numpy as jnp
 
-    from .terms.noise import precision_weights
+    from .terms.noise import offset_factor
 
-    G, L = structure.n_galaxies, structure.n_local
-    y = jnp.where(lin.mask, _star_y(lin, mu_par), 0.0)
-    w, c = jax.vmap(precision_weights)(lin.var, lin.mask, offset_var)  # (N, k), (N,)
-    sw = jnp.sum(w, axis=1)
-    d = 1.0 / (1.0 + offset_var * sw)  # = 1 - c * sw
-    wy = w * y
-    t = jnp.sum(wy, axis=1)
-    g = jnp.einsum("nk,nkp->np", w, lin.design)
-    hh = jnp.einsum("nk,nkp,nkq->pq", w, lin.design, lin.design) - jnp.einsum("n,np,nq->pq", c, g, g)
-    bh = jnp.einsum("nk,nkp->p", wy, lin.design) - jnp.einsum("n,n,np->p", c, t, g)
-    yy = jnp.sum(wy * y) - jnp.sum(c * t * t)
-    logdet = jnp.sum(jnp.where(lin.mask, jnp.log(lin.var), 0.0)) + jnp.sum(jnp.log1p(offset_var * sw))
+    G = structure.n_galaxies
+    # Per star: C_j^-1 = W - c_j w w^T (Sherman-Morrison), so every inner product is a constant statistic
+    # minus c_j times products of the constants sw, g, t; parallax stars' moduli m_j shift their data.
+    sw, g = lin.sw, lin.g
+    c = offset_factor(offset_var, sw)
+    d = 1.0 / (1.0 + offset_var * sw)  # = 1 - c sw
+    if lin.par_star.shape[0]:
+        m = jnp.zeros(sw.shape).at[lin.par_star].set(mu_par)
+        t = lin.t0 - sw * m
+        b_raw = lin.b0 - g.T @ m
+        yy_raw = lin.yy0 - 2.0 * jnp.dot(m, lin.t0) + jnp.dot(m * m, sw)
+    else:
+        t, b_raw, yy_raw = lin.t0, lin.b0, lin.yy0
+    hh = lin.q0 - (g * c[:, None]).T @ g
+    bh = b_raw - g.T @ (c * t)
+    yy = yy_raw - jnp.dot(c, t * t)
+    logdet = lin.logvar + jnp.sum(jnp.log1p(offset_var * sw))
     n_obs = jnp.sum(lin.mask)
     e = lin.local
-    seg = lambda v: jax.ops.segment_sum(v, lin.slot, num_segments=G + 1)[:G]  # noqa: E731
-    ll = seg((sw * d)[:, None, None] * e[:, :, None] * e[:, None, :])
-    lh = seg(d[:, None, None] * e[:, :, None] * g[:, None, :])
-    bl = seg((d * t)[:, None] * e)
+    seg = lambda v: jax.ops.segment_sum(v, lin.slot, num_segments=G + 1,  # noqa: E731
+                                        indices_are_sorted=structure.sorted_slots)[:G]
+    if structure.n_local == 1:  # e_j = 1 for every star with a galaxy (slot G collects the rest): one pass
+        p = g.shape[1]
+        both = seg(jnp.concatenate([(sw * d)[:, None], d[:, None] * g, (d * t)[:, None]], axis=1))
+        ll, lh, bl = both[:, 0, None, None], both[:, None, 1:1 + p], both[:, 1 + p, None]
+    else:
+        ll = seg((sw * d)[:, None, None] * e[:, :, None] * e[:, None, :])
+        lh = seg(d[:, None, None] * e[:, :, None] * g[:, None, :])
+        bl = seg((d * t)[:, None] * e)
 
     # anchors: mu_geo = mu + eps (local column 0)
     if lin.anchor_slot.shape[0]:
@@ -377,15 +421,49 @@ class _Solved(NamedTuple):
     logdet_a: object
 
 
+def _small_cholesky(a):
+    """Cholesky factors of a batch of 1x1 or 2x2 SPD blocks (G, L, L), in closed form (no LAPACK call per block)."""
+    import jax.numpy as jnp
+
+    if a.shape[-1] == 1:
+        return jnp.sqrt(a)
+    l11 = jnp.sqrt(a[:, 0, 0])
+    l21 = a[:, 1, 0] / l11
+    l22 = jnp.sqrt(a[:, 1, 1] - l21 * l21)
+    zero = jnp.zeros_like(l11)
+    return jnp.stack([jnp.stack([l11, zero], -1), jnp.stack([l21, l22], -1)], -2)
+
+
+def _small_solve(chol, rhs, transpose=False):
+    """Solve L x = rhs (or L^T x = rhs) for batches of 1x1 / 2x2 lower-triangular L; rhs (G, L, m)."""
+    import jax.numpy as jnp
+
+    if chol.shape[-1] == 1:
+        return rhs / chol
+    l11, l21, l22 = chol[:, 0, 0, None], chol[:, 1, 0, None], chol[:, 1, 1, None]
+    r1, r2 = rhs[:, 0], rhs[:, 1]
+    if not transpose:
+        x1 = r1 / l11
+        x2 = (r2 - l21 * x1) / l22
+    else:
+        x2 = r2 / l22
+        x1 = (r1 - l21 * x2) / l11
+    return jnp.stack([x1, x2], axis=1)
+
+
+def _small_cho_solve(chol, rhs):
+    """A^-1 rhs for A = L L^T (batched small blocks)."""
+    return _small_solve(chol, _small_solve(chol, rhs), transpose=True)
+
+
 def _solve(eq: NormalEquations) -> _Solved:
-    """Eliminate the local blocks (Schur complement) and solve; Cholesky factors only."""
+    """Eliminate the local blocks (Schur complement) and solve; Cholesky factors only, no explicit inverse."""
     import jax.numpy as jnp
     from jax.scipy.linalg import cho_solve
 
-    chol_l = jnp.linalg.cholesky(eq.ll)
-    solve_l = lambda rhs: cho_solve((chol_l, True), rhs)  # noqa: E731  batched over galaxies
-    inv_l_bl = solve_l(eq.bl[..., None])[..., 0]
-    inv_l_lh = solve_l(eq.lh)
+    chol_l = _small_cholesky(eq.ll)
+    inv_l_bl = _small_cho_solve(chol_l, eq.bl[..., None])[..., 0]
+    inv_l_lh = _small_cho_solve(chol_l, eq.lh)
     S = eq.hh - jnp.einsum("glp,glq->pq", eq.lh, inv_l_lh)
     r = eq.bh - jnp.einsum("glp,gl->p", eq.lh, inv_l_bl)
     p = S.shape[0]
@@ -453,7 +531,7 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
     else:
         h = sol.mean_h
     zl = jax.random.normal(k2, eq.bl.shape)
-    noise = solve_triangular(jnp.swapaxes(sol.chol_l, -1, -2), zl[..., None], lower=False)[..., 0]
+    noise = _small_solve(sol.chol_l, zl[..., None], transpose=True)[..., 0]
     loc = sol.inv_l_bl - sol.inv_l_lh @ h + noise
     return loc, h
 

@@ -1,6 +1,6 @@
 """Noise model of one Cepheid's magnitudes: independent errors plus a star-level common offset."""
 
-__all__ = ["precision_weights", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
+__all__ = ["precision_weights", "offset_factor", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
 
 _LOG_2PI = 1.8378770664093453
 
@@ -17,7 +17,12 @@ def precision_weights(var, mask, offset_var):
     import jax.numpy as jnp
 
     w = jnp.where(mask, 1.0 / jnp.where(mask, var, 1.0), 0.0)
-    return w, offset_var / (1.0 + offset_var * jnp.sum(w))
+    return w, offset_factor(offset_var, jnp.sum(w))
+
+
+def offset_factor(offset_var, sum_w):
+    r"""The Sherman-Morrison scalar :math:`c = s^2 / (1 + s^2 \sum_b w_b)` of :func:`precision_weights`."""
+    return offset_var / (1.0 + offset_var * sum_w)
 
 
 def common_offset_normal_logpdf(resid, var, mask, offset_var):
