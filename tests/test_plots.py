@@ -331,7 +331,7 @@ def test_wesenheit_ratio_from_the_law_matches_extinction_package(result):
     extinction.fitzpatrick99(wave_AA, a_v=1, r_v) = A_lambda / A_V."""
     import extinction
 
-    from ladder.plots import _wesenheit_r
+    from ladder.plots._model_view import _wesenheit_r
 
     other = _with_wesenheit(result, WesenheitSettings(("I", "V", "I"), from_law=True),
                             ReddeningSettings("fitzpatrick99", 3.1))
@@ -340,7 +340,7 @@ def test_wesenheit_ratio_from_the_law_matches_extinction_package(result):
 
 
 def test_outliers_and_clipped_stars_are_flagged(result, full_result):
-    from ladder.plots import _flags
+    from ladder.plots._posterior import _flags
 
     for res, label in ((result, "clipped"), (full_result, "outlier")):
         flags, text = _flags(res)
@@ -363,7 +363,7 @@ def test_lmc_residual_scatter_is_that_of_the_wesenheit_pl(result):
 
 # ----------------------------------------------------------------------------- corner, distances, Hubble
 def test_corner_has_one_axis_per_band_and_at_most_ten(full_result):
-    from ladder.plots import MAX_CORNER_AXES, _corner_entries
+    from ladder.plots.corner import MAX_CORNER_AXES, _corner_entries
 
     shown, omitted = _corner_entries(full_result)
     assert len(shown) == MAX_CORNER_AXES
@@ -378,7 +378,7 @@ def test_hubble_line_is_flat_lcdm(full_result):
     Calibrators: their host's posterior-mean mu plus the posterior-mean SN absolute magnitude."""
     from astropy.cosmology import FlatLambdaCDM
 
-    from ladder.plots import _sn_points
+    from ladder.plots._model_view import _sn_points
 
     res = full_result
     s = res.model.supernovae
@@ -396,7 +396,7 @@ def test_hubble_line_is_flat_lcdm(full_result):
 
 
 def test_parallax_group_is_left_out_of_the_distances(full_result):
-    from ladder.plots import _mu_columns
+    from ladder.plots._posterior import _mu_columns
 
     cols = _mu_columns(full_result)
     assert full_result.data.host_names.index("Milky Way") not in cols
