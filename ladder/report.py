@@ -190,6 +190,14 @@ def _num(x, fmt: str = ".3f") -> str:
     return "n/a" if not math.isfinite(v) else format(v, fmt)
 
 
+def _interval(med: float, lo: float, hi: float, decimals: int | None = None) -> str:
+    """``med +(hi-med) -(med-lo)`` with the decimals of two significant digits of the smaller error (no exponents)."""
+    if decimals is None:
+        err = min(hi - med, med - lo)
+        decimals = 2 if not (math.isfinite(err) and err > 0) else max(0, 1 - math.floor(math.log10(err)))
+    return f"{med:.{decimals}f} <small>+{hi - med:.{decimals}f} &minus;{med - lo:.{decimals}f}</small>"
+
+
 def _table(head: list[str], rows: list[list[str]], numeric: set[int] = frozenset()) -> str:
     """``head`` and cells are HTML already (escape before)."""
     th = "".join(f"<th>{h}</th>" for h in head)
@@ -284,7 +292,7 @@ def report_html(out_dir: str | Path) -> str:
     add(f"<h1>{_e(title)}</h1>")
     add(f'<p class="muted">Output directory <code>{_e(out.resolve())}</code>; fit made {_e(prov.get("created_utc", "?"))}. '
         "This file holds everything it shows (no other file or network access is needed).</p>")
-    add('<nav><a href="#distances">Distances</a><a href="#parameters">Parameters</a><a href="#diagnostics">'
+    add('<nav><a href="#how">How</a><a href="#distances">Distances</a><a href="#parameters">Parameters</a><a href="#diagnostics">'
         'Diagnostics</a><a href="#warnings">Warnings</a><a href="#figures">Figures</a><a href="#ppc">Predictive '
         'checks</a><a href="#provenance">Provenance</a></nav>')
 
@@ -322,7 +330,8 @@ def report_html(out_dir: str | Path) -> str:
             for r in flagged:
                 by_host[str(r["host"])] = by_host.get(str(r["host"]), 0) + 1
             hosts = ", ".join(f"{_e(h)} ({n})" for h, n in sorted(by_host.items(), key=lambda kv: -kv[1]))
-            warnings.append(f"{len(flagged)} star{'s' if len(flagged) != 1 else ''} flagged as outliers "
+            warnings.append(f"{len(flagged)} star{'s' if len(flagged) != 1 else ''} flagged as "
+                            f"{'outliers' if len(flagged) != 1 else 'an outlier'} "
                             f"(probability &gt; 0.5 or clipped) in stars.ecsv: {names}. By galaxy: {hosts}.")
     dom = prior_dominance(parameters, priors)
     for d in dom:
@@ -342,18 +351,33 @@ def report_html(out_dir: str | Path) -> str:
     add(f'<div class="banner {"pass" if passed else "fail"}">{verdict} {n_gal} galaxies with one distance each '
         f"({n_anchor} anchor{'s' if n_anchor != 1 else ''}).</div>")
 
+    anchor_rows = [r for r in distances if str(r["role"]) == "anchor"]
+    other = [r for r in distances if str(r["role"]) != "anchor"]
+
+    # -- how the numbers come about
+    model = run.get("model") or {}
+    add("<h2 id=how>How these distances are made</h2>")
+    anchors = ", ".join(_e(r["host"]) for r in anchor_rows) or "none"
+    what = ("bands " + _e(", ".join(model.get("bands") or [])) + " with extinction"
+            if model.get("extinction") == "multiband" or not model.get("band") else f"band {_e(model['band'])}")
+    terms = [f"{_e(k.replace('_', ' '))}: {_e({True: 'on', False: 'off'}.get(v, v) if isinstance(v, bool) else v)}"
+             for k, v in model.items()
+             if k in ("extinction", "metallicity", "scatter", "outliers", "photometric_bias", "pl_break")]
+    add(f"<p>One joint posterior for all galaxies. The anchors ({anchors}) have geometric distances; with their "
+        "Cepheids they fix the zero point of the period-luminosity relation shared by every galaxy. Each host's "
+        "distance modulus is then the offset of its Cepheids from that relation, and its uncertainty includes "
+        f"the uncertainty of the calibration. Fitted: {what}; " + "; ".join(terms) + ".</p>")
+
     # -- distances
     add('<h2 id="distances">Host distances</h2>')
     add('<p>Posterior median and 68% interval of each distance modulus &mu; (mag) and the distance '
         '(d = 10<sup>&mu;/5 &minus; 5</sup> Mpc, shown in kpc below 1 Mpc); anchors first.</p>')
     rows = []
-    anchor_rows = [r for r in distances if str(r["role"]) == "anchor"]
-    other = [r for r in distances if str(r["role"]) != "anchor"]
     for r in anchor_rows + other:
         q16, q50, q84 = (_value(r[f"mu_q{q}"]) for q in ("16", "50", "84"))
         d16, d50, d84 = (_value(r[f"distance_mpc_q{q}"]) for q in ("16", "50", "84"))
         rows.append([_e(r["host"]), _e(r["role"]), str(int(r["n_cepheids"])),
-                     f"{q50:.3f} <small>+{q84 - q50:.3f} &minus;{q50 - q16:.3f}</small>",
+                     _interval(q50, q16, q84, decimals=3),
                      _e(_distance_text(d50)) + f" <small>({_e(_distance_text(d16))} &ndash; {_e(_distance_text(d84))})"
                      "</small>", _num(r["r_hat"], ".3f"), _num(r["ess_bulk"], ".0f")])
     add(_table(["galaxy", "role", "Cepheids", "&mu; [mag]", "distance (68%)", "R-hat", "bulk ESS"], rows,
@@ -378,7 +402,7 @@ def report_html(out_dir: str | Path) -> str:
         q16, q50, q84 = _value(r["q16"]), _value(r["q50"]), _value(r["q84"])
         rr = ratio.get(key)
         rows.append([html_symbol(key), f"<code>{_e(key)}</code>", _e(words(key)),
-                     f"{q50:.4g} <small>+{q84 - q50:.2g} &minus;{q50 - q16:.2g}</small>", _e(unit(key) or str(r["unit"])),
+                     _interval(q50, q16, q84), _e(unit(key)),
                      "&mdash;" if rr is None else (f'<span class="warn">{rr:.2f}</span>' if rr > PRIOR_DOMINANCE
                                                    else f"{rr:.3f}"),
                      _num(r["r_hat"], ".3f"), _num(r["ess_bulk"], ".0f")])
@@ -408,15 +432,18 @@ def report_html(out_dir: str | Path) -> str:
 
     # -- figures
     add('<h2 id="figures">Figures</h2>')
+    present = [n for n, _, _ in _FIGURES if (out / n).is_file()]
+    if not present:
+        add("<p class=muted>The output directory holds no figures (fit run with --no-plots?).</p>")
     for name, head, what in _FIGURES:
         p = out / name
         if p.is_file():
             add(f"<figure><h3>{_e(head)}</h3>{_img(p, head)}<figcaption>{_e(what)} "
                 f"(<code>{_e(name)}</code>)</figcaption></figure>")
-        elif name == "hubble.png":
+        elif present and name == "hubble.png":
             add("<p class=muted>No supernovae in this fit: no Hubble diagram.</p>")
-        else:
-            add(f"<p class=muted>{_e(name)} is not in the output directory (fit run with --no-plots?).</p>")
+        elif present:
+            add(f"<p class=muted>{_e(name)} is not in the output directory.</p>")
 
     # -- posterior predictive checks (written by the predictive-check step when it was run)
     add('<h2 id="ppc">Posterior predictive checks</h2>')

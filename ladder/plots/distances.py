@@ -7,6 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from ._posterior import _mu_columns, _mu_draws
+from .labels import axis_label
 from ._style import _ANCHOR_COLOR, _HOST_COLOR, _TRUTH_COLOR, _figure, _host_order, _save, format_distance
 
 __all__ = ["plot_distances"]
@@ -110,7 +111,7 @@ def plot_distances(result, path, truths: dict | None = None) -> Path:
         a.set_axisbelow(True)
         a.xaxis.set_major_locator(MaxNLocator(6))
     axd.tick_params(labelleft=False)
-    ax.set_xlabel(r"distance modulus $\mu$ [mag]", fontsize=fs + 0.5)
+    ax.set_xlabel(f"distance modulus {axis_label('mu')}", fontsize=fs + 0.5)
     axd.set_xlabel(r"$\mu - $ median [mag]", fontsize=fs + 0.5)
     axd.axvline(0.0, color="0.6", lw=0.7, zorder=0)
 

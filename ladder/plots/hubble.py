@@ -8,6 +8,7 @@ import numpy as np
 
 from ._model_view import _sn_points
 from ._posterior import _draws, _mu_columns, _mu_draws
+from .labels import symbol
 from ._style import _CALIBRATOR_COLOR, _HOST_COLOR, _figure, _fmt_interval, _save
 
 __all__ = ["plot_hubble"]
@@ -55,7 +56,7 @@ def plot_hubble(result, path, *, band_draws: int = 400) -> Path:
     if has_flow:
         h0_d = _draws(result, "h0")
         q16, q50, q84 = np.quantile(h0_d, [0.16, 0.5, 0.84])
-        title = f"Hubble diagram: $H_0$ = {_fmt_interval(q50, q16, q84)} km s$^{{-1}}$ Mpc$^{{-1}}$ (median, 68%)"
+        title = f"Hubble diagram: {symbol('h0')} = {_fmt_interval(q50, q16, q84)} km s$^{{-1}}$ Mpc$^{{-1}}$ (median, 68%)"
     else:
         title = "Supernova calibrators (no Hubble-flow supernovae: $H_0$ not fitted)"
     z_all = pts.z[on_diagram & np.isfinite(pts.z)]
@@ -151,8 +152,8 @@ def plot_hubble(result, path, *, band_draws: int = 400) -> Path:
         axs.set_title("calibrators\n(error: $m$ and host $\\mu$)", fontsize=fs, pad=3)
 
     fig.text(0.5, 1 - 0.12 / height, title, ha="center", va="top", fontsize=fs + 2.5)
-    sub = [f"$M_\\mathrm{{SN}}$ = {_fmt_interval(*np.quantile(m_d, [0.5, 0.16, 0.84]))} mag",
-           rf"$\sigma_\mathrm{{SN}}$ = {sig_sn:.3f} mag"]
+    sub = [f"{symbol('sn_abs_mag')} = {_fmt_interval(*np.quantile(m_d, [0.5, 0.16, 0.84]))} mag",
+           f"{symbol('sn_scatter')} = {sig_sn:.3f} mag"]
     if has_flow:
         sub += [f"$q_0$ = {s.q0:g}, $j_0$ = {s.j0:g}, $\\sigma_v$ = {s.sigma_v:g} km/s (fixed)",
                 r"residual band: $\pm(\bar\sigma_\mathrm{SN}^2 + \sigma_{\mu,v}^2)^{1/2}$"]

@@ -10,6 +10,7 @@ import numpy as np
 
 from ._model_view import _pl_line, _wesenheit_r, pl_points
 from ._posterior import _bias_draws, _draws, _flags, _layout, _mu_columns, _mu_draws, _n_samples, _scatter_draws
+from .labels import symbol
 from ._style import (_FLAGGED_COLOR, _caption_lines, _figure, _nice_below, _role_color,
                      _save, _wrap)
 
@@ -153,8 +154,26 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
                        " over unflagged stars); bottom row: all stars and all galaxies"])
     caption = [line for g in groups for line in _wrap(g, width - 0.4, small)]
     title_lines = _wrap([f"PL relation per galaxy: {what}"], width - 0.4, small + 2)
-    legend_h = 0.42
-    head = 0.16 + 0.24 * len(title_lines) + 0.18 * len(caption) + 0.12 + legend_h
+    roles = set(data.host_roles)
+    handles = [Line2D([], [], ls="", marker="o", ms=3.5, color=_role_color("anchor"), label="anchor star"),
+               Line2D([], [], ls="", marker="o", ms=3.5, color=_role_color("host"), label="host star")]
+    if "parallax" in roles:
+        handles.append(Line2D([], [], ls="", marker="o", ms=3.5, color=_role_color("parallax"), label="parallax star"))
+    if flags.any():
+        handles.append(Line2D([], [], ls="", marker="o", ms=4, mfc="none", mec=_FLAGGED_COLOR, label=flag_label))
+    handles += [Line2D([], [], color="k", lw=0.9, label="PL line (posterior mean)"),
+                Patch(color=_LINE_BAND, alpha=0.55, lw=0, label="line: 68% of draws (half-width in panel)"),
+                Patch(color=_SCATTER_BAND, alpha=0.3, lw=0, label=r"$\pm\sigma_\mathrm{int}$")]
+    if model.pl_break:
+        handles.append(Line2D([], [], color="0.35", lw=0.7, ls=":", label="PL break"))
+    if any_off:
+        handles.append(Line2D([], [], ls="", marker="^", ms=4, color="0.25", mew=0,
+                              label="off scale (drawn at the edge)"))
+    leg_cols = max(2, min(len(handles), int((width - 0.4) / 2.1)))
+    leg_rows = int(np.ceil(len(handles) / leg_cols))
+    legend_h = 0.05 + 0.19 * leg_rows
+    cap_end = 0.18 + 0.24 * len(title_lines) + 0.18 * len(caption)  # inches from the top
+    head = cap_end + 0.04 + legend_h + 0.26  # room for the first row's panel titles
     summary_h = 2.6 if summary else 0.0
     height = 2.5 * nrow + head + 0.13 + summary_h
     fig = _figure(width, height)
@@ -215,9 +234,9 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
             notes.append(r"own distance per star")
         else:
             mu_i = mu_d[:, mu_col[i]]
-            notes.append(rf"$\mu$ = {mu_i.mean():.3f} $\pm$ {mu_i.std(ddof=1):.3f}")
+            notes.append(f"{symbol('mu')} = {mu_i.mean():.3f} $\\pm$ {mu_i.std(ddof=1):.3f}")
         if model.scatter_model == "per_host":
-            notes.append(rf"$\sigma_\mathrm{{int}}$ = {scat[i]:.3f}")
+            notes.append(f"{symbol('scatter')} = {scat[i]:.3f}")
         if data.host_names[i] in bias_gal:
             notes.append(rf"$\beta$ = {bias_d[:, i].mean():+.3f}")
         half = 0.5 * float(np.max(b84 - b16))
@@ -264,24 +283,9 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
         y -= 0.24 / height
     _caption_lines(fig, caption, 0.18 + 0.24 * len(title_lines), height, small, step_in=0.18)
 
-    roles = set(data.host_roles)
-    handles = [Line2D([], [], ls="", marker="o", ms=3.5, color=_role_color("anchor"), label="anchor star"),
-               Line2D([], [], ls="", marker="o", ms=3.5, color=_role_color("host"), label="host star")]
-    if "parallax" in roles:
-        handles.append(Line2D([], [], ls="", marker="o", ms=3.5, color=_role_color("parallax"), label="parallax star"))
-    if flags.any():
-        handles.append(Line2D([], [], ls="", marker="o", ms=4, mfc="none", mec=_FLAGGED_COLOR, label=flag_label))
-    handles += [Line2D([], [], color="k", lw=0.9, label="PL line (posterior mean)"),
-                Patch(color=_LINE_BAND, alpha=0.55, lw=0, label="line: 68% of draws (half-width in panel)"),
-                Patch(color=_SCATTER_BAND, alpha=0.3, lw=0, label=r"$\pm\sigma_\mathrm{int}$")]
-    if x_break is not None:
-        handles.append(Line2D([], [], color="0.35", lw=0.7, ls=":", label="PL break"))
-    if any_off:
-        handles.append(Line2D([], [], ls="", marker="^", ms=4, color="0.25", mew=0,
-                              label="off scale (drawn at the edge)"))
-    fig.legend(handles=handles, loc="upper center", ncol=min(len(handles), 5 if width < 11 else 9),
+    fig.legend(handles=handles, loc="upper center", ncol=leg_cols,
                fontsize=small, frameon=False, handlelength=1.5, columnspacing=1.1,
-               bbox_to_anchor=(0.5, 1 - (head - legend_h - 0.02) / height))
+               bbox_to_anchor=(0.5, 1 - (cap_end + 0.04) / height), borderaxespad=0.0)
     return _save(fig, path)
 
 
