@@ -88,7 +88,9 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
     A parallax group shows absolute magnitudes against the unshifted line. Residual panel (O-C): the model's
     residual (:func:`ladder.model.star_residuals` at the posterior mean) with the
     :math:`\pm\sigma_\mathrm{int}` band (light grey) and the 68% band of the line over posterior draws about
-    its mean (dark grey; in the main panel it is narrower than the line). Residuals off the scale are drawn
+    its mean (dark grey; in the main panel it is often narrower than the line). The band includes the spread of
+    the metallicity term at the galaxy's mean O/H (the points carry its posterior mean), so that a zero point
+    traded against the metallicity coefficient does not widen it. Residuals off the scale are drawn
     as triangles at the edge. Stars with outlier probability > 0.5, or clipped, are open grey markers.
     Magnitude axes point down (brighter up). With more than ``max_panels`` galaxies, only the anchors,
     parallax groups and worst-fitting hosts (:func:`galaxy_chi2`, :func:`select_galaxies`) get panels, and a
@@ -140,8 +142,9 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
     else:
         band_words = rf"light band: $\pm\sigma_\mathrm{{int}}$ = {scat[0]:.3f} mag"
     last = [res_words + " (axes inverted: brighter up)", band_words,
-            "dark band: 68% of the line over posterior draws, about its mean (often thinner than the line; "
-            "its largest half-width is given in each panel)"]
+            "dark band: 68% of the line over posterior draws, about its mean" +
+            (", with the metallicity term at the galaxy's mean O/H" if model.metallicity else "") +
+            " (often thinner than the line; each panel gives its largest half-width over the galaxy's periods)"]
     if flags.any():
         n_flag = int(flags.sum())
         last.append(f"open grey: {flag_label} ({n_flag} star{'s' if n_flag > 1 else ''})")
@@ -188,6 +191,7 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
     bias_d = _bias_draws(result)
     layout = _layout(result)
     bias_gal = set(layout.bias_galaxies) if model.photometric_bias else set()
+    gamma_d = _draws(result, "metallicity_coef")
 
     lo, hi = pts.log_period.min(), pts.log_period.max()
     pad = 0.05 * (hi - lo if hi > lo else 1.0)
@@ -210,6 +214,8 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
         zp, sl = _draws(result, "pl_zero_point", b_param), _draws(result, "pl_slope", b_param)
         sll = _draws(result, "pl_slope_long", b_param)
         shift = bias_d[:, i] + (mu_d[:, mu_col[i]] if i in mu_col else 0.0)
+        if model.metallicity:  # the points carry the mean metallicity term; the band its spread, at the mean O/H
+            shift = shift + (gamma_d - gamma_d.mean()) * (float(np.nanmean(data.oh[sel])) - model.solar_oh)
         lines = shift[take, None] + _pl_line(result, grid[None, :], zp[take, None], sl[take, None], sll[take, None])
         b16, b84 = np.quantile(lines, [0.16, 0.84], axis=0)
         mean_line = shift.mean() + _pl_line(result, grid, zp.mean(), sl.mean(), sll.mean())
@@ -239,7 +245,8 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
             notes.append(f"{symbol('scatter')} = {scat[i]:.3f}")
         if data.host_names[i] in bias_gal:
             notes.append(rf"$\beta$ = {bias_d[:, i].mean():+.3f}")
-        half = 0.5 * float(np.max(b84 - b16))
+        own = (grid >= pts.log_period[sel].min()) & (grid <= pts.log_period[sel].max())
+        half = 0.5 * float(np.max((b84 - b16)[own] if own.any() else b84 - b16))  # over the galaxy's periods
         notes.append(f"line 68%: $\\pm${half:.3f}")
         if n_fit[i] > 0:
             notes.append(rf"$\chi^2/N$ = {chi2[i] / n_fit[i]:.2f}")
