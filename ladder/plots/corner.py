@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from ._posterior import _draws, _layout, _reddest
-from ._style import _TRUTH_COLOR, _figure, _fmt_interval, _save
+from ._style import FONT_SIZE, _TRUTH_COLOR, _figure, _fmt_interval, _save
 from .labels import axis_label, symbol
 
 __all__ = ["plot_corner", "MAX_CORNER_AXES", "_corner_entries"]
@@ -110,7 +110,7 @@ def plot_corner(result, path, truths: dict | None = None, *, bins: int = 30) -> 
     if k == 0:
         fig.text(0.5, 0.5, "no sampled global parameters", ha="center", va="center")
         return _save(fig, path)
-    fs = 7.5 if k <= 7 else 7.0
+    fs = FONT_SIZE - 0.5 if k <= 7 else FONT_SIZE - 1.0
     top = 1 - (0.28 if k > 1 else 1.0) / side  # the notes go in the empty upper triangle
     gs = fig.add_gridspec(k, k, left=1.0 / side, bottom=0.95 / side, right=1 - 0.15 / side, top=top,
                           wspace=0.06, hspace=0.06 if k <= 7 else 0.1)

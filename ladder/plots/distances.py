@@ -7,8 +7,8 @@ from pathlib import Path
 import numpy as np
 
 from ._posterior import _mu_columns, _mu_draws
+from ._style import FONT_SIZE, _ANCHOR_COLOR, _HOST_COLOR, _TRUTH_COLOR, _figure, _host_order, _save, format_distance
 from .labels import axis_label
-from ._style import _ANCHOR_COLOR, _HOST_COLOR, _TRUTH_COLOR, _figure, _host_order, _save, format_distance
 
 __all__ = ["plot_distances"]
 
@@ -73,7 +73,7 @@ def plot_distances(result, path, truths: dict | None = None) -> Path:
     n = len(order)
     truths = {k: float(v) for k, v in (truths or {}).items() if k in data.host_names and
               data.host_names.index(k) in cols}
-    fs = 8 if n <= 25 else 7
+    fs = FONT_SIZE if n <= 25 else FONT_SIZE - 1.0
     row_h = 0.26 if n <= 25 else 0.22
     extra = 0.2 if groups else 0.0
     width, height = 9.2, max(3.0, 1.6 + extra + row_h * n)

@@ -8,8 +8,8 @@ import numpy as np
 
 from ._model_view import _sn_points
 from ._posterior import _draws, _mu_columns, _mu_draws
+from ._style import FONT_SIZE, _CALIBRATOR_COLOR, _HOST_COLOR, _figure, _fmt_interval, _save
 from .labels import symbol
-from ._style import _CALIBRATOR_COLOR, _HOST_COLOR, _figure, _fmt_interval, _save
 
 __all__ = ["plot_hubble"]
 
@@ -41,7 +41,7 @@ def plot_hubble(result, path, *, band_draws: int = 400) -> Path:
     side = cal & ~np.isfinite(pts.z)
     on_diagram = pts.flow | (cal & np.isfinite(pts.z))
     n_side = int(side.sum())
-    fs = 8.0
+    fs = FONT_SIZE
     width = 10.5 if n_side else 8.0
     height = max(5.8, 1.6 + 0.2 * n_side)
     fig = _figure(width, height)

@@ -10,9 +10,9 @@ import numpy as np
 
 from ._model_view import _pl_line, _wesenheit_r, pl_points
 from ._posterior import _bias_draws, _draws, _flags, _layout, _mu_columns, _mu_draws, _n_samples, _scatter_draws
-from .labels import symbol
-from ._style import (_FLAGGED_COLOR, _caption_lines, _figure, _nice_below, _role_color,
+from ._style import (FONT_SIZE, _FLAGGED_COLOR, _caption_lines, _figure, _nice_below, _role_color,
                      _save, _wrap)
+from .labels import symbol
 
 __all__ = ["plot_pl_relations", "MAX_PL_PANELS", "galaxy_chi2", "select_galaxies"]
 
@@ -109,7 +109,7 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
     n = len(order)
     ncol = min(n, max_columns, max(2, int(np.ceil(np.sqrt(n)))))
     nrow = int(np.ceil(n / ncol))
-    small = 6.5 if n > 12 else 7.5
+    small = FONT_SIZE - 1.5 if n > 12 else FONT_SIZE - 0.5
     width = max(7.5, 2.45 * ncol + 0.75)
     scat = _scatter_draws(result).mean(axis=0)
 
