@@ -86,9 +86,15 @@ def _value(x) -> float:
     return float(getattr(x, "value", x))
 
 
+#: Names of the anchors' geometric moduli in ``observed_data`` and of their errors in ``constant_data``.
+_GEO_NAMES = ("anchor_mu_geo", "mu_geo_obs", "mu_geo")
+_GEO_ERR_NAMES = ("anchor_mu_geo_err", "mu_geo_err")
+
+
 def _anchor_geo(out: Path, provenance: dict | None) -> dict[str, tuple[float, float]]:
-    """Anchor name -> (mu_geo, mu_geo_err): from ``posterior.nc`` (``observed_data.mu_geo_obs`` and, when
-    present, ``constant_data.mu_geo_err``), else from the hosts table named in ``provenance.json``."""
+    """Anchor name -> (mu_geo, mu_geo_err): from ``posterior.nc`` (``observed_data`` and, when present,
+    ``constant_data``; names in :data:`_GEO_NAMES`, :data:`_GEO_ERR_NAMES`), else from the hosts table named in
+    ``provenance.json``."""
     geo: dict[str, list[float]] = {}
     nc = out / "posterior.nc"
     if nc.is_file():
@@ -96,16 +102,20 @@ def _anchor_geo(out: Path, provenance: dict | None) -> dict[str, tuple[float, fl
 
         idata = az.from_netcdf(str(nc))
         obs = getattr(idata, "observed_data", None)
-        if obs is not None and "mu_geo_obs" in obs:
-            v = obs["mu_geo_obs"]
-            for name, val in zip(v[v.dims[0]].values, v.values):
-                geo[str(name)] = [float(val), math.nan]
+        for var in _GEO_NAMES:
+            if obs is not None and var in obs:
+                v = obs[var]
+                for name, val in zip(v[v.dims[0]].values, v.values):
+                    geo[str(name)] = [float(val), math.nan]
+                break
         const = getattr(idata, "constant_data", None)
-        if const is not None and "mu_geo_err" in const:
-            v = const["mu_geo_err"]
-            for name, val in zip(v[v.dims[0]].values, v.values):
-                if str(name) in geo:
-                    geo[str(name)][1] = float(val)
+        for var in _GEO_ERR_NAMES:
+            if const is not None and var in const:
+                v = const[var]
+                for name, val in zip(v[v.dims[0]].values, v.values):
+                    if str(name) in geo:
+                        geo[str(name)][1] = float(val)
+                break
     if any(math.isnan(e) for _, e in geo.values()) or not geo:
         hosts = ((provenance or {}).get("inputs") or {}).get("hosts") or {}
         p = Path(str(hosts.get("path", "")))

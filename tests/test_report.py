@@ -25,7 +25,7 @@ import pytest
 from astropy.table import Table
 
 from ladder.cli import main
-from tolerances import PRIOR_SD_RTOL, REPORT_NUMBER_ATOL
+from tolerances import PRIOR_SD_RTOL, REPORT_NUMBER_ATOL, REPORT_Z_ATOL
 
 EVIL = "<script>alert(1)</script>"
 FEW = 6  # Cepheids left in the renamed galaxy
@@ -309,3 +309,18 @@ def test_browser_runs_nothing_from_the_catalogue_and_shows_the_name_as_text(brow
     assert not [e for e in events if e.get("method") == "Page.javascriptDialogOpening"]
     assert evaluate("document.scripts.length") == 0
     assert EVIL in evaluate("document.body.innerText")
+
+
+def test_report_anchor_pull_is_computed_from_the_fit(fit_dir):
+    """The anchor's z in the report: (mu_geo - posterior mean) / hypot(mu_geo_err, posterior sd), from the hosts
+    table given to the fit and distances.ecsv, to the printed two decimals."""
+    text = (fit_dir / "report.html").read_text(encoding="utf-8")
+    prov = json.loads((fit_dir / "provenance.json").read_text())
+    hosts = Table.read(prov["inputs"]["hosts"]["path"], format="ascii.ecsv")
+    dist = Table.read(fit_dir / "distances.ecsv", format="ascii.ecsv")
+    (a,) = [r for r in hosts if r["role"] == "anchor"]
+    (d,) = [r for r in dist if r["host"] == a["host"]]
+    z = (float(a["mu_geo"]) - float(d["mu_mean"])) / math.hypot(float(a["mu_geo_err"]), float(d["mu_sd"]))
+    row = re.search(re.escape(f"<td>{a['host']}</td>") + r'<td class="n">[^<]*</td><td class="n">[^<]*</td>'
+                    r'<td class="n">([-+\d.]+)</td>', text)
+    assert row and abs(float(row.group(1)) - z) <= REPORT_Z_ATOL

@@ -87,3 +87,4 @@ BIAS_Z = 3.0  # an offset beyond 3 posterior sds is a bias, not noise (one-sided
 PARALLAX_MODULUS_ATOL = 0.01  # parallax stars, model residual vs the equation at the posterior-mean distance: 0.01 mag is far below what a residual panel (~1 mag over ~1 inch) shows
 PRIOR_SD_RTOL = 1e-12  # prior standard deviations in closed form vs scipy.stats: only rounding differs
 REPORT_NUMBER_ATOL = 0.0005 + 1e-12  # the report prints moduli to 3 decimals: rounding moves them by at most half a unit
+REPORT_Z_ATOL = 0.005 + 1e-12  # the report prints anchor pulls z to 2 decimals: rounding moves them by at most half a unit
