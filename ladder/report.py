@@ -208,8 +208,12 @@ def _interval(med: float, lo: float, hi: float, decimals: int | None = None) -> 
     return f"{med:.{decimals}f} <small>+{hi - med:.{decimals}f} &minus;{med - lo:.{decimals}f}</small>"
 
 
-def _table(head: list[str], rows: list[list[str]], numeric: set[int] = frozenset()) -> str:
-    """``head`` and cells are HTML already (escape before)."""
+def _table(head: list[str] | None, rows: list[list[str]], numeric: set[int] = frozenset()) -> str:
+    """``head`` (None: no header row) and cells are HTML already (escape before)."""
+    if head is None:
+        body = "".join("<tr>" + "".join(f"<th>{c}</th>" if j == 0 else f"<td>{c}</td>" for j, c in enumerate(r))
+                       + "</tr>" for r in rows)
+        return f"<table><tbody>{body}</tbody></table>"
     th = "".join(f"<th>{h}</th>" for h in head)
     body = "".join("<tr>" + "".join(f'<td class="n">{c}</td>' if j in numeric else f"<td>{c}</td>"
                                     for j, c in enumerate(r)) + "</tr>" for r in rows)
@@ -481,15 +485,15 @@ def report_html(out_dir: str | Path) -> str:
             ["seed", _e(prov.get("seed", "?"))], ["chain method", _e(prov.get("chain_method", "?"))],
             ["Python", _e(prov.get("python", "?"))], ["platform", _e(prov.get("platform", "?"))],
             ["packages", _e(", ".join(f"{k} {v}" for k, v in (prov.get("packages") or {}).items()))]]
-    add(_table(["", ""], rows))
+    add(_table(None, rows))
     inputs = prov.get("inputs") or {}
     if inputs:
         add("<h3>Inputs</h3>")
         add(_table(["role", "path", "SHA-256"], [[_e(k), f"<code>{_e(v.get('path'))}</code>",
                                                   f"<code>{_e(v.get('sha256'))}</code>"] for k, v in inputs.items()]))
     if run:
-        add("<h3>Resolved run settings</h3>")
-        add(f"<pre>{_e(json.dumps(run, indent=1))}</pre>")
+        add("<details><summary>Resolved run settings (the run file with every default filled in)</summary>"
+            f"<pre>{_e(json.dumps(run, indent=1))}</pre></details>")
 
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
