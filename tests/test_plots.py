@@ -450,3 +450,11 @@ def test_galaxy_chi2_is_the_sum_of_squared_normalised_residuals(result):
         z = pts.residual[sel] / np.sqrt(pts.residual_error[sel] ** 2 + sig[i] ** 2)
         np.testing.assert_allclose(chi2[i], np.sum(z**2), rtol=1e-10)
         assert n[i] == sel.sum()
+
+
+def test_distance_figure_at_many_galaxies_is_a_ranked_overview(result, tmp_path):
+    from ladder.plots import plot_distances
+
+    path = plot_distances(result, tmp_path / "d.png", truths={"LMC": LMC_MU}, max_rows=1)
+    w, h = _png_size(path)
+    assert w >= 600 and 300 <= h <= 1000  # one figure of fixed size, not a row per galaxy

@@ -8,9 +8,9 @@ import numpy as np
 
 from ._posterior import _mu_columns, _mu_draws
 from ._style import FONT_SIZE, _ANCHOR_COLOR, _HOST_COLOR, _TRUTH_COLOR, _figure, _host_order, _save, format_distance
-from .labels import axis_label
+from .labels import axis_label, symbol
 
-__all__ = ["plot_distances"]
+__all__ = ["plot_distances", "MAX_FOREST_ROWS"]
 
 
 def _tick_distance(mpc: float) -> str:
@@ -45,7 +45,11 @@ def _mpc_axis(ax, fs):
     return sec
 
 
-def plot_distances(result, path, truths: dict | None = None) -> Path:
+#: Above this many galaxies the forest plot (one named row each) becomes a ranked overview (see plot_distances).
+MAX_FOREST_ROWS = 80
+
+
+def plot_distances(result, path, truths: dict | None = None, *, max_rows: int = MAX_FOREST_ROWS) -> Path:
     r"""Forest plot of the galaxies' distance moduli, one row each (anchors first, in red).
 
     Only galaxies with one distance (posterior ``mu``); parallax groups, whose stars have distances
@@ -55,6 +59,11 @@ def plot_distances(result, path, truths: dict | None = None) -> Path:
     galaxies span many magnitudes; there the anchors' geometric :math:`\mu_\mathrm{geo} \pm
     \sigma_\mathrm{geo}` (black) and ``truths`` (galaxy name -> :math:`\mu`, green crosses) are drawn
     relative to the same median. Numbers (median and 68% interval, distance in kpc or Mpc) are written on the right.
+
+    Above ``max_rows`` galaxies the names would not be readable: the figure then ranks the galaxies by median
+    :math:`\mu` (68% and 90% intervals as vertical bars, anchors named, in red) and shows beside it the posterior
+    sd of every galaxy's :math:`\mu` against its number of Cepheids; each galaxy's numbers are in
+    ``distances.ecsv``.
     """
     from matplotlib.lines import Line2D
     from matplotlib.ticker import MaxNLocator
@@ -73,6 +82,8 @@ def plot_distances(result, path, truths: dict | None = None) -> Path:
     n = len(order)
     truths = {k: float(v) for k, v in (truths or {}).items() if k in data.host_names and
               data.host_names.index(k) in cols}
+    if n > max_rows:
+        return _ranked(result, path, order, mu, (q05, q16, q50, q84, q95), groups, truths)
     fs = FONT_SIZE if n <= 25 else FONT_SIZE - 1.0
     row_h = 0.26 if n <= 25 else 0.22
     extra = 0.2 if groups else 0.0
@@ -156,3 +167,71 @@ def plot_distances(result, path, truths: dict | None = None) -> Path:
     return _save(fig, path)
 
 
+
+
+def _ranked(result, path, order, mu, quantiles, groups, truths) -> Path:
+    """Many galaxies: median mu by rank with 68%/90% bars (anchors named), and posterior sd vs Cepheid count."""
+    from matplotlib.lines import Line2D
+
+    data = result.data
+    q05, q16, q50, q84, q95 = quantiles
+    fs = FONT_SIZE
+    width, height = 11.0, 5.4
+    fig = _figure(width, height)
+    ax = fig.add_axes((0.75 / width, 0.85 / height, 6.1 / width, 1 - 1.7 / height))
+    axs = fig.add_axes((7.75 / width, 0.85 / height, 2.95 / width, 1 - 1.7 / height))
+    idx = np.array(order)
+    rank = np.empty(idx.size, int)
+    rank[np.argsort(q50[idx], kind="stable")] = np.arange(1, idx.size + 1)
+    anchor = np.asarray(data.is_anchor)[idx]
+    for sel, c in ((~anchor, _HOST_COLOR), (anchor, _ANCHOR_COLOR)):
+        x = rank[sel]
+        g = idx[sel]
+        ax.vlines(x, q05[g], q95[g], color=c, lw=0.4, alpha=0.6)
+        ax.vlines(x, q16[g], q84[g], color=c, lw=1.2, alpha=0.9)
+        ax.plot(x, q50[g], "D" if c == _ANCHOR_COLOR else "o", ms=4 if c == _ANCHOR_COLOR else 1.4, color=c,
+                mec=c, mfc="white" if c == _ANCHOR_COLOR else c, ls="", zorder=3)
+    for x, g in zip(rank[anchor], idx[anchor]):
+        ax.annotate(data.host_names[g], (x, q50[g]), xytext=(4, -8), textcoords="offset points", fontsize=fs - 1,
+                    color=_ANCHOR_COLOR)
+        if np.isfinite(data.mu_geo[g]):
+            ax.errorbar([x], [data.mu_geo[g]], yerr=[data.mu_geo_err[g]], fmt="o", ms=3, mfc="none", mec="k",
+                        ecolor="k", elinewidth=0.8, capsize=1.5, zorder=4)
+    for name, v in truths.items():
+        g = data.host_names.index(name)
+        ax.plot([rank[list(idx).index(g)]], [v], "x", color=_TRUTH_COLOR, ms=3.5, mew=1.0, zorder=5)
+    pad = max(1.0, 0.02 * idx.size)
+    ax.set_xlim(1 - pad, idx.size + pad)
+    from matplotlib.ticker import MaxNLocator
+
+    ax.xaxis.set_major_locator(MaxNLocator(8, integer=True))
+    ax.set_xlabel("galaxy, ranked by median distance modulus", fontsize=fs + 0.5)
+    ax.set_ylabel(f"distance modulus {axis_label('mu')}", fontsize=fs + 0.5)
+    ax.tick_params(labelsize=fs)
+    ax.grid(axis="y", color="0.88", lw=0.6)
+    ax.set_axisbelow(True)
+    sd = np.nanstd(mu[:, idx], axis=0, ddof=1)
+    n_cep = np.asarray(data.n_cepheids)[idx]
+    axs.plot(n_cep[~anchor], sd[~anchor], "o", ms=1.8, color=_HOST_COLOR, alpha=0.6, ls="")
+    axs.plot(n_cep[anchor], sd[anchor], "D", ms=4, mfc="white", mec=_ANCHOR_COLOR, ls="")
+    axs.set_xscale("log" if n_cep.max() > 5 * max(n_cep.min(), 1) else "linear")
+    axs.set_xlabel("Cepheids in the galaxy", fontsize=fs + 0.5)
+    axs.set_ylabel(f"posterior sd of {symbol('mu')} [mag]", fontsize=fs + 0.5)
+    axs.tick_params(labelsize=fs)
+    axs.set_title("precision of each distance", fontsize=fs + 0.5, pad=3)
+    handles = [Line2D([], [], color="0.3", lw=1.2, label="68%"), Line2D([], [], color="0.3", lw=0.4, label="90%"),
+               Line2D([], [], ls="", marker="o", ms=3, color=_HOST_COLOR, label="host (median)"),
+               Line2D([], [], ls="", marker="D", mfc="white", mec=_ANCHOR_COLOR, label="anchor (median)"),
+               Line2D([], [], ls="-", marker="o", mfc="none", color="k", lw=0.8,
+                      label=r"geometric $\mu_\mathrm{geo}\pm\sigma$")]
+    if truths:
+        handles.append(Line2D([], [], ls="", marker="x", color=_TRUTH_COLOR, label="truth"))
+    fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=fs - 0.5, frameon=False,
+               bbox_to_anchor=(0.5, 0.005), handlelength=1.6, columnspacing=1.2)
+    fig.text(0.5, 1 - 0.12 / height, f"Distance moduli (posterior) of {idx.size} galaxies", ha="center", va="top",
+             fontsize=fs + 2)
+    note = ("too many to name here: every galaxy's median, quantiles and distance are in distances.ecsv"
+            + ("; not shown: parallax group" + ("s " if len(groups) > 1 else " ") + ", ".join(groups)
+               if groups else ""))
+    fig.text(0.5, 1 - 0.42 / height, note, ha="center", va="top", fontsize=fs, color="0.3")
+    return _save(fig, path)
