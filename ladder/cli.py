@@ -1,7 +1,7 @@
 """Command line: a thin skin over the Python API.
 
 ``ladder fit RUN.toml --out DIR [--strict] [--force]``, ``ladder check RUN.toml [--strict]``,
-``ladder simulate --out DIR [--seed N] ...``. Exit codes: 0 ok, 2 bad input (and, under ``--strict``,
+``ladder simulate --out DIR [--seed N] ...``, ``ladder report DIR``. Exit codes: 0 ok, 2 bad input (and, under ``--strict``,
 implausible input), 3 failed diagnostics under ``--strict``. Implausible values (likely unit mistakes,
 :mod:`ladder.plausibility`) are printed as ``ladder: warning: ...``, one line each.
 """
@@ -39,10 +39,15 @@ def _parser() -> argparse.ArgumentParser:
     f.add_argument("--predictive", action="store_true",
                    help="store replicated Cepheid magnitudes (200 posterior draws) as posterior_predictive in posterior.nc")
     f.add_argument("--no-check", action="store_true", help="skip the posterior predictive check (ppc.ecsv, ppc.png)")
+    # -- report (ladder/report.py): `fit --report` and `ladder report DIR`
+    f.add_argument("--report", action="store_true", help="also write DIR/report.html (see `ladder report`)")
 
     c = sub.add_parser("check", help="validate the inputs of a run file and print a summary")
     c.add_argument("run", metavar="RUN.toml", help="run file")
     c.add_argument("--strict", action="store_true", help="refuse implausible input (exit 2) instead of warning")
+
+    r = sub.add_parser("report", help="write DIR/report.html from a fit's output directory (one self-contained file)")
+    r.add_argument("dir", metavar="DIR", help="output directory of `ladder fit`")
 
     s = sub.add_parser("simulate", help="write a mock universe (catalogues, run file, truth)")
     s.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
@@ -100,6 +105,10 @@ def _fit(args) -> int:
     out = write_outputs(result, args.out, config=cfg, force=args.force, argv=["ladder", *sys.argv[1:]],
                         plots=not args.no_plots)
     _say(f"ladder: wrote {out}")
+    if args.report:
+        from .report import write_report
+
+        _say(f"ladder: wrote {write_report(out)}")
     print(_headline(result))
     if not result.diagnostics.passed:
         _say("ladder: WARNING: the sampler diagnostics failed; do not use these numbers before fixing the run "
@@ -205,6 +214,13 @@ def _check(args) -> int:
     return EXIT_OK
 
 
+def _report(args) -> int:
+    from .report import write_report
+
+    print(write_report(args.dir))
+    return EXIT_OK
+
+
 def _simulate(args) -> int:
     import math
     import re
@@ -266,7 +282,7 @@ def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code (``sys.exit(main())`` in the console script)."""
     args = _parser().parse_args(argv)
     try:
-        return {"fit": _fit, "check": _check, "simulate": _simulate}[args.command](args)
+        return {"fit": _fit, "check": _check, "simulate": _simulate, "report": _report}[args.command](args)
     except InputError as exc:
         _say(f"ladder: error: {exc}")
         return EXIT_BAD_INPUT

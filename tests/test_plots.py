@@ -330,7 +330,7 @@ def test_wesenheit_ratio_from_the_law_matches_extinction_package(result):
     extinction.fitzpatrick99(wave_AA, a_v=1, r_v) = A_lambda / A_V."""
     import extinction
 
-    from ladder.plots import _wesenheit_r
+    from ladder.plots._model_view import _wesenheit_r
 
     other = _with_wesenheit(result, WesenheitSettings(("I", "V", "I"), from_law=True),
                             ReddeningSettings("fitzpatrick99", 3.1))
@@ -339,7 +339,7 @@ def test_wesenheit_ratio_from_the_law_matches_extinction_package(result):
 
 
 def test_outliers_and_clipped_stars_are_flagged(result, full_result):
-    from ladder.plots import _flags
+    from ladder.plots._posterior import _flags
 
     for res, label in ((result, "clipped"), (full_result, "outlier")):
         flags, text = _flags(res)
@@ -362,7 +362,7 @@ def test_lmc_residual_scatter_is_that_of_the_wesenheit_pl(result):
 
 # ----------------------------------------------------------------------------- corner, distances, Hubble
 def test_corner_has_one_axis_per_band_and_at_most_ten(full_result):
-    from ladder.plots import MAX_CORNER_AXES, _corner_entries
+    from ladder.plots.corner import MAX_CORNER_AXES, _corner_entries
 
     shown, omitted = _corner_entries(full_result)
     assert len(shown) == MAX_CORNER_AXES
@@ -377,7 +377,7 @@ def test_hubble_line_is_flat_lcdm(full_result):
     Calibrators: their host's posterior-mean mu plus the posterior-mean SN absolute magnitude."""
     from astropy.cosmology import FlatLambdaCDM
 
-    from ladder.plots import _sn_points
+    from ladder.plots._model_view import _sn_points
 
     res = full_result
     s = res.model.supernovae
@@ -395,10 +395,67 @@ def test_hubble_line_is_flat_lcdm(full_result):
 
 
 def test_parallax_group_is_left_out_of_the_distances(full_result):
-    from ladder.plots import _mu_columns
+    from ladder.plots._posterior import _mu_columns
 
     cols = _mu_columns(full_result)
     from ladder.simulate import MockSettings
 
     assert full_result.data.host_names.index(MockSettings().parallax_group) not in cols
     assert len(cols) == full_result.data.n_hosts - 1
+
+
+# ----------------------------------------------------------------------------- labels, many galaxies
+def test_every_output_name_has_one_label_with_the_tables_unit():
+    """The label mapping (figures and report) covers every global parameter, with the unit of parameters.ecsv."""
+    from ladder.model import GLOBAL_PARAMETERS
+    from ladder.plots.labels import LABELS, axis_label, html_symbol
+    from ladder.summary import UNITS
+
+    for name in GLOBAL_PARAMETERS:
+        assert name in LABELS, name
+    for name, unit in UNITS.items():
+        assert LABELS[name].unit == unit, name
+    assert axis_label("pl_zero_point[H]") == "$M_0$ (H) [mag]"
+    assert html_symbol("pl_zero_point[<b>]") == "M<sub>0</sub> (&lt;b&gt;)"
+
+
+def test_many_galaxies_get_anchors_and_the_worst_fitting_hosts():
+    from ladder.plots.pl_relations import select_galaxies
+
+    roles = ("host", "anchor", "host", "parallax", "host", "host", "anchor")
+    chi2 = np.array([10.0, 99.0, 40.0, 0.0, 5.0, 80.0, 1.0])
+    n = np.array([10, 10, 10, 5, 10, 10, 10])
+    assert select_galaxies(roles, chi2, n, max_panels=10) == [1, 6, 3, 0, 2, 4, 5]  # all fit: anchors first
+    assert select_galaxies(roles, chi2, n, max_panels=5) == [1, 6, 3, 5, 2]  # then chi2/N 8.0, 4.0
+
+
+def test_pl_figure_at_many_galaxies_has_panels_for_the_selection(result, tmp_path):
+    """With max_panels below the number of galaxies the figure still draws (summary row) and is a PNG."""
+    from ladder.plots import plot_pl_relations
+
+    path = plot_pl_relations(result, tmp_path / "pl.png", max_panels=1)
+    w, h = _png_size(path)
+    assert w >= 600 and h >= 300
+
+
+def test_galaxy_chi2_is_the_sum_of_squared_normalised_residuals(result):
+    from ladder.plots import pl_points
+    from ladder.plots._posterior import _flags
+    from ladder.plots.pl_relations import galaxy_chi2
+
+    pts, flags = pl_points(result), _flags(result)[0]
+    chi2, n = galaxy_chi2(result)
+    sig = _per_galaxy(result, "host_scatter", "galaxy")
+    for i in range(result.data.n_hosts):
+        sel = (result.data.star_host == i) & ~flags
+        z = pts.residual[sel] / np.sqrt(pts.residual_error[sel] ** 2 + sig[i] ** 2)
+        np.testing.assert_allclose(chi2[i], np.sum(z**2), rtol=1e-10)
+        assert n[i] == sel.sum()
+
+
+def test_distance_figure_at_many_galaxies_is_a_ranked_overview(result, tmp_path):
+    from ladder.plots import plot_distances
+
+    path = plot_distances(result, tmp_path / "d.png", truths={"LMC": LMC_MU}, max_rows=1)
+    w, h = _png_size(path)
+    assert w >= 600 and 300 <= h <= 1000  # one figure of fixed size, not a row per galaxy

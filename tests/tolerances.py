@@ -106,3 +106,6 @@ MU_PRIOR_PULL_MCSE_Z = 4.0  # posterior mean vs the normal-normal closed form, i
 MU_PRIOR_SD_RTOL = 0.15  # posterior sd vs closed form; 600 draws give a relative MC error of ~1/sqrt(2 ESS) ~ 4 %, x ~4
 # --- plausibility messages (tests/test_plausibility.py) ---
 KPC_MODULUS_ROUNDING = 0.005  # 49.59 kpc and 18.477 mag are both published to their last digit (Pietrzynski et al. 2019); 5 log10 of the rounded distance differs by < 0.005 mag
+PRIOR_SD_RTOL = 1e-12  # prior standard deviations in closed form vs scipy.stats: only rounding differs
+REPORT_NUMBER_ATOL = 0.0005 + 1e-12  # the report prints moduli to 3 decimals: rounding moves them by at most half a unit
+REPORT_Z_ATOL = 0.005 + 1e-12  # the report prints anchor pulls z to 2 decimals: rounding moves them by at most half a unit
