@@ -86,7 +86,7 @@ def _clip(arrays, layout, model):
             raise InputError(f"clipping at clip_sigma = {model.clip_sigma:g} would reject every Cepheid of "
                              f"{', '.join(empty)} (raise [model] clip_sigma)", key="model.clip_sigma")
         kept = with_mask(lin, seen & keep[:, None])
-        loc, glob = jit("conditional_mean")(st, kept, ov, mu0, include_prior=False)
+        loc, glob = jit("conditional_mean")(st, kept, ov, mu0)  # the priors keep degenerate columns determined
         return np.asarray(jit("residuals")(st, kept, loc, glob, mu0))[:, 0] / sd
 
     keep, _ = iterative_clip(refit, n, n_sigma=model.clip_sigma)

@@ -64,7 +64,6 @@ from typing import NamedTuple
 import numpy as np
 
 from .config import ModelSettings
-from .terms.pl import PIVOT_LOG_PERIOD
 
 __all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal",
            "conditional_mean", "conditional_draw", "residuals", "unpack", "pack", "LINEAR_PARAMETERS",
@@ -192,21 +191,26 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     structure = Structure(tuple(columns), tuple(fixed), n_local, layout.n_mu, tuple(bands), band_shaped,
                           tuple(bounds), bool(np.all(np.diff(slot0) >= 0)))
 
+    # The regressors are the model terms themselves (linear in their parameters), evaluated at unit parameter
+    # values: M(P) of ladder.terms.pl and the offset of ladder.terms.metallicity.
+    from .terms import metallicity_offset, pl_absolute_magnitude
+    from .terms.pl import pl_absolute_magnitude_broken
+
     x = np.asarray(arrays.log_period, float)
     if settings.pl_break:
         xb = float(np.log10(settings.pl_break_period))
-        x_short, x_long = np.minimum(x, xb) - PIVOT_LOG_PERIOD, np.maximum(x - xb, 0.0)
+        pl = lambda zp, b, bl: np.asarray(pl_absolute_magnitude_broken(x, zp, b, bl, xb), float)  # noqa: E731
     else:
-        x_short, x_long = x - PIVOT_LOG_PERIOD, np.zeros_like(x)
-    oh = np.asarray(arrays.oh, float) - settings.solar_oh
+        pl = lambda zp, b, bl: np.asarray(pl_absolute_magnitude(x, zp, b), float) + 0.0 * bl  # noqa: E731
+    oh = np.asarray(metallicity_offset(np.asarray(arrays.oh, float), settings.solar_oh, 1.0), float)
     band_of_col = np.arange(k) if band_shaped else np.zeros(k, int)
+    base_of = {"pl_zero_point": pl(1.0, 0.0, 0.0), "pl_slope": pl(0.0, 1.0, 0.0), "pl_slope_long": pl(0.0, 0.0, 1.0),
+               "metallicity_coef": oh, "sn_abs_mag": np.zeros(n), "h0": np.zeros(n)}
 
     def regressor(name, b):
         """(N, k) values of one global parameter's regressor in the Cepheid rows."""
         hit = np.ones((n, k)) if b is None else (band_of_col[None, :] == b) * np.ones((n, 1))
-        base = {"pl_zero_point": np.ones(n), "pl_slope": x_short, "pl_slope_long": x_long,
-                "metallicity_coef": oh, "sn_abs_mag": np.zeros(n), "h0": np.zeros(n)}[name]
-        return hit * base[:, None]
+        return hit * base_of[name][:, None]
 
     design = np.stack([regressor(nm, b) for nm, b in columns], axis=-1) if columns else np.zeros((n, k, 0))
     seen = np.asarray(mask, bool)

@@ -1,11 +1,11 @@
 r"""The model's prediction as the figures see it: numpy evaluation at the posterior mean.
 
 Everything the figures need of the model's *prediction* lives here and nowhere else in :mod:`ladder.plots`:
-the PL line (:func:`_pl_line`), the fitted magnitude (:func:`_observed`, with the Wesenheit ratio of
-:func:`_wesenheit_r`), the pieces of the prediction per star and band (:func:`_band_model`), each star's
-extinction (:func:`_extinction`), the drawn points and residuals (:func:`pl_points`, :func:`pl_residuals`),
-and the supernovae's expected magnitudes (:func:`_sn_points`). It is meant to become calls to the model's
-single definition of the prediction.
+the PL line (:func:`_pl_line`, the model's own PL term), the fitted magnitude (:func:`_observed`, the
+model's :func:`ladder.model.fitted_data`), the pieces of the prediction per star and band (:func:`_band_model`,
+from the model's single definition of the prediction, :func:`ladder.structure.residuals`), the drawn points and
+residuals (:func:`pl_points`, :func:`pl_residuals`), and the supernovae's expected magnitudes
+(:func:`_sn_points`).
 
 For Cepheid *j* of galaxy *i*, drawn in band *B*,
 
@@ -31,11 +31,11 @@ from typing import NamedTuple
 
 import numpy as np
 
-from ._posterior import (_bias_draws, _draws, _galaxy_draws, _layout, _means, _model_arrays, _mu_columns,
-                         _mu_draws, _scatter_draws)
+from ._posterior import (_draws, _layout, _means, _model_arrays, _mu_columns,
+                         _mu_draws)
 
 __all__ = ["PLPoints", "pl_points", "pl_residuals", "_pl_line", "_wesenheit_r", "_observed", "_band_model",
-           "_extinction", "_panel_columns", "_SNPoints", "_sn_points"]
+           "_panel_columns", "_SNPoints", "_sn_points"]
 
 
 def _pl_line(result, log_period, zero_point, slope, slope_long):
@@ -71,90 +71,69 @@ class PLPoints(NamedTuple):
 
 
 def _wesenheit_r(result) -> float:
-    """The Wesenheit ratio the model used at the posterior mean (see :func:`_draws`)."""
-    return float(_draws(result, "wesenheit_r").mean())
+    """The (fixed) Wesenheit ratio of the fit: :func:`ladder.model.wesenheit_ratio_value`."""
+    from ..model import wesenheit_ratio_value
+
+    return wesenheit_ratio_value(result.model)
 
 
 def _observed(result, arrays):
-    """What the model fits, per star and fitted column: ``(mag, err, mask, column bands)``, (n_stars, k)."""
-    from ..terms import wesenheit_error, wesenheit_index
+    """What the model fits, per star and fitted column: ``(mag, err, mask, column bands)``, (n_stars, k);
+    :func:`ladder.model.fitted_data`."""
+    from ..model import fitted_data
 
-    model = result.model
-    mag, err, mask = (np.asarray(a) for a in (arrays.mag, arrays.mag_err, arrays.mag_mask))
-    if model.wesenheit is None:
-        return mag.astype(float), err.astype(float), mask.astype(bool), tuple(model.fitted_bands)
-    b = model.wesenheit.bands
-    r = _wesenheit_r(result)
-    w = wesenheit_index(mag[:, 0], mag[:, 1], mag[:, 2], r)
-    e = wesenheit_error(err[:, 0], err[:, 1], err[:, 2], r, b[0] == b[1], b[0] == b[2])
-    return np.asarray(w, float)[:, None], np.asarray(e, float)[:, None], np.ones((w.size, 1), bool), ("W",)
+    obs, err, mask = fitted_data(arrays, result.model)
+    bands = ("W",) if result.model.wesenheit is not None else tuple(result.model.fitted_bands)
+    return obs, err, mask, bands
 
 
 def _band_model(result, arrays=None, means=None):
-    r"""The model's pieces at the posterior mean, per star and fitted column (numpy, independent of the trace).
+    r"""The model's pieces at the posterior mean, per star and fitted column, from the model's own prediction
+    (:func:`ladder.structure.residuals`: prediction = observed - residual) and its conditional extinction
+    (:func:`ladder.model.pointwise`).
 
     Returns a dict of (n_stars, k) arrays: ``obs``, ``err``, ``mask``, ``correction`` (metallicity term
     plus extinction), ``own_mu`` (the star's own modulus for parallax stars, else 0, broadcast),
     ``line`` (:math:`[\bar\mu_i +] M(P) + \bar\beta_i`), and ``bands`` (k,).
     """
+    import jax.numpy as jnp
+
+    from .._jax import enable_x64
+    from ..model import model_parts, mu_parallax, nonlinear_inputs, pointwise, theta_from_params
+    from ..structure import residuals
+    from ..terms import metallicity_offset
+
+    enable_x64()
     data, model = result.data, result.model
     if arrays is None:
         arrays = _model_arrays(result)[0]
     if means is None:
         means = _means(result)
+    layout = _layout(result)
+    parts = model_parts(arrays._replace(star_weight=np.ones(data.n_stars)), layout, model)
+    p = {k: jnp.asarray(v) for k, v in means.items()}
+    for name, value in parts.structure.fixed:
+        p.setdefault(name, jnp.asarray(value))
     obs, err, mask, bands = _observed(result, arrays)
     n, k = obs.shape
-    # distances: one modulus per galaxy, or the star's own (parallax stars)
-    mu_all = np.asarray(means["mu"], float).reshape(-1)
-    if "log_distance_pc" in means:
-        mu_all = np.concatenate([mu_all, 5.0 * np.log10(np.exp(np.asarray(means["log_distance_pc"], float))) - 5.0])
-    star_mu = mu_all[np.asarray(arrays.star_mu_index)]
+    tl, tg = theta_from_params(parts, p)
+    mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
+    pred = np.asarray(parts.observed) - np.asarray(residuals(parts.structure, parts.lin, tl, tg, mu_par))
     absolute = np.asarray(data.is_parallax_group)[data.star_host]
-    # PL relation per fitted column (per-band parameters only in the multiband model)
-    layout_bands = _layout(result).bands
-    per_band = len(layout_bands) == k and model.multiband
-    zp, sl, sll = (np.array([_draws(result, p, b if per_band else None).mean()
-                             for b in (layout_bands if per_band else [None] * k)])
-                   for p in ("pl_zero_point", "pl_slope", "pl_slope_long"))
-    x = np.asarray(data.log_period, float)[:, None]
-    pl = _pl_line(result, x, zp[None, :], sl[None, :], sll[None, :])
-    gamma = float(_draws(result, "metallicity_coef").mean())
-    metal = gamma * (np.asarray(arrays.oh, float) - model.solar_oh) if model.metallicity else np.zeros(n)
-    bias = _bias_draws(result).mean(axis=0)[data.star_host]
-    loc = star_mu[:, None] + pl + bias[:, None] + metal[:, None]  # the model's prediction before extinction
+    own = np.zeros(n)
+    if mu_par is not None:
+        own[np.asarray(parts.lin.par_star)] = np.asarray(mu_par)
+    gamma = p.get("metallicity_coef", jnp.asarray(0.0)) if model.metallicity else jnp.asarray(0.0)
+    metal = np.asarray(metallicity_offset(np.asarray(arrays.oh, float), model.solar_oh, gamma), float) \
+        if model.metallicity else np.zeros(n)
     ext = np.zeros((n, k))
-    if model.multiband:
-        ext = _extinction(result, obs - loc, err, mask, arrays)
-    own = np.where(absolute, star_mu, 0.0)[:, None] * np.ones((1, k))
-    line = np.where(absolute, 0.0, star_mu)[:, None] + pl + bias[:, None]
-    return {"obs": obs, "err": err, "mask": mask, "correction": metal[:, None] + ext, "own_mu": own,
-            "line": line, "bands": bands, "absolute": absolute}
-
-
-def _extinction(result, resid, err, mask, arrays) -> np.ndarray:
-    r"""Each star's extinction in each fitted band at the posterior mean, (n_stars, k), mag.
-
-    :math:`A_{jB} = (A_B/A_V)(\bar R_V)\,\bar R_V\,\hat E_j`, with :math:`\hat E_j` the star's conditional
-    posterior-mean :math:`E(B-V)` given the posterior-mean parameters
-    (:func:`ladder.terms.noise.reddening_posterior_mean`, the quantity :func:`ladder.model.star_residuals`
-    removes); ``resid`` are the residuals before extinction.
-    """
-    import jax
-
-    from ..reddening import extinction_ratio
-    from ..terms.noise import reddening_posterior_mean
-
-    model, data = result.model, result.data
-    r_v = float(_draws(result, "r_v").mean())
-    a = np.asarray(extinction_ratio(model.reddening.law, np.asarray(arrays.wavelength, float), r_v), float) * r_v
-    if "ebv_mean" in result.idata.posterior and model.prior("ebv_mean").dist != "fixed":
-        ebv_mean = _galaxy_draws(result, "ebv_mean", "galaxy").mean(axis=0)
-    else:
-        ebv_mean = np.full(data.n_hosts, float(model.prior("ebv_mean").get("value")))
-    scat = _scatter_draws(result).mean(axis=0)[data.star_host]
-    e_hat = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(
-        resid, err**2, mask, scat**2, a, 1.0 / ebv_mean[data.star_host])
-    return np.asarray(e_hat, float)[:, None] * a[None, :]
+    extinction, _ = nonlinear_inputs(parts, model, p)
+    if extinction is not None:
+        ebv = np.asarray(pointwise(parts, model, p)["ebv"])
+        ext = ebv[:, None] * np.asarray(extinction[0])[None, :]
+    line = pred - metal[:, None] - own[:, None]
+    return {"obs": obs, "err": err, "mask": mask, "correction": metal[:, None] + ext,
+            "own_mu": own[:, None] * np.ones((1, k)), "line": line, "bands": bands, "absolute": absolute}
 
 
 def _panel_columns(result, pieces) -> np.ndarray:
