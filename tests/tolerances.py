@@ -85,3 +85,6 @@ BIAS_Z = 3.0  # an offset beyond 3 posterior sds is a bias, not noise (one-sided
 
 # --- figures for every model variant (tests/test_plots.py) ---
 PARALLAX_MODULUS_ATOL = 0.01  # parallax stars, model residual vs the equation at the posterior-mean distance: 0.01 mag is far below what a residual panel (~1 mag over ~1 inch) shows
+
+# --- mock universe regression values (tests/test_simulate.py::test_default_mock_numbers_unchanged) ---
+MOCK_REGRESSION_RTOL = 1e-9  # recorded to 12 significant digits (5e-12 relative); library versions move float64 results by ~1e-15 relative, while any change of a draw moves them by >= 1e-4
