@@ -9,6 +9,11 @@ __all__ = ["InputError"]
 _MAX_ROWS_SHOWN = 5
 
 
+def _printable(text: str) -> str:
+    """Escape control characters (newline, tab, NUL, ...) so that a message stays on one line."""
+    return "".join(c if c.isprintable() or c == " " else repr(c)[1:-1] for c in text)
+
+
 class InputError(ValueError):
     """Bad input: names the file, the column or key, and the first offending rows.
 
@@ -45,4 +50,4 @@ class InputError(ValueError):
             word = "row" if len(self.rows) == 1 else "rows"
             parts.append(f"data {word} {shown}{tail}")
         where = ": ".join(parts)
-        return f"{where}: {self.message}" if where else self.message
+        return _printable(f"{where}: {self.message}" if where else self.message)

@@ -317,10 +317,13 @@ def run_defect(draw, case: Case):
             d.pop(last, None)
     elif kind == "unknown_key":
         d, _ = _walk(case.doc, draw(st.sampled_from(["model", "sampler", "data", "diagnostics"])) + ".x", create=True)
-        d[draw(name_text)] = draw(toml_value)
+        if d is not None:
+            d[draw(name_text)] = draw(toml_value)
     elif kind == "path":
         key = draw(st.sampled_from(["cepheids", "hosts", "supernovae"]))
-        case.doc.setdefault("data", {})[key] = draw(st.one_of(
+        if not isinstance(case.doc.get("data"), dict):
+            case.doc["data"] = {}
+        case.doc["data"][key] = draw(st.one_of(
             st.sampled_from(["", ".", "..", "/", "nowhere.ecsv", "run.toml", "hosts.csv", "cepheids.ecsv\n",
                              "<script>.ecsv", "Ωμέγα.ecsv", "a" * 300]), name_text))
     elif kind == "duplicate_key":
@@ -381,12 +384,20 @@ def _assert_one_error(err: str, files: list[str], case: Case) -> str:
     return msg
 
 
+def _named_tables(case: Case, d: Path) -> list[str]:
+    """The paths the run file gives for the tables (a defect may point them anywhere, e.g. ../../etc/passwd)."""
+    data = case.doc.get("data") if case.run_text is None else None
+    if not isinstance(data, dict):
+        return []
+    return [str(d / v) for v in data.values() if isinstance(v, str) and v and "\x00" not in v]
+
+
 def _check_case(case: Case, *, fit_on_failure: bool = True) -> int:
     with tempfile.TemporaryDirectory() as tmp:
         d = Path(tmp) / "run"
         d.mkdir()
         run = case.write(d)
-        files = [str(p) for p in d.iterdir()]
+        files = [str(p) for p in d.iterdir()] + _named_tables(case, d)
         before = _snapshot(Path(tmp))
         code, out, err = _main(["check", run])
         assert code in (EXIT_OK, EXIT_BAD_INPUT), (code, case.defects, err)
@@ -415,7 +426,45 @@ def test_the_base_run_is_valid(fmt, model, parallax, supernovae):
     assert _check_case(_base_case(fmt, model, parallax, supernovae)) == EXIT_OK
 
 
-_FAST = settings(max_examples=150, deadline=None, derandomize=True, database=None,
+def _set_doc(path, value):
+    def f(case: Case):
+        d, last = _walk(case.doc, path, create=True)
+        d[last] = value
+    return f
+
+
+#: Crashes the fuzzer found (each fixed in the input layer), kept as fixed examples.
+FOUND = [
+    ("prior-dist-is-a-list", _set_doc("model.priors.scatter", {"dist": []}), "'model.priors.scatter'"),
+    ("key-with-a-newline", _set_doc("sampler.x\ny", 1), "'sampler.x\\ny'"),
+    ("table-path-too-long", _set_doc("data.hosts", "a" * 300), "'data.hosts'"),
+    ("all-empty-string-column-in-csv", lambda case: _empty_csv_column(case, "hosts", 1), "'role'"),
+]
+
+
+def _empty_csv_column(case: Case, table: str, col: int) -> None:
+    """Every cell of one column empty, in CSV (astropy reads such a column as masked integers)."""
+    t = case.tables[table]
+    t.fmt = "csv"
+    for row in t.rows:
+        row[col] = ""
+    case.doc["data"][table] = f"{table}.csv"
+
+
+@pytest.mark.parametrize("mutate, culprit", [f[1:] for f in FOUND], ids=[f[0] for f in FOUND])
+def test_found_by_the_fuzzer(mutate, culprit, capsys):
+    case = _base_case("ecsv", 0, False, False)
+    mutate(case)
+    with tempfile.TemporaryDirectory() as tmp:
+        run = case.write(Path(tmp))
+        code, out, err = _main(["check", run])
+        files = [str(p) for p in Path(tmp).iterdir()]
+    assert code == EXIT_BAD_INPUT, err
+    msg = _assert_one_error(err, files, case)
+    assert culprit in msg, msg
+
+
+_FAST = settings(max_examples=100, deadline=None, derandomize=True, database=None,
                  suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 
 
