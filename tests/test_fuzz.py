@@ -481,7 +481,7 @@ def test_fuzzed_run_files_exit_0_or_2_with_one_message(case):
 
 
 @pytest.mark.slow
-@settings(max_examples=4000, deadline=None, database=None,
+@settings(max_examples=3000, deadline=None, database=None,
           suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 @given(cases(table_defects=(0, 4), run_defects=(0, 2)))
 def test_fuzzed_inputs_many_examples(case):

@@ -77,3 +77,24 @@ def test_signal_mid_fit_writes_nothing_and_keeps_the_earlier_set(runs, sig, code
     leftovers = [p.name for p in out.parent.iterdir() if p.name != out.name]
     assert leftovers == [], leftovers  # no .out.partial-* (nor .out.old-*) directory
     assert _snapshot(out) == before  # the earlier complete set, byte for byte (same environment)
+
+
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["SIGINT", "SIGTERM"])
+def test_a_signal_while_the_set_is_swapped_is_acted_on_after_the_swap(sig):
+    """write_outputs holds SIGINT/SIGTERM while it replaces the earlier set: the handler runs on leaving."""
+    import os
+
+    from ladder.cli import _on_sigterm
+    from ladder.outputs import _SignalsHeld
+
+    previous = signal.signal(sig, signal.default_int_handler if sig == signal.SIGINT else _on_sigterm)
+    try:
+        reached = False
+        with pytest.raises(KeyboardInterrupt):
+            with _SignalsHeld():
+                os.kill(os.getpid(), sig)
+                time.sleep(0.05)  # the signal arrives here and is only recorded
+                reached = True
+        assert reached
+    finally:
+        signal.signal(sig, previous)
