@@ -124,9 +124,13 @@ def read_table(path: str | Path):
     from astropy.table import Table
 
     path = Path(path).expanduser()
-    if not path.is_file():
-        raise InputError("file not found" if not path.exists() else "is not a file",
-                         file=str(path.resolve()))
+    try:
+        found = path.is_file()
+        exists = path.exists()
+    except OSError as exc:  # e.g. a name too long for the file system, a directory without permission
+        raise InputError(f"cannot be used as a path: {exc.strerror or exc}", file=str(path)) from None
+    if not found:
+        raise InputError("file not found" if not exists else "is not a file", file=str(path.resolve()))
     fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
     try:
         return Table.read(_without_bom(path), format=fmt)
@@ -195,7 +199,8 @@ def _require(table, cols, file):
 def _strings(table, col, file, *, required=True) -> np.ndarray:
     c = table[col]
     mask = np.asarray(getattr(c, "mask", np.zeros(len(c), bool)), bool)
-    vals = np.array([str(v).strip() for v in np.asarray(c.filled("") if hasattr(c, "filled") else c)], dtype=object)
+    # Masked cells are blanked below; an all-empty CSV column reads as masked integers, which filled("") rejects.
+    vals = np.array([str(v).strip() for v in np.asarray(np.ma.getdata(c))], dtype=object)
     empty = mask | (vals == "")
     if required and empty.any():
         raise InputError("empty value", file=file, key=col, rows=np.flatnonzero(empty))

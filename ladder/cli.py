@@ -1,9 +1,10 @@
 """Command line: a thin skin over the Python API.
 
 ``ladder fit RUN.toml --out DIR [--strict] [--force]``, ``ladder check RUN.toml [--strict]``,
-``ladder simulate --out DIR [--seed N] ...``, ``ladder report DIR``. Exit codes: 0 ok, 2 bad input (and, under ``--strict``,
-implausible input), 3 failed diagnostics under ``--strict``. Implausible values (likely unit mistakes,
-:mod:`ladder.plausibility`) are printed as ``ladder: warning: ...``, one line each.
+``ladder simulate --out DIR [--seed N] ...``, ``ladder report DIR``, ``ladder verify DIR``. Exit codes: 0 ok,
+1 ``verify`` found an input changed or missing, 2 bad input (and, under ``--strict``, implausible input),
+3 failed diagnostics under ``--strict``, 130 / 143 interrupted by SIGINT / SIGTERM (nothing written).
+Implausible values (likely unit mistakes, :mod:`ladder.plausibility`) are printed as ``ladder: warning: ...``.
 """
 
 from __future__ import annotations
@@ -15,9 +16,13 @@ import numpy as np
 
 from .errors import InputError, plural
 
-__all__ = ["main", "EXIT_OK", "EXIT_BAD_INPUT", "EXIT_DIAGNOSTICS"]
+__all__ = ["main", "EXIT_OK", "EXIT_BAD_INPUT", "EXIT_DIAGNOSTICS", "EXIT_VERIFY_MISMATCH", "EXIT_SIGINT",
+           "EXIT_SIGTERM"]
 
 EXIT_OK, EXIT_BAD_INPUT, EXIT_DIAGNOSTICS = 0, 2, 3
+EXIT_VERIFY_MISMATCH = 1
+#: 128 + signal number, the shell's convention for a process ended by a signal.
+EXIT_SIGINT, EXIT_SIGTERM = 130, 143
 
 
 def _say(msg: str) -> None:
@@ -73,6 +78,7 @@ def _parser() -> argparse.ArgumentParser:
         ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
     ):
         s.add_argument(flag, default=None, metavar=metavar, help=help_)
+    _add_verify_parser(sub)
     return p
 
 
@@ -278,17 +284,65 @@ def _simulate(args) -> int:
     return EXIT_OK
 
 
+# ----------------------------------------------------------------------------- verify
+def _add_verify_parser(sub) -> None:
+    v = sub.add_parser("verify", help="recompute the SHA-256 of a result set's inputs and report any change")
+    v.add_argument("dir", metavar="DIR", help="output directory of a fit (holds provenance.json)")
+
+
+def _verify(args) -> int:
+    from .verify import verify
+
+    checks = verify(args.dir)
+    for c in checks:
+        print(c.line())
+    bad = [c for c in checks if not c.ok]
+    if bad:
+        _say(f"ladder: {len(bad)} of {len(checks)} inputs do not match provenance.json: "
+             + ", ".join(f"{c.role} {c.status}" for c in bad))
+        return EXIT_VERIFY_MISMATCH
+    _say(f"ladder: all {len(checks)} inputs match provenance.json")
+    return EXIT_OK
+
+
+# ----------------------------------------------------------------------------- entry point
+class _Terminated(KeyboardInterrupt):
+    """SIGTERM, raised like KeyboardInterrupt so that the same clean-up runs (nothing half-written)."""
+
+
+def _on_sigterm(signum, frame):
+    raise _Terminated()
+
+
 def main(argv: list[str] | None = None) -> int:
-    """Entry point; returns the exit code (``sys.exit(main())`` in the console script)."""
+    """Entry point; returns the exit code (``sys.exit(main())`` in the console script).
+
+    SIGINT and SIGTERM end a run cleanly: the output set is written all or nothing (ladder.outputs), so an
+    interrupted ``fit`` leaves no partial directory and an earlier complete set in place untouched.
+    """
+    import signal
+    import threading
+
     args = _parser().parse_args(argv)
+    previous = None
+    if threading.current_thread() is threading.main_thread():
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
     try:
-        return {"fit": _fit, "check": _check, "simulate": _simulate, "report": _report}[args.command](args)
+        return {"fit": _fit, "check": _check, "simulate": _simulate, "report": _report,
+                "verify": _verify}[args.command](args)
     except InputError as exc:
         _say(f"ladder: error: {exc}")
         return EXIT_BAD_INPUT
-    except KeyboardInterrupt:
-        _say("ladder: interrupted; nothing was written")
-        return 130
+    except KeyboardInterrupt as exc:
+        written = getattr(exc, "output_written", None)
+        if written is not None:  # the signal came after the output set was complete
+            _say(f"ladder: interrupted; the output set {written} was already complete")
+        else:
+            _say("ladder: interrupted; nothing was written")
+        return EXIT_SIGTERM if isinstance(exc, _Terminated) else EXIT_SIGINT
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -65,7 +65,7 @@ class PriorSpec:
             raise InputError("a prior is an inline table such as { dist = \"normal\", loc = 0, scale = 1 }",
                              file=file, key=key)
         dist = raw.get("dist")
-        if dist not in _DISTS:
+        if not isinstance(dist, str) or dist not in _DISTS:  # a list or table is not a name (nor hashable)
             raise InputError(f"unknown prior dist {dist!r}; use one of {', '.join(_DISTS)}", file=file, key=key)
         need = _DISTS[dist]
         extra = sorted(set(raw) - {"dist", *need})
@@ -664,9 +664,13 @@ def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> Run
 def load_run(path: str | Path) -> RunConfig:
     """Read and validate a run file (TOML). Raises :class:`InputError` on any problem."""
     path = Path(path).expanduser()
-    if not path.is_file():
-        raise InputError("run file not found" if not path.exists() else "run file is not a file",
-                         file=str(path))
+    try:
+        found = path.is_file()
+        exists = path.exists()
+    except OSError as exc:  # e.g. a name too long for the file system
+        raise InputError(f"cannot be used as a path: {exc.strerror or exc}", file=str(path)) from None
+    if not found:
+        raise InputError("run file not found" if not exists else "run file is not a file", file=str(path))
     try:
         # utf-8-sig: a byte-order mark (some editors on Windows write one) is not part of the TOML.
         raw = tomllib.loads(path.read_text(encoding="utf-8-sig"))
@@ -676,7 +680,12 @@ def load_run(path: str | Path) -> RunConfig:
         raise InputError("not a UTF-8 text file", file=str(path)) from None
     cfg = parse_run(raw, base=path.parent, file=str(path))
     for key, table in (("data.cepheids", cfg.cepheids), ("data.hosts", cfg.hosts), ("data.supernovae", cfg.supernovae)):
-        if table is not None and not table.is_file():
-            what = "is not a file" if table.exists() else "not found"
-            raise InputError(f"table {what}: {table.resolve()} ({PATH_RULE})", file=str(path), key=key)
+        try:
+            ok = table is None or table.is_file()
+            what = "is not a file" if not ok and table.exists() else "not found"
+        except OSError as exc:  # e.g. a name too long for the file system
+            ok, what = False, f"path cannot be used ({exc.strerror or exc})"
+        if not ok:
+            shown = table.resolve() if what != "not found" or len(str(table)) < 4000 else table
+            raise InputError(f"table {what}: {shown} ({PATH_RULE})", file=str(path), key=key)
     return dataclasses.replace(cfg, path=path)

@@ -9,6 +9,11 @@ __all__ = ["InputError", "PlausibilityWarning", "plural"]
 _MAX_ROWS_SHOWN = 5
 
 
+def _printable(text: str) -> str:
+    """Escape control characters (newline, tab, NUL, ...) so that a message stays on one line."""
+    return "".join(c if c.isprintable() or c == " " else repr(c)[1:-1] for c in text)
+
+
 class InputError(ValueError):
     """Bad input: names the file, the column or key, and the first offending rows.
 
@@ -56,7 +61,7 @@ def _format(message, file, key, rows) -> str:
         word = "row" if len(rows) == 1 else "rows"
         parts.append(f"data {word} {shown}{tail}")
     where = ": ".join(parts)
-    return f"{where}: {message}" if where else message
+    return _printable(f"{where}: {message}" if where else message)
 
 
 class PlausibilityWarning(UserWarning):

@@ -2,6 +2,9 @@
 
 Files are written into a fresh temporary directory beside the target, which is renamed into
 place only when everything is written: an interrupted run never leaves a half-written set.
+SIGINT and SIGTERM are held (recorded, then acted on) while an earlier set is swapped for the new
+one and while a partial set is removed, so a signal can neither leave the target missing nor a
+``.partial-*`` directory behind.
 """
 
 from __future__ import annotations
@@ -33,6 +36,42 @@ def check_out_dir(out_dir: str | Path, force: bool) -> Path:
     return out
 
 
+class _SignalsHeld:
+    """Hold SIGINT/SIGTERM for a few file operations: a signal that comes meanwhile is recorded, and the
+    handler that was installed before is called for it on leaving (so a KeyboardInterrupt is raised there).
+
+    Python handles signals in the main thread only, so in any other thread this does nothing.
+    """
+
+    def __init__(self):
+        self.pending: list[int] = []
+        self.previous: dict = {}
+
+    def __enter__(self):
+        import signal
+        import threading
+
+        if threading.current_thread() is threading.main_thread():
+            for name in ("SIGINT", "SIGTERM"):
+                sig = getattr(signal, name, None)
+                if sig is not None:
+                    self.previous[sig] = signal.signal(sig, lambda s, f: self.pending.append(s))
+        return self
+
+    def __exit__(self, *exc):
+        import signal
+
+        for sig, handler in self.previous.items():
+            signal.signal(sig, handler)
+        for sig in self.pending[:1]:
+            handler = self.previous[sig]
+            if callable(handler):
+                handler(sig, None)  # e.g. raises KeyboardInterrupt
+            elif handler == signal.SIG_DFL:
+                signal.raise_signal(sig)
+        return False
+
+
 def _json(path: Path, obj) -> None:
     path.write_text(json.dumps(obj, indent=2, sort_keys=False, default=_jsonable) + "\n", encoding="utf-8")
 
@@ -55,6 +94,7 @@ def write_outputs(result, out_dir, *, config=None, force=False, argv=None, plots
     out = check_out_dir(out_dir, force).resolve()
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
+    swapped = False
     try:
         result.idata.to_netcdf(str(tmp / "posterior.nc"))
         result.distances.write(tmp / "distances.ecsv", format="ascii.ecsv")
@@ -78,14 +118,30 @@ def write_outputs(result, out_dir, *, config=None, force=False, argv=None, plots
 
             write_all_plots(result, tmp)
         os.chmod(tmp, 0o755)
-        if out.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old-", dir=out.parent))
-            os.replace(out, old / out.name)
-            os.replace(tmp, out)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, out)
+        try:
+            with _SignalsHeld():
+                if out.exists():
+                    old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old-", dir=out.parent))
+                    try:
+                        os.replace(out, old / out.name)
+                        os.replace(tmp, out)
+                    except BaseException:
+                        if not out.exists() and (old / out.name).exists():
+                            os.replace(old / out.name, out)  # put the earlier set back
+                        raise
+                    finally:
+                        if out.exists():
+                            shutil.rmtree(old, ignore_errors=True)
+                else:
+                    os.replace(tmp, out)
+                swapped = True
+        except KeyboardInterrupt as exc:  # a signal came during the swap: the set is complete, say so
+            if swapped:
+                exc.output_written = out
+            raise
     except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
+        if not swapped:
+            with _SignalsHeld():
+                shutil.rmtree(tmp, ignore_errors=True)
         raise
     return out

@@ -109,3 +109,5 @@ KPC_MODULUS_ROUNDING = 0.005  # 49.59 kpc and 18.477 mag are both published to t
 PRIOR_SD_RTOL = 1e-12  # prior standard deviations in closed form vs scipy.stats: only rounding differs
 REPORT_NUMBER_ATOL = 0.0005 + 1e-12  # the report prints moduli to 3 decimals: rounding moves them by at most half a unit
 REPORT_Z_ATOL = 0.005 + 1e-12  # the report prints anchor pulls z to 2 decimals: rounding moves them by at most half a unit
+# --- mock universe regression values (tests/test_simulate.py::test_default_mock_numbers_unchanged) ---
+MOCK_REGRESSION_RTOL = 1e-9  # recorded to 12 significant digits (5e-12 relative); library versions move float64 results by ~1e-15 relative, while any change of a draw moves them by >= 1e-4
