@@ -440,6 +440,7 @@ def sweep_figure(out_dir: str | Path, plan: SweepPlan, table=None, panels: list[
 
     matplotlib.use("Agg", force=False)
     import matplotlib.pyplot as plt
+    import matplotlib.ticker  # noqa: F401
 
     from .variants import BASELINE
 
@@ -466,16 +467,17 @@ def sweep_figure(out_dir: str | Path, plan: SweepPlan, table=None, panels: list[
                 continue
             passed = bool(f["diagnostics"].get("passed", False))
             ax.errorbar(iv[1], yi, xerr=[[iv[1] - iv[0]], [iv[2] - iv[1]]], fmt="o" if passed else "x",
-                        color="k" if n == BASELINE else ("C0" if passed else "C3"), capsize=2, ms=4)
+                        color="k" if n == BASELINE else "C0", mfc="none" if not passed else None, capsize=2, ms=5)
         unit = "mag" if kind == "distance" else ("km/s/Mpc" if name == "h0" else "mag" if name == "pl_zero_point" else "")
         label = f"distance modulus of {name}" if kind == "distance" else name
         ax.set_xlabel(f"{label} [{unit}]" if unit else label)
         ax.grid(axis="x", alpha=0.3)
+        ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(5))
     axes[0][0].set_yticks(y)
     axes[0][0].set_yticklabels(names)
     axes[0][0].set_ylim(-0.7, len(names) - 0.3)
     axes[0][0].legend(loc="lower right", fontsize=8, framealpha=0.8)
     fig.suptitle(f"Sweep of {plan.run_file.name}: median and 68% interval per variant "
-                 "(red x: diagnostics failed)", fontsize=10)
+                 "(x: sampler diagnostics failed)", fontsize=10)
     fig.tight_layout()
     return fig
