@@ -42,11 +42,16 @@ from .config import RunConfig
 from .errors import InputError
 
 __all__ = ["SweepPlan", "plan_sweep", "run_sweep", "run_variant", "sweep_table", "sweep_figure", "shift",
-           "loo_difference", "input_key", "is_complete", "LOG_LIKELIHOOD"]
+           "anchor_tension", "loo_difference", "input_key", "is_complete", "LOG_LIKELIHOOD"]
 
 #: The pointwise log-likelihood of the Cepheid magnitudes in ``posterior.nc`` (one value per star).
 LOG_LIKELIHOOD = "mag_obs"
 _REQUIRED = ("posterior.nc", "distances.ecsv", "parameters.ecsv", "diagnostics.json", "provenance.json")
+
+
+def anchor_tension(mu_fit: float, sd_fit: float, mu_geo: float, mu_geo_err: float) -> float:
+    """Left-out anchor's fitted modulus against its geometric one in combined-sd units."""
+    return (mu_fit - mu_geo) / math.sqrt(sd_fit**2 + mu_geo_err**2)
 
 
 def shift(mean: float, baseline_mean: float, baseline_sd: float) -> float:
@@ -284,14 +289,26 @@ def loo_difference(idata_variant, idata_baseline, var_name: str = LOG_LIKELIHOOD
     Returns ``elpd_loo``, ``elpd_loo_se`` (variant), ``delta_elpd`` (variant - baseline) and ``delta_elpd_se``
     (:math:`\\sqrt{n\\,\\mathrm{Var}(\\Delta_i)}`, the standard error ``arviz.compare`` gives).
     """
-    import arviz as az
-
-    lv = az.loo(idata_variant, var_name=var_name, pointwise=True)
-    lb = az.loo(idata_baseline, var_name=var_name, pointwise=True)
+    lv, lb = _loo(idata_variant, var_name), _loo(idata_baseline, var_name)
     diff = np.asarray(lv.loo_i).ravel() - np.asarray(lb.loo_i).ravel()
     return {"elpd_loo": float(lv.elpd_loo), "elpd_loo_se": float(lv.se), "delta_elpd": float(diff.sum()),
             "delta_elpd_se": float(np.sqrt(diff.size * np.var(diff))),
-            "pareto_k_max": float(np.nanmax(np.asarray(lv.pareto_k)))}
+            "pareto_k_max": max(_k_max(lv), _k_max(lb)), "good_k": float(getattr(lv, "good_k", 0.7))}
+
+
+def _loo(idata, var_name: str = LOG_LIKELIHOOD):
+    """arviz.loo, pointwise; its Pareto-k warning is reported in the table's note instead of on stderr."""
+    import warnings
+
+    import arviz as az
+
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="Estimated shape parameter of Pareto", category=UserWarning)
+        return az.loo(idata, var_name=var_name, pointwise=True)
+
+
+def _k_max(res) -> float:
+    return float(np.nanmax(np.asarray(res.pareto_k)))
 
 
 def _comparable(cfg: RunConfig, base: RunConfig, idata, idata0) -> str:
@@ -372,8 +389,9 @@ def sweep_table(out_dir: str | Path, plan: SweepPlan, status: dict[str, dict]):
             if not note:
                 res = loo_difference(idata[n], idata[BASELINE])
                 loo = {k: res[k] for k in loo}
-                if res["pareto_k_max"] > 0.7:  # Vehtari et al. 2017: PSIS unreliable above k = 0.7
-                    note = f"PSIS-LOO unreliable: max Pareto k {res['pareto_k_max']:.2f} > 0.7"
+                # PSIS is unreliable above k = min(1 - 1/log10(S), 0.7) (Vehtari et al. 2024, JMLR 25, 72; arviz good_k)
+                if res["pareto_k_max"] > res["good_k"]:
+                    note = f"PSIS-LOO unreliable: max Pareto k {res['pareto_k_max']:.2f} > {res['good_k']:.2f}"
             else:
                 loo["elpd_loo"], loo["elpd_loo_se"] = _own_loo(idata[n])
         row.update(loo)
@@ -387,7 +405,7 @@ def sweep_table(out_dir: str | Path, plan: SweepPlan, status: dict[str, dict]):
                 row["anchor_left_out"] = a
                 if hit:
                     mu, sd = float(dist["mu_mean"][hit[0]]), float(dist["mu_sd"][hit[0]])
-                    row["anchor_tension"] = (mu - mu_geo) / math.sqrt(sd**2 + err**2)
+                    row["anchor_tension"] = anchor_tension(mu, sd, mu_geo, err)
         rows.append(row)
     table = Table(rows=rows, names=list(rows[0]))
     table.meta["description"] = ("One row per variant: posterior mean, sd and shift from the baseline (in baseline "
@@ -398,11 +416,9 @@ def sweep_table(out_dir: str | Path, plan: SweepPlan, status: dict[str, dict]):
 
 
 def _own_loo(idata) -> tuple[float, float]:
-    import arviz as az
-
     if "log_likelihood" not in idata.groups() or LOG_LIKELIHOOD not in idata.log_likelihood:
         return math.nan, math.nan
-    res = az.loo(idata, var_name=LOG_LIKELIHOOD)
+    res = _loo(idata)
     return float(res.elpd_loo), float(res.se)
 
 

@@ -85,3 +85,8 @@ BIAS_Z = 3.0  # an offset beyond 3 posterior sds is a bias, not noise (one-sided
 
 # --- figures for every model variant (tests/test_plots.py) ---
 PARALLAX_MODULUS_ATOL = 0.01  # parallax stars, model residual vs the equation at the posterior-mean distance: 0.01 mag is far below what a residual panel (~1 mag over ~1 inch) shows
+
+# --- data selections and sweeps (tests/test_selection.py, tests/test_sweep.py, tests/test_compare.py) ---
+SELECTION_PERIOD_RTOL = 1e-14  # periods stored as log10(P): 10**log10(P) differs from P by float64 rounding only
+SHIFT_RTOL = 1e-12  # shifts / combined-sd differences are one subtraction and one division in float64
+LOO_VS_ARVIZ_RTOL = 1e-9  # delta elpd and its se vs arviz.compare on the same pointwise values; summation order only
