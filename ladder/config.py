@@ -320,9 +320,14 @@ LEAVE_ONE_OUT = ("none", "anchors", "galaxies")
 
 @dataclass(frozen=True)
 class SweepSettings:
-    """[sweep]: ``leave_one_out`` = "none", "anchors" or "galaxies" adds one variant per anchor/galaxy left out."""
+    """[sweep]: ``leave_one_out`` = "none", "anchors" or "galaxies" adds one variant per anchor/galaxy left out.
+
+    With "galaxies" and ``importance`` (default), each left-out galaxy is first estimated by Pareto-smoothed
+    importance weights from the baseline draws and refitted only where the Pareto k exceeds 0.7.
+    """
 
     leave_one_out: str = "none"
+    importance: bool = True  # leave_one_out = "galaxies": PSIS from the baseline draws, refit only where k > 0.7
 
     def to_dict(self) -> dict[str, Any]:
         return dataclasses.asdict(self)
@@ -366,8 +371,9 @@ def _parse_selection(data: "_Section") -> DataSelection:
 def _parse_sweep(sec: "_Section | None") -> SweepSettings:
     if sec is None:
         return SweepSettings()
-    sec.check_keys({"leave_one_out"})
-    return SweepSettings(leave_one_out=_choice(sec, "leave_one_out", LEAVE_ONE_OUT))
+    sec.check_keys({"leave_one_out", "importance"})
+    return SweepSettings(leave_one_out=_choice(sec, "leave_one_out", LEAVE_ONE_OUT),
+                         importance=sec.get("importance", bool, True))
 
 
 @dataclass(frozen=True)

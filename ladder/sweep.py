@@ -42,7 +42,8 @@ from .config import RunConfig
 from .errors import InputError
 
 __all__ = ["SweepPlan", "plan_sweep", "run_sweep", "run_variant", "sweep_table", "sweep_figure", "shift",
-           "anchor_tension", "loo_difference", "input_key", "is_complete", "LOG_LIKELIHOOD"]
+           "anchor_tension", "loo_difference", "psis_leave_one_galaxy_out",
+           "galaxy_log_likelihood", "PSIS_K_MAX", "input_key", "is_complete", "LOG_LIKELIHOOD"]
 
 #: The pointwise log-likelihood of the Cepheid magnitudes in ``posterior.nc`` (one value per star).
 LOG_LIKELIHOOD = "mag_obs"
@@ -67,6 +68,8 @@ class SweepPlan:
     run_file: Path
     configs: dict[str, RunConfig]
     left_out_anchor: dict[str, tuple[str, float, float]] = field(default_factory=dict)  # variant -> (name, mu, err)
+    left_out_galaxy: dict[str, str] = field(default_factory=dict)  # variant -> galaxy ([sweep] leave_one_out)
+    importance: bool = True
     selection_lines: dict[str, list[str]] = field(default_factory=dict)
 
 
@@ -94,7 +97,7 @@ def plan_sweep(run_file: str | Path) -> SweepPlan:
             raise InputError(exc.message, file=exc.file, key=f"variants.{name}.{exc.key}" if exc.key else
                              f"variants.{name}", rows=exc.rows) from None
     base = configs[BASELINE]
-    anchors = {}
+    anchors, galaxies = {}, {}
     extra = leave_one_out_variants(base, loaded[BASELINE], base.sweep.leave_one_out)
     data0 = loaded[BASELINE]
     for name, cfg in extra.items():
@@ -108,7 +111,9 @@ def plan_sweep(run_file: str | Path) -> SweepPlan:
                     and a not in cfg.selection.anchors]
             i = data0.host_names.index(left[0])
             anchors[name] = (left[0], float(data0.mu_geo[i]), float(data0.mu_geo_err[i]))
-    return SweepPlan(run_file, configs, anchors, lines)
+        elif base.sweep.leave_one_out == "galaxies":
+            galaxies[name] = cfg.selection.exclude[-1]
+    return SweepPlan(run_file, configs, anchors, galaxies, base.sweep.importance, lines)
 
 
 # ----------------------------------------------------------------------------- one variant
@@ -220,17 +225,38 @@ def run_sweep(run_file: str | Path, out_dir: str | Path, *, workers: int | None 
         say(f"sweep: {res['variant']} {what} in {res['seconds']:.1f} s | done {done} / running {running} / "
             f"failed {failed} / waiting {total - done - failed - running} of {total}")
 
-    if todo and in_process:
-        for i, name in enumerate(todo):
-            report(run_variant(name, plan.configs[name], str(out), plots, argv), 0)
-    elif todo:
-        _run_distributed(plan, todo, out, workers, scheduler, plots, argv, report, say)
-    table = sweep_table(out, plan, status)
+    def execute(names: list[str]) -> None:
+        if names and in_process:
+            for name in names:
+                report(run_variant(name, plan.configs[name], str(out), plots, argv), 0)
+        elif names:
+            _run_distributed(plan, names, out, workers, scheduler, plots, argv, report, say)
+
+    psis_names = [n for n in plan.left_out_galaxy if plan.importance]
+    execute([n for n in todo if n not in psis_names])
+    estimates: dict[str, dict] = {}
+    if psis_names:
+        from .fit import load_data
+        from .variants import BASELINE
+
+        refit = [n for n in psis_names if n in todo]
+        if status.get(BASELINE, {}).get("status") == "done":
+            data0 = load_data(plan.configs[BASELINE])
+            for n in psis_names:
+                estimates[n] = psis_leave_one_galaxy_out(out / BASELINE, data0, plan.left_out_galaxy[n])
+            refit = [n for n in refit if not estimates[n]["pareto_k"] <= PSIS_K_MAX]
+            say(f"sweep: leave-one-galaxy-out by importance weights for {len(psis_names) - len(refit)} of "
+                f"{len(psis_names)} galaxies; refitting {len(refit)} (Pareto k > {PSIS_K_MAX})")
+            for n in psis_names:
+                if n in todo and n not in refit:
+                    status[n] = {"variant": n, "status": "done", "error": "", "seconds": 0.0, "psis": True}
+        execute(refit)
+    table = sweep_table(out, plan, status, estimates)
     table.write(out / "sweep.ecsv", format="ascii.ecsv", overwrite=True)
     if plots:
         import matplotlib.pyplot as plt
 
-        fig = sweep_figure(out, plan, table)
+        fig = sweep_figure(out, plan, table, estimates=estimates, status=status)
         if fig is not None:
             fig.savefig(out / "sweep.png", dpi=120)
             plt.close(fig)
@@ -271,6 +297,68 @@ def _run_distributed(plan, todo, out, workers, scheduler, plots, argv, report, s
         client.close()
         if cluster is not None:
             cluster.close()
+
+
+# ----------------------------------------------------------------------------- importance-weighted leave-one-out
+#: Above this Pareto k the importance weights are not trusted and the variant is refitted (Vehtari et al. 2024,
+#: "Pareto smoothed importance sampling", JMLR 25, 72).
+PSIS_K_MAX = 0.7
+
+
+def galaxy_log_likelihood(idata, data, galaxy: str) -> np.ndarray:
+    """Sum over every pointwise log-likelihood term of ``galaxy`` (its Cepheids, parallaxes, geometric distance,
+    supernovae) per posterior draw, flattened over chains: (n_draws,)."""
+    star_host = {s: data.host_names[h] for s, h in zip(data.star_names, data.star_host)}
+    sn_host = {}
+    if data.supernovae is not None:
+        sn_host = {n: (data.host_names[i] if i >= 0 else None)
+                   for n, i in zip(data.supernovae.sn_names, data.supernovae.host_index)}
+    owner = {"star": star_host, "parallax_star": star_host, "anchor": {h: h for h in data.host_names},
+             "sn": sn_host}
+    total = 0.0
+    for var, da in idata.log_likelihood.data_vars.items():
+        dim = da.dims[-1]
+        if dim not in owner:
+            raise ValueError(f"log-likelihood {var!r} over {dim!r}: cannot tell which galaxy each term belongs to")
+        keep = np.array([owner[dim].get(str(n)) == galaxy for n in da[dim].values])
+        total = total + np.asarray(da.values, float)[..., keep].sum(axis=-1)
+    return np.asarray(total).reshape(-1)
+
+
+def _weighted_quantiles(x: np.ndarray, w: np.ndarray, q) -> np.ndarray:
+    order = np.argsort(x)
+    cw = np.cumsum(w[order])
+    cw = (cw - 0.5 * w[order]) / cw[-1]
+    return np.interp(q, cw, x[order])
+
+
+def psis_leave_one_galaxy_out(baseline_dir: str | Path, data, galaxy: str) -> dict:
+    """The baseline posterior with ``galaxy``'s likelihood removed, by Pareto-smoothed importance sampling.
+
+    Weights :math:`w_s \propto 1 / p(y_g \mid \theta_s)` over the baseline draws :math:`\theta_s`, smoothed by
+    ``arviz.psislw`` (Vehtari et al. 2024, JMLR 25, 72; relative efficiency taken as 1). The galaxy's own
+    modulus keeps only its prior, so the global parameters' weighted marginals estimate the fit without the galaxy.
+
+    Returns ``{"pareto_k", "parameters": {name: (mean, sd, q16, q50, q84)}, "distances": {host: (...)}}``.
+    """
+    import arviz as az
+
+    from .compare import read_run
+
+    run = read_run(baseline_dir)
+    idata = az.from_netcdf(str(Path(baseline_dir) / "posterior.nc"))
+    lw, k = az.psislw(-galaxy_log_likelihood(idata, data, galaxy))
+    w = np.exp(np.asarray(lw) - np.max(lw))
+    w /= w.sum()
+
+    def summary(x):
+        m = float(np.sum(w * x))
+        return (m, float(np.sqrt(np.sum(w * (x - m) ** 2))), *map(float, _weighted_quantiles(x, w, [0.16, 0.5, 0.84])))
+
+    params = {str(n): summary(run.draws(str(n))) for n in run.parameters["name"]}
+    mu = run.posterior["mu"]
+    hosts = {str(h): summary(np.asarray(mu.sel(host=h)).reshape(-1)) for h in mu["host"].values if str(h) != galaxy}
+    return {"pareto_k": float(np.asarray(k)), "parameters": params, "distances": hosts}
 
 
 # ----------------------------------------------------------------------------- table
@@ -347,7 +435,7 @@ def _variant_files(out: Path, name: str) -> dict | None:
                           .get("method") or "nuts")}
 
 
-def sweep_table(out_dir: str | Path, plan: SweepPlan, status: dict[str, dict]):
+def sweep_table(out_dir: str | Path, plan: SweepPlan, status: dict[str, dict], estimates: dict | None = None):
     """The sweep table from the result sets in ``out_dir`` (see the module docstring for the columns)."""
     import arviz as az
     from astropy.table import Table
@@ -374,13 +462,21 @@ def sweep_table(out_dir: str | Path, plan: SweepPlan, status: dict[str, dict]):
                                "passed": bool(f["diagnostics"].get("passed", False)) if f else False,
                                "method": f["method"] if f else ""}
         stats = {r["name"]: (float(r["mean"]), float(r["sd"])) for r in f["parameters"]} if f else {}
+        est = (estimates or {}).get(n)
+        psis = f is None and est is not None and st.get("psis", False)
+        if psis:
+            stats = {p: v[:2] for p, v in est["parameters"].items()}
+            row["passed"] = bool(base["diagnostics"].get("passed", False)) if base else False
+            row["method"] = "psis"
         for p in params:
             m, s = stats.get(p, (math.nan, math.nan))
             row[f"{_column(p)}_mean"], row[f"{_column(p)}_sd"] = m, s
             row[f"{_column(p)}_shift"] = shift(m, *base_stats[p]) if p in base_stats and p in stats else math.nan
         loo = dict.fromkeys(("elpd_loo", "elpd_loo_se", "delta_elpd", "delta_elpd_se"), math.nan)
         note = ""
-        if f is None:
+        if psis:
+            note = f"importance-weighted from the baseline draws (Pareto k {est['pareto_k']:.2f})"
+        elif f is None:
             note = "not fitted" if st["status"] != "failed" else "failed"
         elif base is None:
             note = "baseline not available"
@@ -395,7 +491,13 @@ def sweep_table(out_dir: str | Path, plan: SweepPlan, status: dict[str, dict]):
             else:
                 loo["elpd_loo"], loo["elpd_loo_se"] = _own_loo(idata[n])
         row.update(loo)
+        if n in plan.left_out_galaxy and f is not None and est is not None:
+            note = f"refitted (Pareto k {est['pareto_k']:.2f} > {PSIS_K_MAX}); " + note
         row["note"] = note
+        if plan.left_out_galaxy:
+            row["galaxy_left_out"] = plan.left_out_galaxy.get(n, "")
+            row["pareto_k"] = est["pareto_k"] if est else math.nan
+            row["refitted"] = n in plan.left_out_galaxy and f is not None
         if plan.left_out_anchor:
             row["anchor_left_out"], row["anchor_tension"] = "", math.nan
             if n in plan.left_out_anchor and f is not None:
@@ -439,6 +541,9 @@ def _choices(out: Path, plan: SweepPlan) -> list[tuple[str, str]]:
 
 
 def _interval(f: dict, kind: str, name: str) -> tuple[float, float, float] | None:
+    if "psis" in f:
+        v = f["psis"]["parameters" if kind == "parameter" else "distances"].get(name)
+        return None if v is None else v[2:]
     t, col, pre = (f["parameters"], "name", "q") if kind == "parameter" else (f["distances"], "host", "mu_q")
     hit = [i for i, v in enumerate(t[col]) if v == name]
     if not hit:
@@ -447,7 +552,8 @@ def _interval(f: dict, kind: str, name: str) -> tuple[float, float, float] | Non
     return float(r[f"{pre}16"]), float(r[f"{pre}50"]), float(r[f"{pre}84"])
 
 
-def sweep_figure(out_dir: str | Path, plan: SweepPlan, table=None, panels: list[tuple[str, str]] | None = None):
+def sweep_figure(out_dir: str | Path, plan: SweepPlan, table=None, panels: list[tuple[str, str]] | None = None,
+                 estimates: dict | None = None, status: dict | None = None):
     """Per variant the median and 68% interval of the chosen quantities against the baseline's 68% band.
 
     Returns a matplotlib Figure (None when nothing was fitted).
@@ -463,6 +569,9 @@ def sweep_figure(out_dir: str | Path, plan: SweepPlan, table=None, panels: list[
     out = Path(out_dir)
     names = list(plan.configs)
     files = {n: _variant_files(out, n) for n in names}
+    for n, est in (estimates or {}).items():  # importance-weighted variants have no result directory
+        if files.get(n) is None and (status or {}).get(n, {}).get("psis"):
+            files[n] = {"psis": est, "diagnostics": files[BASELINE]["diagnostics"] if files[BASELINE] else {}}
     if all(f is None for f in files.values()):
         return None
     panels = panels or _choices(out, plan)
@@ -483,7 +592,7 @@ def sweep_figure(out_dir: str | Path, plan: SweepPlan, table=None, panels: list[
                 continue
             passed = bool(f["diagnostics"].get("passed", False))
             ax.errorbar(iv[1], yi, xerr=[[iv[1] - iv[0]], [iv[2] - iv[1]]], fmt="o" if passed else "x",
-                        color="k" if n == BASELINE else "C0", mfc="none" if not passed else None, capsize=2, ms=5)
+                        color="k" if n == BASELINE else ("C1" if "psis" in f else "C0"), mfc="none" if not passed else None, capsize=2, ms=5)
         unit = "mag" if kind == "distance" else ("km/s/Mpc" if name == "h0" else "mag" if name == "pl_zero_point" else "")
         label = f"distance modulus of {name}" if kind == "distance" else name
         ax.set_xlabel(f"{label} [{unit}]" if unit else label)
@@ -494,6 +603,7 @@ def sweep_figure(out_dir: str | Path, plan: SweepPlan, table=None, panels: list[
     axes[0][0].set_ylim(-0.7, len(names) - 0.3)
     axes[0][0].legend(loc="lower right", fontsize=8, framealpha=0.8)
     fig.suptitle(f"Sweep of {plan.run_file.name}: median and 68% interval per variant "
-                 "(x: sampler diagnostics failed)", fontsize=10)
+                 "(x: sampler diagnostics failed"
+                 + ("; orange: importance-weighted" if estimates else "") + ")", fontsize=10)
     fig.tight_layout()
     return fig
