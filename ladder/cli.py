@@ -233,8 +233,13 @@ def _sweep(args) -> int:
     if args.workers is not None and args.scheduler:
         raise InputError("give either --workers (local cluster) or --scheduler (existing cluster), not both",
                          key="--scheduler")
-    table = run_sweep(args.run, args.out, workers=args.workers, scheduler=args.scheduler, plots=not args.no_plots,
-                      progress=_say, argv=["ladder", *sys.argv[1:]])
+    try:
+        table = run_sweep(args.run, args.out, workers=args.workers, scheduler=args.scheduler,
+                          plots=not args.no_plots, progress=_say, argv=["ladder", *sys.argv[1:]])
+    except KeyboardInterrupt:
+        _say(f"ladder: sweep interrupted; finished variants are kept in {args.out}: rerun the same command to "
+             "fit only the rest")
+        return 130
     _say(f"ladder: wrote {args.out}/sweep.ecsv")
     cols = [c for c in table.colnames if c.endswith("_shift")][:4]
     print(f"{'variant':<24s} {'status':<7s} {'passed':<6s} " + " ".join(f"{c:>22s}" for c in cols)

@@ -21,7 +21,7 @@ from ladder.errors import InputError
 from ladder.sweep import anchor_tension, input_key, is_complete, plan_sweep, shift
 from ladder.variants import expand_variants
 from sweep_fixtures import BROKEN_SEED, tiny_mock, tiny_sweep
-from tolerances import LOO_VS_ARVIZ_RTOL, SHIFT_RTOL
+from tolerances import LOO_VS_ARVIZ_RTOL, PSIS_VS_REFIT_SHIFT_ATOL, SHIFT_RTOL
 
 
 @pytest.fixture(scope="module")
@@ -172,3 +172,27 @@ def test_two_workers_give_the_one_worker_table(sweep, tmp_path):
             np.testing.assert_array_equal(t1[c], table[c][:2])
         else:
             assert list(t1[c]) == list(t2[c])
+
+
+@pytest.mark.slow
+def test_importance_weighted_galaxy_drops_match_refits(sweep, tmp_path):
+    """Leave-one-galaxy-out by PSIS from the baseline draws agrees with refits without the galaxy."""
+    import shutil
+
+    from ladder.sweep import PSIS_K_MAX, run_sweep
+
+    run = tiny_mock(tmp_path, variants='[sweep]\nleave_one_out = "galaxies"\n')
+    psis = run_sweep(run, tmp_path / "psis", in_process=True, plots=False)
+    weighted = [r["variant"] for r in psis if r["method"] == "psis"]
+    assert weighted and all(psis["pareto_k"][list(psis["variant"]).index(n)] <= PSIS_K_MAX for n in weighted)
+    assert all(r["refitted"] == (r["pareto_k"] > PSIS_K_MAX) for r in psis if r["galaxy_left_out"])
+    refit_run = run.with_name("refit.toml")
+    refit_run.write_text(run.read_text().replace('leave_one_out = "galaxies"',
+                                                 'leave_one_out = "galaxies"\nimportance = false'))
+    shutil.copytree(tmp_path / "psis", tmp_path / "refit")  # the fitted variants are reused
+    refit = run_sweep(refit_run, tmp_path / "refit", in_process=True, plots=False)
+    for n in weighted:
+        a, b = psis[list(psis["variant"]).index(n)], refit[list(refit["variant"]).index(n)]
+        assert b["method"] != "psis" and b["refitted"]
+        for p in ("pl_zero_point", "pl_slope", "scatter"):
+            assert abs(a[f"{p}_shift"] - b[f"{p}_shift"]) < PSIS_VS_REFIT_SHIFT_ATOL, (n, p)

@@ -90,3 +90,4 @@ PARALLAX_MODULUS_ATOL = 0.01  # parallax stars, model residual vs the equation a
 SELECTION_PERIOD_RTOL = 1e-14  # periods stored as log10(P): 10**log10(P) differs from P by float64 rounding only
 SHIFT_RTOL = 1e-12  # shifts / combined-sd differences are one subtraction and one division in float64
 LOO_VS_ARVIZ_RTOL = 1e-9  # delta elpd and its se vs arviz.compare on the same pointwise values; summation order only
+PSIS_VS_REFIT_SHIFT_ATOL = 0.45  # baseline sds; MC error of a 2x200-draw mean ~ sd/sqrt(ESS ~ 100) = 0.1 sd for the refit and more for importance weights (k <= 0.7): difference se ~ 0.15, 3 sigma
