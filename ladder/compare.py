@@ -23,7 +23,7 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["FitRun", "read_run", "comparison_table", "marginals_figure", "distance_forest_figure", "compare_runs"]
+__all__ = ["FitRun", "read_run", "comparison_table", "marginals_figure", "corner_figure", "distance_forest_figure", "compare_runs"]
 
 _NEEDED = ("posterior.nc", "parameters.ecsv", "distances.ecsv")
 
@@ -155,6 +155,67 @@ def marginals_figure(runs: list[FitRun]):
     return fig
 
 
+def _level(h: np.ndarray, mass: float) -> float:
+    """Density level enclosing ``mass`` of a normalised 2-D histogram."""
+    v = np.sort(h.ravel())[::-1]
+    c = np.cumsum(v) / v.sum()
+    return float(v[min(np.searchsorted(c, mass), v.size - 1)])
+
+
+def corner_figure(runs: list[FitRun], max_parameters: int = 6):
+    """Overlaid corner plot of the shared scalar global parameters: 68% and 95% highest-density contours of
+    each pair (2-D histograms) and the 1-D marginals, one colour per run."""
+    import matplotlib
+
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+    import matplotlib.ticker  # noqa: F401
+    from matplotlib.lines import Line2D
+    from scipy.ndimage import gaussian_filter
+
+    params = _shared(runs)[0][:max_parameters]
+    n = len(params)
+    draws = {p: [r.draws(p) for r in runs] for p in params}
+    edges = {p: np.linspace(min(np.quantile(d, 0.002) for d in draws[p]), max(np.quantile(d, 0.998) for d in draws[p]),
+                            31) for p in params}
+    fig, axes = plt.subplots(n, n, figsize=(2.1 * n + 0.6, 2.1 * n + 0.6), squeeze=False)
+    for i, pi in enumerate(params):
+        for j, pj in enumerate(params):
+            ax = axes[i, j]
+            if j > i:
+                ax.axis("off")
+                continue
+            for k in range(len(runs)):
+                if i == j:
+                    ax.hist(draws[pi][k], bins=edges[pi], density=True, histtype="step", color=f"C{k}")
+                    ax.set_yticks([])
+                else:
+                    h, xe, ye = np.histogram2d(draws[pj][k], draws[pi][k], bins=[edges[pj][::2], edges[pi][::2]],
+                                               density=True)
+                    h = gaussian_filter(h, 1.0)  # a few hundred draws: smooth the histogram before contouring
+                    levels = sorted({_level(h, 0.95), _level(h, 0.68)})
+                    if len(levels) == 2 and levels[0] < levels[1]:
+                        ax.contour(0.5 * (xe[1:] + xe[:-1]), 0.5 * (ye[1:] + ye[:-1]), h.T, levels=levels,
+                                   colors=f"C{k}", linewidths=1.0)
+            ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(3))
+            if i != j:
+                ax.yaxis.set_major_locator(matplotlib.ticker.MaxNLocator(3))
+            if i < n - 1:
+                ax.set_xticklabels([])
+            else:
+                ax.set_xlabel(pj, fontsize=8)
+                ax.tick_params(labelsize=7)
+            if j == 0 and i > 0:
+                ax.set_ylabel(pi, fontsize=8)
+                ax.tick_params(labelsize=7)
+            elif i != j:
+                ax.set_yticklabels([])
+    handles = [Line2D([], [], color=f"C{k}", label=r.label) for k, r in enumerate(runs)]
+    fig.legend(handles=handles, loc="upper right", fontsize=8, title="68% and 95% contours", title_fontsize=8)
+    fig.tight_layout()
+    return fig
+
+
 def distance_forest_figure(runs: list[FitRun]):
     """Host-distance forest plot: per shared galaxy the median and 68% interval of its modulus, one colour per run."""
     import matplotlib
@@ -187,7 +248,7 @@ def distance_forest_figure(runs: list[FitRun]):
 
 
 def compare_runs(paths, out_dir, *, labels=None, force: bool = False, plots: bool = True) -> Path:
-    """Write ``comparison.ecsv``, ``marginals.png`` and ``distances_forest.png`` for the runs in ``paths``
+    """Write ``comparison.ecsv``, ``marginals.png``, ``corner.png`` and ``distances_forest.png`` for ``paths``
     into ``out_dir`` (all or nothing); return its path."""
     import matplotlib.pyplot as plt
 
@@ -202,7 +263,8 @@ def compare_runs(paths, out_dir, *, labels=None, force: bool = False, plots: boo
     try:
         table.write(tmp / "comparison.ecsv", format="ascii.ecsv")
         if plots:
-            for name, make in (("marginals.png", marginals_figure), ("distances_forest.png", distance_forest_figure)):
+            for name, make in (("marginals.png", marginals_figure), ("corner.png", corner_figure),
+                               ("distances_forest.png", distance_forest_figure)):
                 fig = make(runs)
                 fig.savefig(tmp / name, dpi=120)
                 plt.close(fig)

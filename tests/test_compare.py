@@ -40,7 +40,7 @@ def test_compare_two_calibrations(sweep, tmp_path, capsys):
     da, db = Table.read(a / "distances.ecsv"), Table.read(b / "distances.ecsv")
     row = t[params.__len__()]
     assert row["baseline_mean"] == da["mu_mean"][0] and row["no_metallicity_sd"] == db["mu_sd"][0]
-    for f in ("marginals.png", "distances_forest.png"):
+    for f in ("marginals.png", "corner.png", "distances_forest.png"):
         assert (tmp_path / "cmp" / f).stat().st_size > 10_000
     # draws behind the marginal plot are the ones parameters.ecsv summarises
     run = read_run(a)
