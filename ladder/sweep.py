@@ -243,8 +243,11 @@ def run_sweep(run_file: str | Path, out_dir: str | Path, *, workers: int | None 
         if status.get(BASELINE, {}).get("status") == "done":
             data0 = load_data(plan.configs[BASELINE])
             for n in psis_names:
-                estimates[n] = psis_leave_one_galaxy_out(out / BASELINE, data0, plan.left_out_galaxy[n])
-            refit = [n for n in refit if not estimates[n]["pareto_k"] <= PSIS_K_MAX]
+                try:
+                    estimates[n] = psis_leave_one_galaxy_out(out / BASELINE, data0, plan.left_out_galaxy[n])
+                except (KeyError, ValueError) as exc:  # the baseline's files do not allow it: refit instead
+                    say(f"sweep: {n}: no importance weights ({exc}); refitting")
+            refit = [n for n in refit if not (n in estimates and estimates[n]["pareto_k"] <= PSIS_K_MAX)]
             say(f"sweep: leave-one-galaxy-out by importance weights for {len(psis_names) - len(refit)} of "
                 f"{len(psis_names)} galaxies; refitting {len(refit)} (Pareto k > {PSIS_K_MAX})")
             for n in psis_names:
