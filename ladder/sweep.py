@@ -30,7 +30,6 @@ import hashlib
 import json
 import math
 import os
-import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path

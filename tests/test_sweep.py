@@ -17,7 +17,6 @@ import pytest
 from astropy.table import Table
 
 from ladder.cli import EXIT_BAD_INPUT, main
-from ladder.errors import InputError
 from ladder.sweep import anchor_tension, input_key, is_complete, plan_sweep, shift
 from ladder.variants import expand_variants
 from sweep_fixtures import BROKEN_SEED, tiny_mock, tiny_sweep
