@@ -149,9 +149,12 @@ def marginals_figure(runs: list[FitRun]):
         ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(4))
     for ax in list(axes.flat)[len(params):]:
         ax.axis("off")
-    axes.flat[0].legend(fontsize=8, loc="upper left", framealpha=0.8)
+    handles, names = axes.flat[0].get_legend_handles_labels()
+    fig.legend(handles, names, loc="upper center", ncol=min(len(runs), 4), fontsize=8,
+               bbox_to_anchor=(0.5, 1 - 0.25 / (2.8 * nrow)),
+               frameon=False)
     fig.suptitle("Marginal posteriors of the shared global parameters (dashed: means)", fontsize=10)
-    fig.tight_layout()
+    fig.tight_layout(rect=(0, 0, 1, 1 - 0.6 / (2.8 * nrow)))  # 0.6 inch on top for the title and legend
     return fig
 
 
@@ -241,7 +244,7 @@ def distance_forest_figure(runs: list[FitRun]):
     roles = dict(zip(runs[0].distances["host"], runs[0].distances["role"]))
     ax.set_yticklabels([f"{h} ({roles[h]})" for h in hosts])
     ax.set_xlabel(f"distance modulus - median of {runs[0].label} [mag] (68% intervals)")
-    ax.legend(fontsize=8, loc="best", framealpha=0.8)
+    ax.legend(fontsize=8, loc="lower center", bbox_to_anchor=(0.5, 1.0), ncol=min(len(runs), 3), frameon=False)
     ax.grid(axis="x", alpha=0.3)
     fig.tight_layout()
     return fig
