@@ -337,7 +337,7 @@ def _weighted_quantiles(x: np.ndarray, w: np.ndarray, q) -> np.ndarray:
 def psis_leave_one_galaxy_out(baseline_dir: str | Path, data, galaxy: str) -> dict:
     """The baseline posterior with ``galaxy``'s likelihood removed, by Pareto-smoothed importance sampling.
 
-    Weights :math:`w_s \propto 1 / p(y_g \mid \theta_s)` over the baseline draws :math:`\theta_s`, smoothed by
+    Weights :math:`w_s \\propto 1 / p(y_g \\mid \\theta_s)` over the baseline draws :math:`\\theta_s`, smoothed by
     ``arviz.psislw`` (Vehtari et al. 2024, JMLR 25, 72; relative efficiency taken as 1). The galaxy's own
     modulus keeps only its prior, so the global parameters' weighted marginals estimate the fit without the galaxy.
 
