@@ -20,11 +20,11 @@ BROKEN_SEED = 99
 
 
 def tiny_mock(root: Path, variants: str = VARIANTS, name: str = "mock") -> Path:
-    """A four-galaxy mock (2 anchors, 160 Cepheids), 2 chains x (200 + 200); returns its run file."""
+    """A four-galaxy mock (2 anchors, 120 Cepheids), 2 chains x (150 + 150); returns its run file."""
     from ladder.simulate import MockSettings, simulate, write_mock
 
-    mock = simulate(MockSettings(n_hosts=4, n_anchors=2, n_cepheids=160), seed=3)
-    paths = write_mock(mock, root / name, run_overrides={"sampler": {"chains": 2, "warmup": 200, "draws": 200,
+    mock = simulate(MockSettings(n_hosts=4, n_anchors=2, n_cepheids=120), seed=3)
+    paths = write_mock(mock, root / name, run_overrides={"sampler": {"chains": 2, "warmup": 150, "draws": 150,
                                                                      "progress": False}})
     run = paths["run"]
     run.write_text(run.read_text(encoding="utf-8") + variants, encoding="utf-8")

@@ -45,7 +45,7 @@ def test_variants_expand_with_dotted_keys(tmp_path):
     v = expand_variants(run)
     assert list(v) == ["baseline", "ccm", "cut"]
     assert v["ccm"].model.reddening.law == "ccm89" and v["ccm"].sampler.draws == 50
-    assert v["baseline"].model.reddening.law == "fitzpatrick99" and v["baseline"].sampler.draws == 200
+    assert v["baseline"].model.reddening.law == "fitzpatrick99" and v["baseline"].sampler.draws == 150
     assert v["cut"].selection.period_min == 8.0 and v["baseline"].selection.period_min is None
 
 
@@ -150,7 +150,7 @@ def test_resume_skips_complete_variants(sweep, tmp_path):
             np.testing.assert_array_equal(again[c], table[c])
     cfg = expand_variants(run)["baseline"]
     assert is_complete(out / "baseline", cfg)
-    changed = dataclasses.replace(cfg, sampler=dataclasses.replace(cfg.sampler, draws=201))
+    changed = dataclasses.replace(cfg, sampler=dataclasses.replace(cfg.sampler, draws=151))
     assert not is_complete(out / "baseline", changed) and input_key(changed) != input_key(cfg)
     prov = json.loads((out / "baseline" / "provenance.json").read_text())
     assert prov["run"]["data"]["cepheids"].endswith("cepheids.ecsv")
