@@ -322,8 +322,9 @@ LEAVE_ONE_OUT = ("none", "anchors", "galaxies")
 class SweepSettings:
     """[sweep]: ``leave_one_out`` = "none", "anchors" or "galaxies" adds one variant per anchor/galaxy left out.
 
-    With "galaxies" and ``importance`` (default), each left-out galaxy is first estimated by Pareto-smoothed
-    importance weights from the baseline draws and refitted only where the Pareto k exceeds 0.7.
+    With "galaxies" and ``importance`` (default), each left-out host galaxy is first estimated by Pareto-smoothed
+    importance weights from the baseline draws and refitted only where the Pareto k is too high (anchors and
+    parallax groups are always refitted).
     """
 
     leave_one_out: str = "none"

@@ -183,8 +183,13 @@ def test_importance_weighted_galaxy_drops_match_refits(sweep, tmp_path):
     run = tiny_mock(tmp_path, variants='[sweep]\nleave_one_out = "galaxies"\n')
     psis = run_sweep(run, tmp_path / "psis", in_process=True, plots=False)
     weighted = [r["variant"] for r in psis if r["method"] == "psis"]
-    assert weighted and all(psis["pareto_k"][list(psis["variant"]).index(n)] <= PSIS_K_MAX for n in weighted)
-    assert all(r["refitted"] == (r["pareto_k"] > PSIS_K_MAX) for r in psis if r["galaxy_left_out"])
+    # threshold min(0.7, 1 - 1/log10 S) for S = 300 draws (Vehtari et al. 2024, JMLR 25, 72)
+    k_max = min(PSIS_K_MAX, 1 - 1 / np.log10(300))
+    assert weighted and all(psis["pareto_k"][list(psis["variant"]).index(n)] <= k_max for n in weighted)
+    hosts = dict(zip(*[Table.read(run.parent / "hosts.ecsv")[c] for c in ("host", "role")]))
+    for r in psis:
+        if r["galaxy_left_out"]:  # anchors always refitted, hosts where k is too high
+            assert r["refitted"] == (hosts[r["galaxy_left_out"]] != "host" or r["pareto_k"] > k_max)
     refit_run = run.with_name("refit.toml")
     refit_run.write_text(run.read_text().replace('leave_one_out = "galaxies"',
                                                  'leave_one_out = "galaxies"\nimportance = false'))
