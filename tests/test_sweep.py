@@ -200,3 +200,21 @@ def test_importance_weighted_galaxy_drops_match_refits(sweep, tmp_path):
         assert b["method"] != "psis" and b["refitted"]
         for p in ("pl_zero_point", "pl_slope", "scatter"):
             assert abs(a[f"{p}_shift"] - b[f"{p}_shift"]) < PSIS_VS_REFIT_SHIFT_ATOL, (n, p)
+
+
+@pytest.mark.slow
+def test_existing_scheduler(sweep, tmp_path):
+    """--scheduler: the sweep runs on a cluster it did not start (and leaves it running)."""
+    from distributed import Client, LocalCluster
+
+    from ladder.sweep import run_sweep
+
+    _, _, table, _, _ = sweep
+    run = tiny_mock(tmp_path, variants="[variants.no_metallicity]\nmodel.metallicity = false\n")
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+        t = run_sweep(run, tmp_path / "s", scheduler=cluster.scheduler_address, plots=False)
+        with Client(cluster.scheduler_address) as client:  # still up
+            assert len(client.scheduler_info()["workers"]) == 1
+    for c in t.colnames:
+        if t[c].dtype.kind == "f":
+            np.testing.assert_array_equal(t[c], table[c][:2])
