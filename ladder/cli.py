@@ -79,6 +79,7 @@ def _parser() -> argparse.ArgumentParser:
     ):
         s.add_argument(flag, default=None, metavar=metavar, help=help_)
     _add_verify_parser(sub)
+    _add_sweep_commands(sub)
     return p
 
 
@@ -217,6 +218,7 @@ def _check(args) -> int:
               m.outliers != "none"), ("per-host scatter", m.scatter_model == "per_host"),
               ("photometric bias", m.photometric_bias)) if on]
     print("model: " + ", ".join(terms))
+    _check_selection_and_variants(cfg)
     return EXIT_OK
 
 
@@ -284,6 +286,81 @@ def _simulate(args) -> int:
     return EXIT_OK
 
 
+# ----------------------------------------------------------------------------- selections, sweeps, comparisons
+def _add_sweep_commands(sub) -> None:
+    w = sub.add_parser("sweep", help="fit the baseline and every [variants.NAME] of a run file and tabulate shifts")
+    w.add_argument("run", metavar="RUN.toml", help="run file with [variants.NAME] tables (and/or [sweep])")
+    w.add_argument("--out", required=True, metavar="DIR", help="sweep directory (rerunning into it resumes)")
+    w.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="worker processes of the local Dask cluster (default: one per CPU core)")
+    w.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="use a running Dask scheduler, e.g. tcp://HOST:PORT, instead of a local cluster")
+    w.add_argument("--no-plots", action="store_true", help="skip the PNG figures")
+    k = sub.add_parser("compare", help="compare finished fits: overlaid posteriors, distance forest plot, table")
+    k.add_argument("runs", nargs="+", metavar="DIR", help="result directories of `ladder fit` or sweep members")
+    k.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
+    k.add_argument("--force", action="store_true", help="replace an existing non-empty output directory")
+    k.add_argument("--label", action="append", default=None, metavar="NAME",
+                   help="label of each run in the figures and table (repeat, in order; default: directory names)")
+
+
+def _check_selection_and_variants(cfg) -> None:
+    """`ladder check`: what the [data] selection keeps, and the variants (all validated)."""
+    if cfg.selection.active:
+        from .catalog import load_catalogues
+        from .selection import selection_report
+
+        raw = load_catalogues(cfg.cepheids, cfg.hosts, cfg.supernovae)
+        for line in selection_report(raw, cfg.selection)[1]:
+            print(f"selection: {line}")
+    import tomllib
+
+    raw_toml = tomllib.loads(cfg.path.read_text(encoding="utf-8")) if cfg.path else {}
+    if raw_toml.get("variants") or cfg.sweep.leave_one_out != "none":
+        from .sweep import plan_sweep
+
+        plan = plan_sweep(cfg.path)
+        print(f"variants: {len(plan.configs)} ({', '.join(plan.configs)}), all valid")
+        for name, lines in plan.selection_lines.items():
+            if name != "baseline":
+                print(f"  {name}: " + "; ".join(lines))
+
+
+def _sweep(args) -> int:
+    from .sweep import run_sweep
+
+    if args.workers is not None and args.scheduler:
+        raise InputError("give either --workers (local cluster) or --scheduler (existing cluster), not both",
+                         key="--scheduler")
+    try:
+        table = run_sweep(args.run, args.out, workers=args.workers, scheduler=args.scheduler,
+                          plots=not args.no_plots, progress=_say, argv=["ladder", *sys.argv[1:]])
+    except KeyboardInterrupt:
+        _say(f"ladder: sweep interrupted; finished variants are kept in {args.out}: rerun the same command to "
+             "fit only the rest")
+        return 130
+    _say(f"ladder: wrote {args.out}/sweep.ecsv")
+    cols = [c for c in table.colnames if c.endswith("_shift")][:4]
+    print(f"{'variant':<24s} {'status':<7s} {'passed':<6s} " + " ".join(f"{c:>22s}" for c in cols)
+          + f" {'delta_elpd':>16s}")
+    for row in table:
+        loo = f"{row['delta_elpd']:.1f}+/-{row['delta_elpd_se']:.1f}" if np.isfinite(row["delta_elpd"]) else "-"
+        print(f"{row['variant']:<24s} {row['status']:<7s} {str(bool(row['passed'])):<6s} "
+              + " ".join(f"{row[c]:>22.2f}" for c in cols) + f" {loo:>16s}")
+    failed = [r["variant"] for r in table if r["status"] != "done"]
+    if failed:
+        _say(f"ladder: {len(failed)} variant(s) failed: {', '.join(failed)} (errors in sweep.ecsv)")
+    return EXIT_OK
+
+
+def _compare(args) -> int:
+    from .compare import compare_runs
+
+    out = compare_runs(args.runs, args.out, labels=args.label, force=args.force)
+    _say(f"ladder: wrote {out}")
+    return EXIT_OK
+
+
 # ----------------------------------------------------------------------------- verify
 def _add_verify_parser(sub) -> None:
     v = sub.add_parser("verify", help="recompute the SHA-256 of a result set's inputs and report any change")
@@ -328,8 +405,8 @@ def main(argv: list[str] | None = None) -> int:
     if threading.current_thread() is threading.main_thread():
         previous = signal.signal(signal.SIGTERM, _on_sigterm)
     try:
-        return {"fit": _fit, "check": _check, "simulate": _simulate, "report": _report,
-                "verify": _verify}[args.command](args)
+        return {"fit": _fit, "check": _check, "simulate": _simulate, "report": _report, "verify": _verify,
+                "sweep": _sweep, "compare": _compare}[args.command](args)
     except InputError as exc:
         _say(f"ladder: error: {exc}")
         return EXIT_BAD_INPUT

@@ -29,6 +29,8 @@ __all__ = [
     "OutputSettings",
     "DiagnosticThresholds",
     "RunConfig",
+    "DataSelection",
+    "SweepSettings",
     "load_run",
     "parse_run",
     "DEFAULT_PRIORS",
@@ -311,6 +313,107 @@ class DiagnosticThresholds:
         return dataclasses.asdict(self)
 
 
+# ----------------------------------------------------------------------------- data selections, [sweep]
+@dataclass(frozen=True)
+class DataSelection:
+    """Which part of the catalogues a run fits ([data] anchors, period_min, period_max, exclude, [data.select]).
+
+    ``anchors`` None keeps every anchor; a tuple names the anchors whose geometric distance is used (the other
+    anchors are fitted as hosts). ``period_min``/``period_max`` in days (None: no cut). ``exclude`` drops
+    galaxies with their Cepheids and supernovae. ``select`` keeps Cepheid rows whose column value is one of the
+    listed values: ((column, (value, ...)), ...). ``source`` is the run file, for messages only.
+    Applied by :func:`ladder.selection.apply_selection`.
+    """
+
+    anchors: tuple[str, ...] | None = None
+    period_min: float | None = None
+    period_max: float | None = None
+    exclude: tuple[str, ...] = ()
+    select: tuple[tuple[str, tuple[Any, ...]], ...] = ()
+    source: str = field(default="run file", compare=False)
+
+    @property
+    def active(self) -> bool:
+        return bool(self.to_dict())
+
+    def to_dict(self) -> dict[str, Any]:
+        """The keys set (for the resolved run file); empty when the whole catalogue is fitted."""
+        d: dict[str, Any] = {}
+        if self.anchors is not None:
+            d["anchors"] = list(self.anchors)
+        if self.period_min is not None:
+            d["period_min"] = self.period_min
+        if self.period_max is not None:
+            d["period_max"] = self.period_max
+        if self.exclude:
+            d["exclude"] = list(self.exclude)
+        if self.select:
+            d["select"] = {k: list(v) for k, v in self.select}
+        return d
+
+
+LEAVE_ONE_OUT = ("none", "anchors", "galaxies")
+
+
+@dataclass(frozen=True)
+class SweepSettings:
+    """[sweep]: ``leave_one_out`` = "none", "anchors" or "galaxies" adds one variant per anchor/galaxy left out.
+
+    With "galaxies" and ``importance`` (default), each left-out host galaxy is first estimated by Pareto-smoothed
+    importance weights from the baseline draws and refitted only where the Pareto k is too high (anchors and
+    parallax groups are always refitted).
+    """
+
+    leave_one_out: str = "none"
+    importance: bool = True  # leave_one_out = "galaxies": PSIS from the baseline draws, refit only where k > 0.7
+
+    def to_dict(self) -> dict[str, Any]:
+        return dataclasses.asdict(self)
+
+
+def _parse_selection(data: "_Section") -> DataSelection:
+    file = data.file
+
+    def names(key: str) -> tuple[str, ...] | None:
+        v = data.get(key, list, None)
+        if v is None:
+            return None
+        if not all(isinstance(x, str) and x.strip() for x in v):
+            raise InputError("must be a list of galaxy names (strings)", file=file, key=f"data.{key}")
+        if len(set(v)) != len(v):
+            raise InputError("lists a galaxy twice", file=file, key=f"data.{key}")
+        return tuple(x.strip() for x in v)
+
+    anchors = names("anchors")
+    exclude = names("exclude") or ()
+    pmin = data.float_("period_min", 0.0, lo=0.0, open_lo=True) if "period_min" in data.raw else None
+    pmax = data.float_("period_max", 0.0, lo=0.0, open_lo=True) if "period_max" in data.raw else None
+    if pmin is not None and pmax is not None and not pmin < pmax:
+        raise InputError(f"period_min ({pmin}) must be < period_max ({pmax})", file=file, key="data.period_min")
+    if anchors is not None and set(anchors) & set(exclude):
+        both = sorted(set(anchors) & set(exclude))[0]
+        raise InputError(f"galaxy {both!r} is both an anchor and excluded", file=file, key="data.exclude")
+    select = []
+    sel = data.sub("select")
+    if sel is not None:
+        for col, v in sel.raw.items():
+            vals = v if isinstance(v, list) else [v]
+            if not vals or not all(isinstance(x, (str, int, float)) and not isinstance(x, bool) for x in vals):
+                raise InputError("must be a value or a non-empty list of values (strings or numbers) to keep",
+                                 file=file, key=f"data.select.{col}")
+            select.append((str(col), tuple(vals)))
+    return DataSelection(anchors=anchors, period_min=pmin, period_max=pmax, exclude=exclude, select=tuple(select),
+                         source=file)
+
+
+def _parse_sweep(sec: "_Section | None") -> SweepSettings:
+    if sec is None:
+        return SweepSettings()
+    sec.check_keys({"leave_one_out", "importance"})
+    return SweepSettings(leave_one_out=_choice(sec, "leave_one_out", LEAVE_ONE_OUT),
+                         importance=sec.get("importance", bool, True))
+
+
 @dataclass(frozen=True)
 class RunConfig:
     """A resolved run file."""
@@ -323,11 +426,14 @@ class RunConfig:
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     diagnostics: DiagnosticThresholds = field(default_factory=DiagnosticThresholds)
     output: OutputSettings = field(default_factory=OutputSettings)
+    selection: DataSelection = field(default_factory=DataSelection)
+    sweep: SweepSettings = field(default_factory=SweepSettings)  # used by `ladder sweep` only
 
     def to_dict(self) -> dict[str, Any]:
         data = {"cepheids": str(self.cepheids), "hosts": str(self.hosts)}
         if self.supernovae is not None:
             data["supernovae"] = str(self.supernovae)
+        data.update(self.selection.to_dict())
         m = self.model.to_dict()
         return {"data": data, "model": m["model"], "bands": m["bands"], "sampler": self.sampler.to_dict(),
                 "diagnostics": self.diagnostics.to_dict(), "output": self.output.to_dict()}
@@ -635,11 +741,13 @@ def _table_path(text: str, base: Path) -> Path:
 def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> RunConfig:
     """Validate a parsed run-file mapping; data paths: ``~`` expanded, relative ones taken from ``base``."""
     top = _Section(raw, "", file)
-    top.check_keys({"data", "model", "sampler", "diagnostics", "bands", "output"})
+    top.check_keys({"data", "model", "sampler", "diagnostics", "bands", "variants", "sweep", "output"})
+    if "variants" in raw and not isinstance(raw["variants"], dict):  # the tables are read by ladder.variants
+        raise InputError("must be a table of [variants.NAME] tables", file=file, key="variants")
     data = top.sub("data")
     if data is None:
         raise InputError("the [data] table is required (cepheids, hosts)", file=file, key="data")
-    data.check_keys({"cepheids", "hosts", "supernovae"})
+    data.check_keys({"cepheids", "hosts", "supernovae", "anchors", "period_min", "period_max", "exclude", "select"})
     paths = {}
     for k in ("cepheids", "hosts", "supernovae"):
         v = data.get(k, str, None)
@@ -658,6 +766,8 @@ def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> Run
         sampler=_parse_sampler(top.sub("sampler")),
         diagnostics=_parse_diagnostics(top.sub("diagnostics")),
         output=_parse_output(top.sub("output")),
+        selection=_parse_selection(data),
+        sweep=_parse_sweep(top.sub("sweep")),
     )
 
 

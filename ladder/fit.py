@@ -10,6 +10,7 @@ from .catalog import LadderData, load_catalogues
 from .config import DiagnosticThresholds, ModelSettings, OutputSettings, RunConfig, SamplerSettings
 from .diagnostics import Diagnostics, diagnose
 from .model import global_parameters, model_arrays
+from .selection import apply_selection
 from .summary import distances_table, parameters_table, stars_table
 
 __all__ = ["FitResult", "fit", "load_data"]
@@ -54,6 +55,7 @@ class FitResult:
 def load_data(config: RunConfig) -> LadderData:
     """Read and validate the catalogues a run file names (and check them against its model)."""
     data = load_catalogues(config.cepheids, config.hosts, config.supernovae)
+    data = apply_selection(data, config.selection)  # [data] anchors, period_min/max, exclude, [data.select]
     model_arrays(data, config.model)  # fail early on what this model needs
     return data
 

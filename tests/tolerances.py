@@ -111,3 +111,8 @@ REPORT_NUMBER_ATOL = 0.0005 + 1e-12  # the report prints moduli to 3 decimals: r
 REPORT_Z_ATOL = 0.005 + 1e-12  # the report prints anchor pulls z to 2 decimals: rounding moves them by at most half a unit
 # --- mock universe regression values (tests/test_simulate.py::test_default_mock_numbers_unchanged) ---
 MOCK_REGRESSION_RTOL = 1e-9  # recorded to 12 significant digits (5e-12 relative); library versions move float64 results by ~1e-15 relative, while any change of a draw moves them by >= 1e-4
+# --- data selections and sweeps (tests/test_selection.py, tests/test_sweep.py, tests/test_compare.py) ---
+SELECTION_PERIOD_RTOL = 1e-14  # periods stored as log10(P): 10**log10(P) differs from P by float64 rounding only
+SHIFT_RTOL = 1e-12  # shifts / combined-sd differences are one subtraction and one division in float64
+LOO_VS_ARVIZ_RTOL = 1e-9  # delta elpd and its se vs arviz.compare on the same pointwise values; summation order only
+PSIS_VS_REFIT_SHIFT_ATOL = 0.45  # baseline sds; MC error of a 2x200-draw mean ~ sd/sqrt(ESS ~ 100) = 0.1 sd for the refit and more for importance weights (k <= 0.7): difference se ~ 0.15, 3 sigma
