@@ -51,6 +51,8 @@ def provenance(result, config=None, argv=None) -> dict:
         "run": resolved,
         "seed": result.sampler.seed,
         "chain_method": result.chain_method,
+        "method": getattr(result, "method", "nuts"),
+        "method_notes": list(getattr(result, "notes", ())),
         "command_line": list(sys.argv if argv is None else argv),
         "python": sys.version.split()[0],
         "platform": platform.platform(),

@@ -473,11 +473,16 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
                                                                                 "band": coords["band"]})
     if layout.anchors:
         obs["anchor_mu_geo"] = xr.DataArray(np.asarray(lin.anchor_y), dims=["anchor"], coords={"anchor": coords["anchor"]})
+        const_anchor = {"anchor_mu_geo_err": xr.DataArray(np.sqrt(np.asarray(lin.anchor_var)), dims=["anchor"],
+                                                          coords={"anchor": coords["anchor"]})}
+    else:
+        const_anchor = {}
     groups["observed_data"] = xr.Dataset(obs, attrs=attrs)
     const = {"log_period": xr.DataArray(np.asarray(parts.log_period), dims=["star"], coords={"star": coords["star"]}),
              "star_galaxy": xr.DataArray(np.array([layout.galaxies[i] for i in parts.star_galaxy], dtype=object),
                                          dims=["star"], coords={"star": coords["star"]}),
              "fitted": xr.DataArray(np.asarray(lin.mask).any(axis=1), dims=["star"], coords={"star": coords["star"]})}
+    const.update(const_anchor)
     if parts.oh is not None:
         const["oh"] = xr.DataArray(np.asarray(parts.oh), dims=["star"], coords={"star": coords["star"]})
     groups["constant_data"] = xr.Dataset(const, attrs=attrs)

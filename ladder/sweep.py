@@ -44,8 +44,9 @@ __all__ = ["SweepPlan", "plan_sweep", "run_sweep", "run_variant", "sweep_table",
            "anchor_tension", "loo_difference", "psis_leave_one_galaxy_out",
            "galaxy_log_likelihood", "PSIS_K_MAX", "input_key", "is_complete", "LOG_LIKELIHOOD"]
 
-#: The pointwise log-likelihood of the Cepheid magnitudes in ``posterior.nc`` (one value per star).
-LOG_LIKELIHOOD = "mag_obs"
+#: The pointwise log-likelihood of the Cepheid magnitudes in ``posterior.nc`` (one value per star, or per galaxy
+#: with ``[output] log_likelihood = "galaxy"``: then galaxies are the unit of the comparison).
+LOG_LIKELIHOOD = "cepheid_mag"
 _REQUIRED = ("posterior.nc", "distances.ecsv", "parameters.ecsv", "diagnostics.json", "provenance.json")
 
 
@@ -325,9 +326,10 @@ def galaxy_log_likelihood(idata, data, galaxy: str) -> np.ndarray:
         sn_host = {n: (data.host_names[i] if i >= 0 else None)
                    for n, i in zip(data.supernovae.sn_names, data.supernovae.host_index)}
     owner = {"star": star_host, "parallax_star": star_host, "anchor": {h: h for h in data.host_names},
-             "sn": sn_host}
+             "galaxy": {h: h for h in data.host_names}, "sn": sn_host}
     total = 0.0
-    for var, da in idata.log_likelihood.data_vars.items():
+    groups = [g for g in ("log_likelihood", "log_likelihood_other") if g in idata.groups()]
+    for var, da in [(v, d) for g in groups for v, d in idata[g].data_vars.items()]:
         dim = da.dims[-1]
         if dim not in owner:
             raise ValueError(f"log-likelihood {var!r} over {dim!r}: cannot tell which galaxy each term belongs to")
@@ -368,7 +370,8 @@ def psis_leave_one_galaxy_out(baseline_dir: str | Path, data, galaxy: str) -> di
 
     params = {str(n): summary(run.draws(str(n))) for n in run.parameters["name"]}
     mu = run.posterior["mu"]
-    hosts = {str(h): summary(np.asarray(mu.sel(host=h)).reshape(-1)) for h in mu["host"].values if str(h) != galaxy}
+    dim = mu.dims[-1]
+    hosts = {str(h): summary(np.asarray(mu.sel({dim: h})).reshape(-1)) for h in mu[dim].values if str(h) != galaxy}
     # Vehtari et al. 2024: with S draws, k above min(0.7, 1 - 1/log10 S) is unreliable (arviz's good_k)
     threshold = min(PSIS_K_MAX, 1.0 - 1.0 / np.log10(w.size))
     return {"pareto_k": float(np.asarray(k)), "k_threshold": float(threshold), "parameters": params,
@@ -428,6 +431,8 @@ def _comparable(cfg: RunConfig, base: RunConfig, idata, idata0) -> str:
         if "log_likelihood" not in d.groups() or LOG_LIKELIHOOD not in d.log_likelihood:
             return f"no pointwise log-likelihood {LOG_LIKELIHOOD!r} stored"
     a, b = idata.log_likelihood[LOG_LIKELIHOOD], idata0.log_likelihood[LOG_LIKELIHOOD]
+    if a.dims != b.dims:
+        return f"log-likelihoods stored per {a.dims[-1]} here and per {b.dims[-1]} in the baseline ([output] log_likelihood)"
     if a.shape[2:] != b.shape[2:] or any(
             not np.array_equal(a[c].values, b[c].values) for c in a.dims[2:] if c in a.coords and c in b.coords):
         return "different data (stars)"

@@ -178,7 +178,7 @@ def test_modulus_prior_pull_is_the_conjugate_gaussian_update():
                   pl_slope=PriorSpec("fixed", (("value", slope),)), scatter=PriorSpec("fixed", (("value", 0.0),)))
     model = ModelSettings(metallicity=False, priors=tuple(priors.items()))
     result = ladder.fit(data, model, SamplerSettings(chains=2, warmup=300, draws=300, seed=3, progress=False))
-    draws = result.idata.posterior["mu"].sel(host="Saltreach")
+    draws = result.idata.posterior["mu"].sel(galaxy="Saltreach")
     mean, sd = float(draws.mean()), float(draws.std())
     mcse = float(az.mcse(draws.to_dataset(), method="mean")["mu"])
     expected_mean = mu_hat - (mu_hat - a) * s**2 / (s**2 + t**2)

@@ -174,7 +174,7 @@ def _direct(result):
         obs = d.mag[:, [d.band_index(x) for x in bands]]
         err = d.mag_err[:, [d.band_index(x) for x in bands]]
     mu = np.zeros(d.n_stars)
-    mu_g = _per_galaxy(result, "mu", "host")
+    mu_g = _per_galaxy(result, "mu", result.idata.posterior["mu"].dims[-1])
     mu[:] = mu_g[d.star_host]
     par = d.is_parallax_group[d.star_host]
     if par.any():

@@ -115,7 +115,7 @@ def test_loo_against_arviz_compare(sweep):
     _, out, table, _, _ = sweep
     b = az.from_netcdf(str(out / "baseline" / "posterior.nc"))
     v = az.from_netcdf(str(out / "no_metallicity" / "posterior.nc"))
-    cmp = az.compare({"baseline": b, "no_metallicity": v}, ic="loo", var_name="mag_obs")
+    cmp = az.compare({"baseline": b, "no_metallicity": v}, ic="loo", var_name="cepheid_mag")
     row = table[list(table["variant"]).index("no_metallicity")]
     # arviz ranks by elpd: the difference of the lower-ranked model from the better one is elpd_diff >= 0
     sign = -1.0 if cmp.index[0] == "baseline" else 1.0
