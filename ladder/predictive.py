@@ -146,4 +146,14 @@ def add_predictive(result, *, group: bool = False, n_draws: int = 200, seed: int
     else:
         da = xr.DataArray(rep[None], dims=["chain", "draw", "star", "band"],
                           coords={"star": stars, "band": list(result.layout.bands)})
-    result.idata.add_groups({"posterior_predictive": xr.Dataset({"cepheid_mag": da})})
+    groups = {"cepheid_mag": da}
+    if parts.lin.anchor_slot.shape[0]:  # the anchors' geometric moduli, replicated from their Gaussian likelihood
+        post = result.idata.posterior
+        S = post.sizes["chain"] * post.sizes["draw"]
+        take = np.linspace(0, S - 1, min(n_draws, S)).astype(int)
+        mu = np.asarray(post["mu"]).reshape(S, -1)[take][:, np.asarray(parts.lin.anchor_slot)]
+        rng = np.random.default_rng(seed)
+        geo = mu + np.sqrt(np.asarray(parts.lin.anchor_var)) * rng.standard_normal(mu.shape)
+        groups["anchor_mu_geo"] = xr.DataArray(geo[None], dims=["chain", "draw", "anchor"],
+                                               coords={"anchor": list(result.layout.anchors)})
+    result.idata.add_groups({"posterior_predictive": xr.Dataset(groups)})

@@ -19,7 +19,7 @@ from astropy.table import Column
 
 from ladder.cli import EXIT_BAD_INPUT, EXIT_OK
 from tolerances import KPC_MODULUS_ROUNDING
-from test_bad_input import (HOSTS, LMC_CEPHEIDS, MAG_ERR, MW_CEPHEIDS, SMC_CEPHEIDS, SUPERNOVAE, Run, _parallax_group,
+from test_bad_input import (HOSTS, LMC_CEPHEIDS, MAG_ERR, PARALLAX_CEPHEIDS, SMC_CEPHEIDS, SUPERNOVAE, Run, _parallax_group,
                             _run_cli, _sn_table, _snapshot)
 
 C_KM_S = 299792.458  # speed of light (exact, SI definition)
@@ -97,9 +97,9 @@ MISTAKES = [
     Mistake("oh-relative-to-sun", _oh([-0.34, -0.69]), "hosts", "oh", "data rows 1, 2", ("[Fe/H] or [O/H]", "8.69")),
     Mistake("oh-out-of-range", _oh([8.35, 10.2]), "hosts", "oh", "data row 2", ("outside the usual range 7 - 9.7",)),
     Mistake("parallax-in-arcsec", _parallax_scaled(1e-3), "cepheids", "parallax",
-            f"data rows {', '.join(str(N + k + 1) for k in range(len(MW_CEPHEIDS)))}", ("arcsec", "Multiply by 1000")),
+            f"data rows {', '.join(str(N + k + 1) for k in range(len(PARALLAX_CEPHEIDS)))}", ("arcsec", "Multiply by 1000")),
     Mistake("parallax-in-microarcsec", _parallax_scaled(1e3), "cepheids", "parallax",
-            f"data rows {', '.join(str(N + k + 1) for k in range(len(MW_CEPHEIDS)))}", ("microarcsec",)),
+            f"data rows {', '.join(str(N + k + 1) for k in range(len(PARALLAX_CEPHEIDS)))}", ("microarcsec",)),
     Mistake("parallax-outside-a-parallax-group", lambda r: (_parallax_group(r), _lmc_parallax(r)), "cepheids",
             "parallax", "data row 1", ("not used", "role 'parallax'")),
 ]
