@@ -315,7 +315,7 @@ def _check_selection_and_variants(cfg) -> None:
             print(f"selection: {line}")
     import tomllib
 
-    raw_toml = tomllib.loads(cfg.path.read_text(encoding="utf-8")) if cfg.path else {}
+    raw_toml = tomllib.loads(cfg.path.read_text(encoding="utf-8-sig")) if cfg.path else {}
     if raw_toml.get("variants") or cfg.sweep.leave_one_out != "none":
         from .sweep import plan_sweep
 

@@ -310,7 +310,7 @@ class ModelParts(NamedTuple):
     parallax: np.ndarray  # (n_par,) mas
     parallax_err: np.ndarray
     par_base: np.ndarray  # (n_par,) photometric modulus estimate (marginal parameterisation)
-    par_scale: np.ndarray  # (n_par,) its width
+    par_var: np.ndarray  # (n_par,) its photometric variance (the intrinsic scatter is added in the model)
     bias_slots: np.ndarray  # (n_bias,) slot of each bias galaxy (for photometric_bias output)
     observed: np.ndarray  # (N, k) the fitted magnitudes as observed (NaN-free; see lin.seen)
     log_period: np.ndarray  # (N,)
@@ -331,11 +331,11 @@ def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, in
     gal_slot = {g: i for i, g in enumerate(layout.distance_galaxies)}
     bias_slots = np.array([gal_slot[layout.galaxies[g]] for g in np.asarray(arrays.bias_host)], np.int64)
     n_par = len(layout.parallax_stars)
-    base = scale = np.zeros(n_par)
+    base = phot_var = np.zeros(n_par)
     if n_par:
         # The parallax stars' moduli are nonlinear parameters; the marginal sampler draws them as
         # mu_j = base_j - scale_j u_j around their photometric modulus at the weighted-least-squares
-        # solution without them (a fixed affine change of variables; base/scale from data only).
+        # solution (base from data only; scale from the photometric variance and the current scatter).
         from .terms.parallax import edsd_mode_pc
 
         d = edsd_mode_pc(np.maximum(np.asarray(arrays.parallax), 1e-3), np.asarray(arrays.parallax_err),
@@ -349,9 +349,9 @@ def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, in
         v = np.asarray(lin.var)[np.asarray(arrays.par_star)]
         w = np.where(m, 1.0 / v, 0.0)
         base = (w * r).sum(axis=1) / w.sum(axis=1)
-        scale = np.sqrt(1.0 / w.sum(axis=1) + init_scatter**2)
+        phot_var = 1.0 / w.sum(axis=1)
     return ModelParts(structure, jlin, np.asarray(arrays.star_host, np.int64), np.asarray(arrays.wavelength),
-                      np.asarray(arrays.parallax, float), np.asarray(arrays.parallax_err, float), base, scale,
+                      np.asarray(arrays.parallax, float), np.asarray(arrays.parallax_err, float), base, phot_var,
                       bias_slots, np.where(mask, obs, 0.0), np.asarray(arrays.log_period, float),
                       np.asarray(arrays.oh, float))
 
@@ -374,10 +374,13 @@ def _scatter_sites(parts: ModelParts, settings: ModelSettings, n_gal: int):
     return jnp.broadcast_to(scatter**2, parts.star_galaxy.shape)
 
 
-def _parallax_sites(parts: ModelParts, settings: ModelSettings, base, scale):
+def _parallax_sites(parts: ModelParts, settings: ModelSettings, base, scale, common=None):
     r"""Parallax stars: mu_j = base_j - scale_j u_j, EDSD prior on d_j (with the Jacobian), parallax likelihood.
 
-    Returns the stars' moduli (n_par,). Terms: :mod:`ladder.terms.parallax`.
+    With ``common`` (a fixed unit vector), ``u = H w`` for the Householder reflection H that takes the first axis
+    to ``common``: an orthogonal change of variables (Jacobian 1) that puts the stars' common shift -- set by the
+    shared zero point, which the marginal sampler has integrated out -- on one coordinate, so that a diagonal
+    mass matrix fits the posterior. Returns the stars' moduli (n_par,). Terms: :mod:`ladder.terms.parallax`.
     """
     import jax.numpy as jnp
     import numpyro
@@ -388,7 +391,13 @@ def _parallax_sites(parts: ModelParts, settings: ModelSettings, base, scale):
     from .terms.parallax import log_prior_in_log_distance, parallax_log_likelihood
 
     n_par = parts.parallax.shape[0]
-    u = numpyro.sample("parallax_star_u", dist.ImproperUniform(constraints.real, (n_par,), ()))
+    if common is None:
+        u = numpyro.sample("parallax_star_u", dist.ImproperUniform(constraints.real, (n_par,), ()))
+    else:
+        w = numpyro.sample("parallax_star_w", dist.ImproperUniform(constraints.real, (n_par,), ()))
+        v = common - jnp.zeros(n_par).at[0].set(1.0)
+        vv = jnp.dot(v, v)
+        u = w - 2.0 * v * jnp.dot(v, w) / jnp.where(vv > 1e-12, vv, 1.0) * (vv > 1e-12)
     log_d = numpyro.deterministic("log_distance_pc", ((base - scale * u) / 5.0 + 1.0) * np.log(10.0))
     if settings.parallax.length_scale_pc is None:
         log_l = numpyro.sample("parallax_log_length_scale", dist.Uniform(np.log(100.0), np.log(1e5)))
@@ -423,7 +432,11 @@ def marginal_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     offset_var = _scatter_sites(parts, settings, len(layout.galaxies))
     mu_par = None
     if parts.parallax.shape[0]:
-        mu_par = _parallax_sites(parts, settings, jnp.asarray(parts.par_base), jnp.asarray(parts.par_scale))
+        # width of each star's modulus given the scatter: photometric and intrinsic (the current s_j, so that
+        # u_j stays of unit scale whatever the scatter: no funnel between the scatter and the stars)
+        scale = jnp.sqrt(jnp.asarray(parts.par_var) + offset_var[parts.lin.par_star])
+        c = 1.0 / jnp.sqrt(jnp.asarray(parts.par_var) + 0.01)  # a common shift of every modulus, in u (fixed)
+        mu_par = _parallax_sites(parts, settings, jnp.asarray(parts.par_base), scale, c / jnp.linalg.norm(c))
     sn_var = 0.0
     if layout.has_sn:
         sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2

@@ -411,7 +411,7 @@ TOML_CASES = [
     TomlCase("toml-malformed", _run_text(_GOOD_TOP + "[sampler\nchains = 2\n"), RUN, None, also=("TOML", "line 9")),
     TomlCase("toml-unclosed-string", _run_text('[data]\ncepheids = "cepheids.ecsv\n'), RUN, None,
          also=("TOML", "line 2")),
-    TomlCase("toml-unknown-top-key", _doc("output", "out"), RUN, "output", also=("unknown key",)),
+    TomlCase("toml-unknown-top-key", _doc("results", "out"), RUN, "results", also=("unknown key",)),
     TomlCase("toml-unknown-table", _doc("plots.dpi", 100), RUN, "plots", also=("unknown key",)),
     TomlCase("toml-unknown-model-key", _doc("model.slope", -3.3), RUN, "model.slope", also=("unknown key",)),
     TomlCase("toml-unknown-sampler-key", _doc("sampler.thin", 2), RUN, "sampler.thin", also=("unknown key",),

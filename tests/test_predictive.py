@@ -24,7 +24,7 @@ import ladder
 from ladder.model import model_arrays, model_parts, star_logpdf
 from ladder.predictive import replicate_stars
 from ladder.simulate import MockSettings, simulate, write_mock
-from tolerances import PREDICTIVE_KS_MIN_P, PREDICTIVE_COV_RTOL
+from tolerances import PREDICTIVE_COV_RTOL, PREDICTIVE_FLAG_P, PREDICTIVE_KS_MIN_P, PREDICTIVE_PASS_P
 
 N_REP = 20_000
 MODES = {
@@ -112,3 +112,33 @@ def test_replicates_follow_the_model_density(mock_run, mode):
         var_e = float(1.0 / rate[j]) ** 2
         cov = np.diag(np.asarray(parts.lin.var[j])) + e_s2 + var_e * np.outer(a, a)
         np.testing.assert_allclose(np.cov(rep.T), cov, rtol=PREDICTIVE_COV_RTOL)
+
+
+# ----------------------------------------------------------------------------- the check flags what the model cannot make
+@pytest.fixture(scope="module")
+def checks(tmp_path_factory):
+    from ladder.predictive import predictive_check
+
+    out = {}
+    for name, frac in (("clean", 0.0), ("blends", 0.15)):
+        mock = simulate(MockSettings(n_hosts=6, n_anchors=2, n_cepheids=700, outlier_fraction=frac), seed=12)
+        cfg = ladder.load_run(write_mock(mock, tmp_path_factory.mktemp(name))["run"])
+        data = ladder.load_data(cfg)
+        s = dataclasses.replace(cfg.sampler, chains=2, warmup=300, draws=300, progress=False)
+        result = ladder.fit(data, cfg.model, s)  # outliers = "none": a Gaussian model
+        out[name] = (predictive_check(result, n_draws=200, seed=1), data)
+    return out
+
+
+def test_predictive_check_flags_blends_fitted_without_the_outlier_term(checks):
+    table, data = checks["blends"]
+    hosts = np.array([r == "host" for r in data.host_roles])
+    p = np.asarray(table["p_value_tails"])[hosts]
+    # 15% of host Cepheids 0.3-1.5 mag too bright: a Gaussian model cannot make such tails in most hosts
+    assert np.mean(p < PREDICTIVE_FLAG_P) >= 0.5, p
+
+
+def test_predictive_check_passes_data_the_model_can_make(checks):
+    table, _ = checks["clean"]
+    p = np.minimum(np.asarray(table["p_value"]), np.asarray(table["p_value_tails"]))
+    assert np.all(p >= PREDICTIVE_PASS_P), table

@@ -62,7 +62,7 @@ def test_fit_report_writes_one_self_contained_file(fit_dir):
     assert "<script" not in text.lower()  # no JavaScript at all, and the galaxy name escaped
     assert not re.search(r"""(src|href)\s*=\s*["']?(https?:|//)""", text, re.I)  # no network resources
     n_img = len(re.findall(r'<img src="data:image/png;base64,', text))
-    assert n_img == len(list(fit_dir.glob("*.png"))) == 3  # PL, corner, distances (no supernovae)
+    assert n_img == len(list(fit_dir.glob("*.png"))) == 4  # PL, corner, distances, predictive check (no SNe)
     assert "No supernovae in this fit" in text
 
 
@@ -81,10 +81,17 @@ def test_report_numbers_are_those_of_the_tables(fit_dir):
     assert ("diagnostics <b>FAILED</b>" in text) == (not diag["passed"])
 
 
-def test_report_warns_about_few_cepheids_and_says_no_predictive_check(fit_dir):
+def test_report_warns_about_few_cepheids_and_says_no_predictive_check(fit_dir, tmp_path):
+    from ladder.report import report_html
+
     text = (fit_dir / "report.html").read_text(encoding="utf-8")
     assert f"<b>{html_escape(EVIL)}</b> (host) has only {FEW} Cepheids" in text
-    assert "No posterior predictive check was run for this fit" in text
+    assert "No posterior predictive check was run for this fit" not in text  # the fit made one (ppc.ecsv, ppc.png)
+    d = tmp_path / "without_ppc"
+    shutil.copytree(fit_dir, d)
+    (d / "ppc.ecsv").unlink()
+    (d / "ppc.png").unlink()
+    assert "No posterior predictive check was run for this fit" in report_html(d)
 
 
 def test_report_shows_a_predictive_check_when_the_directory_has_one(fit_dir, tmp_path):
@@ -94,7 +101,7 @@ def test_report_shows_a_predictive_check_when_the_directory_has_one(fit_dir, tmp
     shutil.copytree(fit_dir, d)
     t = Table({"galaxy": [EVIL, "other"], "statistic": [1.5, 0.7], "p_value": [0.03, 0.6]})
     t.meta["description"] = "made here for the test"
-    t.write(d / "ppc.ecsv", format="ascii.ecsv")
+    t.write(d / "ppc.ecsv", format="ascii.ecsv", overwrite=True)
     shutil.copy(d / "corner.png", d / "ppc.png")
     text = report_html(d)
     section = text[text.index('id="ppc"'):text.index('id="provenance"')]
