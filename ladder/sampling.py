@@ -314,8 +314,14 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
     notes = [f"method {method}: {reason}"]
     init = initial_values(parts, layout, settings, method)
     key = jax.random.PRNGKey(sampler.seed)
+    grid_names = _grid_hyperparameters(settings, layout) if method == "marginal" and sampler.method != "nuts" else None
     if method == "gls":
         samples, extra, chain_method = {}, None, "vectorized"
+    elif grid_names:
+        samples = _grid_draws(parts, settings, layout, sampler, grid_names, jax.random.fold_in(key, 2))
+        extra, chain_method = None, "vectorized"
+        notes.append(f"hyperparameters {', '.join(grid_names)} drawn independently from their exact marginal "
+                     "posterior on a grid (no Markov chain): every draw independent")
     else:
         model = marginal_model if method == "marginal" else full_model
         samples, extra, chain_method, more = _run_mcmc(model, parts, layout, settings, sampler, init, limits, say)
@@ -325,6 +331,80 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
     notes += bound_notes
     wall = time.perf_counter() - start
     return SampleRun(idata, derived, wall, chain_method, method, notes, parts)
+
+
+#: Hyperparameters the marginal method draws from a grid instead of NUTS, when they are all it has (1 or 2).
+_GRID_SITES = ("scatter", "sn_scatter")
+_GRID_POINTS = {1: 1201, 2: 161}  # per axis, over +-8 posterior sd: steps of 0.013 sd (1-D) and 0.1 sd (2-D)
+
+
+def _grid_hyperparameters(settings: ModelSettings, layout: Layout) -> list[str] | None:
+    """The sampled hyperparameters when they are only a global scatter (and the SN scatter), else None."""
+    if settings.scatter_model != "global" or layout.parallax_stars:
+        return None
+    names = [n for n in _GRID_SITES if (n != "sn_scatter" or layout.has_sn) and settings.prior(n).dist != "fixed"]
+    return names or None
+
+
+def _grid_draws(parts, settings, layout, sampler, names, key) -> dict:
+    r"""Independent draws of 1 or 2 positive hyperparameters from their exact marginal posterior
+    :math:`p(\phi \mid y) \propto p(\phi)\,p(y \mid \phi)` (:func:`ladder.structure.log_marginal`), tabulated in
+    :math:`\ln\phi` on a grid spanning +-8 posterior sd around the mode (found by a coarse scan, then a fine one),
+    drawn by inverse CDF within cells (piecewise-linear in 1-D, uniform within a cell in 2-D). Returns the draws
+    by name, shaped (chains, draws) like a sampler's."""
+    import jax
+    import jax.numpy as jnp
+
+    from .model import split_static, with_structure
+    from .priors import prior_distribution
+    from .structure import log_marginal
+
+    st, array_parts = split_static(parts)
+    priors = [prior_distribution(settings.prior(n)) for n in names]
+    n = parts.lin.y0.shape[0]
+
+    def logpost(x, ap):  # x: ln phi, (len(names),)
+        phi = jnp.exp(x)
+        lp = sum(d.log_prob(phi[i]) for i, d in enumerate(priors)) + jnp.sum(x)  # |d phi / d ln phi| = phi
+        sn_var = phi[1] ** 2 if len(names) == 2 else (
+            jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2 if parts.lin.sn_slot.shape[0] else 0.0)
+        lm = log_marginal(st, with_structure(st, ap).lin, jnp.full(n, phi[0] ** 2), None, sn_var)
+        return jnp.where(jnp.isfinite(lp), lp + lm, -jnp.inf)
+
+    table = jax.jit(lambda xs, ap: jax.lax.map(lambda x: logpost(x, ap), xs))
+    k = len(names)
+    lo, hi = np.full(k, np.log(1e-4)), np.full(k, np.log(5.0))
+    for points in (41, 61):  # coarse scans: locate the mode and the posterior width
+        axes = [np.linspace(lo[i], hi[i], points) for i in range(k)]
+        mesh = np.stack(np.meshgrid(*axes, indexing="ij"), -1).reshape(-1, k)
+        lp = np.asarray(table(jnp.asarray(mesh), array_parts)).reshape((points,) * k)
+        best = np.unravel_index(np.nanargmax(np.where(np.isfinite(lp), lp, -np.inf)), lp.shape)
+        for i in range(k):  # +-8 sd from the curvature of the profile along each axis (at least 3 grid steps)
+            prof = np.moveaxis(lp, i, 0)[(slice(None),) + tuple(b for j, b in enumerate(best) if j != i)]
+            j = best[i]
+            step = axes[i][1] - axes[i][0]
+            if 0 < j < points - 1 and np.all(np.isfinite(prof[j - 1:j + 2])):
+                curv = -(prof[j + 1] - 2 * prof[j] + prof[j - 1]) / step**2
+                sd = 1.0 / np.sqrt(curv) if curv > 0 else 3 * step
+            else:
+                sd = 3 * step
+            centre = axes[i][j]
+            lo[i], hi[i] = centre - 8 * max(sd, step / 3), centre + 8 * max(sd, step / 3)
+    points = _GRID_POINTS[k]
+    axes = [np.linspace(lo[i], hi[i], points) for i in range(k)]
+    mesh = np.stack(np.meshgrid(*axes, indexing="ij"), -1).reshape(-1, k)
+    lp = np.asarray(table(jnp.asarray(mesh), array_parts))
+    lp = np.where(np.isfinite(lp), lp, -np.inf)
+    w = np.exp(lp - lp.max())
+    S = sampler.chains * sampler.draws
+    rng = np.random.default_rng([sampler.seed, 2])  # the draws are a function of the seed alone
+    edge = [np.nanmax(w.reshape((points,) * k).take(ix, axis=i)) for i in range(k) for ix in (0, -1)]
+    if max(edge) > 1e-6:
+        raise RuntimeError("the grid over the hyperparameters does not hold the posterior (mass at its edge)")
+    cell = rng.choice(w.size, size=S, p=w / w.sum())
+    steps = np.array([a[1] - a[0] for a in axes])
+    x = mesh[cell] + (rng.random((S, k)) - 0.5) * steps
+    return {nm: np.exp(x[:, i]).reshape(sampler.chains, sampler.draws) for i, nm in enumerate(names)}
 
 
 def _complete_draws(parts, settings, method, samples, chains, draws, key):
@@ -373,7 +453,7 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
     from . import __version__
     from .model import pointwise
 
-    chains, draws = (sampler.chains, sampler.draws) if method == "gls" else np.shape(next(iter(samples.values())))[:2]
+    chains, draws = (sampler.chains, sampler.draws) if not samples else np.shape(next(iter(samples.values())))[:2]
     k1, k2 = jax.random.split(key)
     flat = _complete_draws(parts, settings, method, samples, chains, draws, k1)
     S = chains * draws
