@@ -31,10 +31,7 @@ class InputError(ValueError):
 
     def __init__(self, message: str, *, file: str | None = None, key: str | None = None,
                  rows: Sequence[int] | None = None):
-        self.message = message
-        self.file = None if file is None else str(file)
-        self.key = key
-        self.rows = None if rows is None else [int(r) for r in rows]
+        _locate(self, message, file, key, rows)
         super().__init__(self.format())
 
     def format(self) -> str:
@@ -45,6 +42,14 @@ def plural(n: int, word: str, many: str | None = None) -> str:
     """``"1 anchor"``, ``"2 anchors"``; ``many`` for irregular plurals (``plural(n, "galaxy", "galaxies")``)."""
     n = int(n)
     return f"{n} {word if n == 1 else (many or word + 's')}"
+
+
+def _locate(obj, message, file, key, rows) -> None:
+    """Set the parts an :class:`InputError` or :class:`PlausibilityWarning` names (file, key, zero-based rows)."""
+    obj.message = message
+    obj.file = None if file is None else str(file)
+    obj.key = key
+    obj.rows = None if rows is None else [int(r) for r in rows]
 
 
 def _format(message, file, key, rows) -> str:
@@ -74,8 +79,5 @@ class PlausibilityWarning(UserWarning):
 
     def __init__(self, message: str, *, file: str | None = None, key: str | None = None,
                  rows: Sequence[int] | None = None):
-        self.message = message
-        self.file = None if file is None else str(file)
-        self.key = key
-        self.rows = None if rows is None else [int(r) for r in rows]
+        _locate(self, message, file, key, rows)
         super().__init__(_format(self.message, self.file, self.key, self.rows))
