@@ -93,6 +93,7 @@ def worker_ladder(run: Path, result: Path) -> None:
 
 def worker_centered(npz: Path, result: Path) -> None:
     """A straightforward numpyro model of the same likelihood and priors, every parameter sampled."""
+    import ladder  # noqa: F401  (asks for one CPU device per core before jax starts: parallel chains, as for ladder)
     import jax
 
     jax.config.update("jax_enable_x64", True)
@@ -105,6 +106,11 @@ def worker_centered(npz: Path, result: Path) -> None:
     n_mu = int(d["n_mu"])
     flow = d.get("sn_slot", np.zeros(0, int)) < 0
     n_par = d["par_star"].size
+    if flow.size:
+        from ladder.cosmography import distance_modulus, peculiar_velocity_mag
+
+        z_all = np.where(flow, d["sn_z"], 1.0)
+        pv = np.where(flow, np.asarray(peculiar_velocity_mag(z_all, 250.0)), 0.0)
 
     def model():
         mu = numpyro.sample("mu", dist.Normal(25.0, 15.0).expand((n_mu,)))
@@ -126,15 +132,12 @@ def worker_centered(npz: Path, result: Path) -> None:
         numpyro.sample("m", dist.Normal(loc, jnp.sqrt(d["err"] ** 2 + s**2)), obs=d["mag"])
         numpyro.sample("geo", dist.Normal(mu[d["anchor"]], d["mu_geo_err"]), obs=d["mu_geo"])
         if flow.size:
-            from ladder.cosmography import distance_modulus, peculiar_velocity_mag
-
             m_sn = numpyro.sample("sn_abs_mag", dist.Normal(-19.3, 1.0))
             s_sn = numpyro.sample("sn_scatter", dist.HalfNormal(0.3))
             h0 = numpyro.sample("h0", dist.Uniform(20.0, 150.0))
-            z = np.where(flow, d["sn_z"], 1.0)
-            loc = jnp.where(flow, m_sn + distance_modulus(z, h0), mu[np.maximum(d["sn_slot"], 0)] + m_sn)
-            pv = np.where(flow, np.asarray(peculiar_velocity_mag(z, 250.0)), 0.0)
-            numpyro.sample("sn", dist.Normal(loc, jnp.sqrt(d["sn_err"] ** 2 + s_sn**2 + pv**2)), obs=d["sn_mag"])
+            loc = jnp.where(flow, m_sn + distance_modulus(z_all, h0), mu[np.maximum(d["sn_slot"], 0)] + m_sn)
+            sd = jnp.sqrt(jnp.asarray(d["sn_err"]) ** 2 + s_sn**2 + jnp.asarray(pv) ** 2)
+            numpyro.sample("sn", dist.Normal(loc, sd), obs=jnp.asarray(d["sn_mag"]))
 
     mcmc = MCMC(NUTS(model), num_warmup=WARMUP, num_samples=DRAWS, num_chains=CHAINS, progress_bar=False,
                 chain_method="parallel" if jax.local_device_count() >= CHAINS else "sequential")
