@@ -16,7 +16,7 @@ import numpy as np
 
 from .errors import InputError, plural
 
-__all__ = ["main", "EXIT_OK", "EXIT_BAD_INPUT", "EXIT_DIAGNOSTICS", "EXIT_VERIFY_MISMATCH", "EXIT_SIGINT",
+__all__ = ["main", "console_main", "EXIT_OK", "EXIT_BAD_INPUT", "EXIT_DIAGNOSTICS", "EXIT_VERIFY_MISMATCH", "EXIT_SIGINT",
            "EXIT_SIGTERM"]
 
 EXIT_OK, EXIT_BAD_INPUT, EXIT_DIAGNOSTICS = 0, 2, 3
@@ -391,8 +391,24 @@ def _on_sigterm(signum, frame):
     raise _Terminated()
 
 
+def console_main() -> None:
+    """The ``ladder`` command and ``python -m ladder``: :func:`main`, then exit with its code.
+
+    After an interrupt the process leaves at once (``os._exit``, streams flushed): JAX's compiler threads may
+    still be running, and a normal interpreter shutdown under them can crash after the clean-up is done.
+    """
+    import os
+
+    code = main()
+    if code in (EXIT_SIGINT, EXIT_SIGTERM):
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(code)
+    sys.exit(code)
+
+
 def main(argv: list[str] | None = None) -> int:
-    """Entry point; returns the exit code (``sys.exit(main())`` in the console script).
+    """Entry point; returns the exit code (:func:`console_main` in the console script).
 
     SIGINT and SIGTERM end a run cleanly: the output set is written all or nothing (ladder.outputs), so an
     interrupted ``fit`` leaves no partial directory and an earlier complete set in place untouched.

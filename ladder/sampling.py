@@ -391,16 +391,28 @@ def _grid_draws(parts, settings, layout, sampler, names, key) -> dict:
             centre = axes[i][j]
             lo[i], hi[i] = centre - 8 * max(sd, step / 3), centre + 8 * max(sd, step / 3)
     points = _GRID_POINTS[k]
-    axes = [np.linspace(lo[i], hi[i], points) for i in range(k)]
-    mesh = np.stack(np.meshgrid(*axes, indexing="ij"), -1).reshape(-1, k)
-    lp = np.asarray(table(jnp.asarray(mesh), array_parts))
-    lp = np.where(np.isfinite(lp), lp, -np.inf)
-    w = np.exp(lp - lp.max())
+    for _ in range(6):  # widen a side that still holds mass (a skewed posterior, e.g. a scatter consistent with 0)
+        axes = [np.linspace(lo[i], hi[i], points) for i in range(k)]
+        mesh = np.stack(np.meshgrid(*axes, indexing="ij"), -1).reshape(-1, k)
+        lp = np.asarray(table(jnp.asarray(mesh), array_parts))
+        lp = np.where(np.isfinite(lp), lp, -np.inf)
+        w = np.exp(lp - lp.max())
+        grid = w.reshape((points,) * k)
+        widened = False
+        for i in range(k):
+            width = hi[i] - lo[i]
+            if np.max(grid.take(0, axis=i)) > 1e-8 and lo[i] > np.log(1e-5):
+                lo[i] -= 0.5 * width
+                widened = True
+            if np.max(grid.take(-1, axis=i)) > 1e-8:
+                hi[i] += 0.5 * width
+                widened = True
+        if not widened:
+            break
+    else:
+        raise RuntimeError("the grid over the hyperparameters does not hold their posterior (mass at its edge)")
     S = sampler.chains * sampler.draws
     rng = np.random.default_rng([sampler.seed, 2])  # the draws are a function of the seed alone
-    edge = [np.nanmax(w.reshape((points,) * k).take(ix, axis=i)) for i in range(k) for ix in (0, -1)]
-    if max(edge) > 1e-6:
-        raise RuntimeError("the grid over the hyperparameters does not hold the posterior (mass at its edge)")
     cell = rng.choice(w.size, size=S, p=w / w.sum())
     steps = np.array([a[1] - a[0] for a in axes])
     x = mesh[cell] + (rng.random((S, k)) - 0.5) * steps
