@@ -220,7 +220,7 @@ def _png_size(path: Path) -> tuple[int, int]:
     return struct.unpack(">II", head[16:24])  # IHDR width, height (PNG spec, W3C/ISO 15948)
 
 
-@pytest.mark.parametrize("variant", VARIANTS)
+@pytest.mark.parametrize("variant", ["result", pytest.param("full_result", marks=pytest.mark.slow)])
 def test_write_all_plots_writes_the_figures(variant, request, tmp_path):
     from ladder.plots import write_all_plots
 

@@ -117,4 +117,4 @@ SHIFT_RTOL = 1e-12  # shifts / combined-sd differences are one subtraction and o
 LOO_VS_ARVIZ_RTOL = 1e-9  # delta elpd and its se vs arviz.compare on the same pointwise values; summation order only
 PSIS_VS_REFIT_SHIFT_ATOL = 0.45  # baseline sds; MC error of a 2x200-draw mean ~ sd/sqrt(ESS ~ 100) = 0.1 sd for the refit and more for importance weights (k <= 0.7): difference se ~ 0.15, 3 sigma
 PREDICTIVE_FLAG_P = 0.01  # a predictive p-value below 1% flags a galaxy (common practice for posterior predictive checks)
-PREDICTIVE_PASS_P = 0.005  # 200 replicates resolve p to 0.005; posterior predictive p-values of a correct model concentrate near 0.5 (they use the data twice), so none of 12 falls below 0.005 by chance (measured min ~0.1)
+PREDICTIVE_PASS_P = 0.005  # 200 replicates resolve p to 0.005; posterior predictive p-values of a correct model concentrate near 0.5 (they use the data twice), so none of 12 falls below 0.005 by chance for a correct model
