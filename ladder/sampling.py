@@ -560,9 +560,7 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
     obs = {}
     lin = parts.lin
     seen = np.asarray(lin.seen)
-    from .model import fitted_data  # noqa: F401  (the observed values are what the model fits)
-
-    y_obs = np.where(seen, np.asarray(_observed_values(parts)), np.nan)
+    y_obs = np.where(seen, np.asarray(parts.observed), np.nan)  # the fitted magnitudes as observed
     if y_obs.shape[1] == 1:
         obs["cepheid_mag"] = xr.DataArray(y_obs[:, 0], dims=["star"], coords={"star": coords["star"]})
     else:
@@ -585,11 +583,6 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
     groups["constant_data"] = xr.Dataset(const, attrs=attrs)
     idata = az.InferenceData(**groups)
     return idata, derived, _bound_notes(parts, flat)
-
-
-def _observed_values(parts):
-    """The fitted magnitudes as observed (the linear block's data plus its fixed contributions)."""
-    return parts.observed
 
 
 def _bound_notes(parts, flat) -> list[str]:
