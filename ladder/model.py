@@ -319,6 +319,7 @@ class ModelParts(NamedTuple):
 
 def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, init_scatter: float = 0.1):
     """Build :class:`ModelParts`: the linear structure of :mod:`ladder.structure` for this run's data."""
+    import jax
     import jax.numpy as jnp
 
     from ._jax import enable_x64
@@ -327,7 +328,7 @@ def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, in
     enable_x64()
     obs, err, mask = fitted_data(arrays, settings)
     structure, lin = build_structure(arrays, layout, settings, obs, err, mask)
-    jlin = type(lin)(*(jnp.asarray(a) for a in lin))
+    jlin = jax.device_put(lin)  # (jnp.asarray would compile a small program per array shape)
     gal_slot = {g: i for i, g in enumerate(layout.distance_galaxies)}
     bias_slots = np.array([gal_slot[layout.galaxies[g]] for g in np.asarray(arrays.bias_host)], np.int64)
     n_par = len(layout.parallax_stars)

@@ -20,12 +20,37 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["replicate_stars", "posterior_predictive", "predictive_check", "add_predictive"]
+__all__ = ["replicate_stars", "replicate_stars_given", "posterior_predictive", "predictive_check", "add_predictive"]
 
 
 def replicate_stars(key, parts, settings, params: dict):
-    """One replicate of every Cepheid's fitted magnitudes (N, k) at ``params`` (output names). JAX."""
+    """One replicate of every Cepheid's fitted magnitudes (N, k) at ``params`` (output names). JAX.
+
+    The random variates come from ``key``; :func:`replicate_stars_given` takes them as arguments."""
     import jax
+
+    n, k = parts.lin.y0.shape
+    k1, k2, k3, k4 = jax.random.split(key, 4)
+    noise = {"uniform": jax.random.uniform(k1, (n,)), "offset": jax.random.normal(k2, (n,)),
+             "error": jax.random.normal(k3, (n, k)), "exponential": jax.random.exponential(k4, (n,))}
+    return replicate_stars_given(noise, parts, settings, params)
+
+
+def _noise(rng, parts, settings, shape=()) -> dict:
+    """Standard variates for :func:`replicate_stars_given` from a numpy Generator (only those the model uses)."""
+    n, k = parts.lin.y0.shape
+    out = {"offset": rng.standard_normal(shape + (n,)), "error": rng.standard_normal(shape + (n, k))}
+    if settings.outliers == "mixture":
+        out["uniform"] = rng.random(shape + (n,))
+    if settings.multiband:
+        out["exponential"] = rng.standard_exponential(shape + (n,))
+    return out
+
+
+def replicate_stars_given(noise: dict, parts, settings, params: dict):
+    """:func:`replicate_stars` for given standard variates: ``noise["offset"]`` (N,) and ``noise["error"]``
+    (N, k) standard normal, ``noise["uniform"]`` (N,) uniform on [0, 1) (outlier mixture) and
+    ``noise["exponential"]`` (N,) standard exponential (multiband extinction). JAX."""
     import jax.numpy as jnp
 
     from .model import mu_parallax, nonlinear_inputs, offset_var_from_params, theta_from_params
@@ -37,28 +62,31 @@ def replicate_stars(key, parts, settings, params: dict):
     pred = jnp.asarray(parts.observed) - residuals(parts.structure, lin, theta_local, theta_global, mu_par)
     offset_var = offset_var_from_params(parts, settings, params)
     extinction, fraction = nonlinear_inputs(parts, settings, params)
-    n, k = pred.shape
-    k1, k2, k3, k4 = jax.random.split(key, 4)
     var_s = offset_var
     if fraction is not None:
-        broad = jax.random.uniform(k1, (n,)) < fraction
+        broad = noise["uniform"] < fraction
         var_s = jnp.where(broad, offset_var + settings.outlier_width**2, offset_var)
-    s = jnp.sqrt(var_s) * jax.random.normal(k2, (n,))
-    eps = jnp.sqrt(lin.var) * jax.random.normal(k3, (n, k))
+    s = jnp.sqrt(var_s) * noise["offset"]
+    eps = jnp.sqrt(lin.var) * noise["error"]
     rep = pred + s[:, None] + eps
     if extinction is not None:
         a, rate = extinction
-        e = jax.random.exponential(k4, (n,)) / rate
+        e = noise["exponential"] / rate
         rep = rep + e[:, None] * a[None, :]
     return jnp.where(lin.seen, rep, jnp.nan)
 
 
+#: Replicates per call of the compiled replicate program (one compiled shape; bounded memory at 10^5 stars).
+_BATCH = 25
+
+
 def posterior_predictive(result, n_draws: int = 200, seed: int = 0):
-    """(n_draws, N, k) replicated fitted magnitudes, one per posterior draw (evenly thinned)."""
+    """(n_draws, N, k) replicated fitted magnitudes, one per posterior draw (evenly thinned). The random
+    variates come from ``numpy.random.default_rng([seed, 1])``."""
     import jax
     import jax.numpy as jnp
 
-    from .model import model_arrays, model_parts
+    from .model import model_arrays, model_parts, split_static, with_structure
 
     arrays, layout = model_arrays(result.data, result.model)
     if result.model.outliers == "clip":
@@ -69,20 +97,26 @@ def posterior_predictive(result, n_draws: int = 200, seed: int = 0):
     take = np.linspace(0, S - 1, min(n_draws, S)).astype(int)
     params = {}
     for name, v in post.data_vars.items():
-        x = np.asarray(v).reshape((S,) + v.shape[2:])[take]
-        params[name] = jnp.asarray(x)
+        params[name] = np.asarray(v).reshape((S,) + v.shape[2:])[take]
     for name, value in parts.structure.fixed:
-        params.setdefault(name, jnp.broadcast_to(jnp.asarray(value), (take.size,)))
-    keys = jax.random.split(jax.random.PRNGKey(seed), take.size)
-    from .model import split_static, with_structure
-
+        params.setdefault(name, np.broadcast_to(np.asarray(value, float), (take.size,)))
     st, array_parts = split_static(parts)
-    rep = jax.jit(lambda ks, ps, ap: jax.vmap(lambda kk, p: replicate_stars(kk, with_structure(st, ap), result.model,
-                                                                            p))(ks, ps))(keys, params, array_parts)
-    return np.asarray(rep), parts, params
+    program = jax.jit(lambda nz, ps, ap: jax.vmap(
+        lambda z, p: replicate_stars_given(z, with_structure(st, ap), result.model, p))(nz, ps))
+    rng = np.random.default_rng([seed, 1])
+    D = take.size
+    reps = []
+    for i in range(0, D, _BATCH):
+        m = min(_BATCH, D - i)
+        pad = lambda x: np.concatenate([x, np.repeat(x[-1:], _BATCH - m, axis=0)]) if m < _BATCH else x  # noqa: E731
+        noise = _noise(rng, parts, result.model, (m,))
+        batch = program({k: pad(v) for k, v in noise.items()}, {k: pad(v[i:i + m]) for k, v in params.items()},
+                        array_parts)
+        reps.append(np.asarray(batch)[:m])
+    return np.concatenate(reps), parts, {k: jnp.asarray(v) for k, v in params.items()}
 
 
-def predictive_check(result, n_draws: int = 200, seed: int = 0):
+def predictive_check(result, n_draws: int = 200, seed: int = 0, _replicates=None):
     r"""Per-galaxy posterior predictive check of the Cepheid residuals.
 
     Two statistics per galaxy, with :math:`z_j` each star's inverse-variance band-mean magnitude minus its
@@ -96,7 +130,7 @@ def predictive_check(result, n_draws: int = 200, seed: int = 0):
     """
     from astropy.table import Table
 
-    rep, parts, params = posterior_predictive(result, n_draws, seed)
+    rep, parts, _ = _replicates or posterior_predictive(result, n_draws, seed)
     seen = np.asarray(parts.lin.seen)
     fitted = np.asarray(parts.lin.mask).any(axis=1)
     w = np.where(seen, 1.0 / np.asarray(parts.lin.var), 0.0)
@@ -136,10 +170,11 @@ def add_predictive(result, *, group: bool = False, n_draws: int = 200, seed: int
     variable ``cepheid_mag`` like ``observed_data``, dims (chain, draw, star[, band]), thinned draws)."""
     import xarray as xr
 
-    result.extra["ppc"] = predictive_check(result, n_draws, seed)
+    replicates = posterior_predictive(result, n_draws, seed)
+    result.extra["ppc"] = predictive_check(result, n_draws, seed, _replicates=replicates)
     if not group:
         return
-    rep, parts, _ = posterior_predictive(result, n_draws, seed)
+    rep, parts, _ = replicates
     stars = list(result.data.star_names)
     if rep.shape[-1] == 1:
         da = xr.DataArray(rep[None, :, :, 0], dims=["chain", "draw", "star"], coords={"star": stars})

@@ -300,8 +300,6 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
                 limits=None, output: OutputSettings = OutputSettings(), say=_say) -> SampleRun:
     """Sample the posterior by the method :func:`choose_method` picks; a pure function of its inputs (the seed
     is ``sampler.seed``)."""
-    import jax
-
     from ._jax import enable_x64
     from .config import DiagnosticThresholds
     from .model import full_model, marginal_model, model_parts
@@ -312,22 +310,20 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
     start = time.perf_counter()
     parts = model_parts(arrays, layout, settings)
     notes = [f"method {method}: {reason}"]
-    init = initial_values(parts, layout, settings, method)
-    key = jax.random.PRNGKey(sampler.seed)
     grid_names = _grid_hyperparameters(settings, layout) if method == "marginal" and sampler.method != "nuts" else None
     if method == "gls":
         samples, extra, chain_method = {}, None, "vectorized"
     elif grid_names:
-        samples = _grid_draws(parts, settings, layout, sampler, grid_names, jax.random.fold_in(key, 2))
+        samples = _grid_draws(parts, settings, layout, sampler, grid_names)
         extra, chain_method = None, "vectorized"
         notes.append(f"hyperparameters {', '.join(grid_names)} drawn independently from their exact marginal "
                      "posterior on a grid (no Markov chain): every draw independent")
     else:
         model = marginal_model if method == "marginal" else full_model
+        init = initial_values(parts, layout, settings, method)  # a Markov chain needs a starting point
         samples, extra, chain_method, more = _run_mcmc(model, parts, layout, settings, sampler, init, limits, say)
         notes += more
-    idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra,
-                                            jax.random.fold_in(key, 1))
+    idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra)
     notes += bound_notes
     wall = time.perf_counter() - start
     return SampleRun(idata, derived, wall, chain_method, method, notes, parts)
@@ -336,6 +332,7 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
 #: Hyperparameters the marginal method draws from a grid instead of NUTS, when they are all it has (1 or 2).
 _GRID_SITES = ("scatter", "sn_scatter")
 _GRID_POINTS = {1: 1201, 2: 161}  # per axis, over +-8 posterior sd: steps of 0.013 sd (1-D) and 0.1 sd (2-D)
+_GRID_BATCH = 128  # points per call of the compiled log posterior (every scan pads to a multiple of it)
 
 
 def _grid_hyperparameters(settings: ModelSettings, layout: Layout) -> list[str] | None:
@@ -346,7 +343,7 @@ def _grid_hyperparameters(settings: ModelSettings, layout: Layout) -> list[str] 
     return names or None
 
 
-def _grid_draws(parts, settings, layout, sampler, names, key) -> dict:
+def _grid_draws(parts, settings, layout, sampler, names) -> dict:
     r"""Independent draws of 1 or 2 positive hyperparameters from their exact marginal posterior
     :math:`p(\phi \mid y) \propto p(\phi)\,p(y \mid \phi)` (:func:`ladder.structure.log_marginal`), tabulated in
     :math:`\ln\phi` on a grid spanning +-8 posterior sd around the mode (found by a coarse scan, then a fine one),
@@ -371,13 +368,21 @@ def _grid_draws(parts, settings, layout, sampler, names, key) -> dict:
         lm = log_marginal(st, with_structure(st, ap).lin, jnp.full(n, phi[0] ** 2), None, sn_var)
         return jnp.where(jnp.isfinite(lp), lp + lm, -jnp.inf)
 
-    table = jax.jit(lambda xs, ap: jax.lax.map(lambda x: logpost(x, ap), xs))
+    # One compiled program of a fixed batch shape for every scan (a new shape would compile it again).
+    batch = jax.jit(lambda xs, ap: jax.lax.map(lambda x: logpost(x, ap), xs))
+
+    def table(mesh):
+        m = mesh.shape[0]
+        xs = np.concatenate([mesh, np.repeat(mesh[-1:], (-m) % _GRID_BATCH, axis=0)])
+        return np.concatenate([np.asarray(batch(xs[i:i + _GRID_BATCH], array_parts))
+                               for i in range(0, xs.shape[0], _GRID_BATCH)])[:m]
+
     k = len(names)
     lo, hi = np.full(k, np.log(1e-4)), np.full(k, np.log(5.0))
     for points in (41, 61):  # coarse scans: locate the mode and the posterior width
         axes = [np.linspace(lo[i], hi[i], points) for i in range(k)]
         mesh = np.stack(np.meshgrid(*axes, indexing="ij"), -1).reshape(-1, k)
-        lp = np.asarray(table(jnp.asarray(mesh), array_parts)).reshape((points,) * k)
+        lp = table(mesh).reshape((points,) * k)
         best = np.unravel_index(np.nanargmax(np.where(np.isfinite(lp), lp, -np.inf)), lp.shape)
         for i in range(k):  # +-8 sd from the curvature of the profile along each axis (at least 3 grid steps)
             prof = np.moveaxis(lp, i, 0)[(slice(None),) + tuple(b for j, b in enumerate(best) if j != i)]
@@ -394,7 +399,7 @@ def _grid_draws(parts, settings, layout, sampler, names, key) -> dict:
     for _ in range(6):  # widen a side that still holds mass (a skewed posterior, e.g. a scatter consistent with 0)
         axes = [np.linspace(lo[i], hi[i], points) for i in range(k)]
         mesh = np.stack(np.meshgrid(*axes, indexing="ij"), -1).reshape(-1, k)
-        lp = np.asarray(table(jnp.asarray(mesh), array_parts))
+        lp = table(mesh)
         lp = np.where(np.isfinite(lp), lp, -np.inf)
         w = np.exp(lp - lp.max())
         grid = w.reshape((points,) * k)
@@ -419,75 +424,60 @@ def _grid_draws(parts, settings, layout, sampler, names, key) -> dict:
     return {nm: np.exp(x[:, i]).reshape(sampler.chains, sampler.draws) for i, nm in enumerate(names)}
 
 
-def _complete_draws(parts, settings, method, samples, chains, draws, key):
-    """Every posterior draw with every output parameter: the sampled sites plus, for ``marginal`` and
-    ``gls``, one exact draw of the linear block per draw. Returns flat (S, ...) arrays by output name."""
+def _linear_draw(parts, settings, p: dict, z_global, z_local) -> dict:
+    """One exact draw of the linear block at the hyperparameters in ``p`` (output names, fixed ones included),
+    from the standard normals ``z_global`` (p,), ``z_local`` (G, L). Returns the linear parameters by name."""
+    import jax.numpy as jnp
+
+    from .model import mu_parallax, offset_var_from_params
+    from .structure import conditional_draw_given, unpack
+
+    st = parts.structure
+    ov = offset_var_from_params(parts, settings, p)
+    mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
+    sn_var = (p["sn_scatter"] ** 2 if "sn_scatter" in p else
+              jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2) if parts.lin.sn_slot.shape[0] else 0.0
+    loc, glob = conditional_draw_given(z_global, z_local, st, parts.lin, ov, mu_par, sn_var)
+    fixed = dict(st.fixed)
+    out = {"mu": loc[:, 0], **{n: v for n, v in unpack(st, glob).items() if n not in fixed}}
+    if st.n_local == 2 and parts.bias_slots.shape[0]:
+        out["photometric_bias"] = loc[parts.bias_slots, 1]
+    return out
+
+
+def _draws_and_pass(parts, layout, settings, method, mode, samples, chains, draws, seed):
+    """Every posterior draw with every output parameter, and one pass over the draws, in one compiled program.
+
+    For ``marginal`` and ``gls`` each draw gets its exact draw of the linear block (standard normals from
+    ``numpy.random.default_rng([seed, 1])``); then, per draw, the pointwise log-likelihoods (per star, per
+    galaxy or none, by ``mode``) and running sums of the per-star outlier probability, E(B-V) and residual.
+    Returns ``(draws by output name, flat (S, ...) numpy arrays; per-star means; pointwise values)``.
+    """
     import jax
     import jax.numpy as jnp
 
-    from .model import mu_parallax, offset_var_from_params, split_static, with_structure
-    from .structure import conditional_draw, unpack
+    from .model import pointwise, split_static, with_structure
 
     S = chains * draws
-    flat = {k: jnp.asarray(np.asarray(v).reshape((S,) + np.shape(v)[2:])) for k, v in samples.items()}
-    if method == "nuts":
-        return flat
+    flat = jax.device_put({k: np.asarray(v).reshape((S,) + np.shape(v)[2:]) for k, v in samples.items()})
     st, array_parts = split_static(parts)
-    fixed = {n: jnp.asarray(v) for n, v in st.fixed}
-
-    def one(x, parts):
-        p, k = x
-        p = {**fixed, **p}
-        if "scatter" not in p:
-            p["scatter"] = jnp.asarray(settings.prior("scatter").get("value"))
-        ov = offset_var_from_params(parts, settings, p)
-        mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
-        sn_var = (p["sn_scatter"] ** 2 if "sn_scatter" in p else
-                  jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2) if parts.lin.sn_slot.shape[0] else 0.0
-        loc, glob = conditional_draw(k, st, parts.lin, ov, mu_par, sn_var)
-        out = {"mu": loc[:, 0], **{n: v for n, v in unpack(st, glob).items() if n not in fixed}}
-        if st.n_local == 2 and parts.bias_slots.shape[0]:
-            out["photometric_bias"] = loc[parts.bias_slots, 1]
-        return out
-
-    keys = jax.random.split(key, S)
-    drawn = jax.jit(lambda xs, ap: jax.lax.map(lambda x: one(x, with_structure(st, ap)), xs))((flat, keys),
-                                                                                             array_parts)
-    return {**flat, **drawn}
-
-
-def _assemble(parts, layout, settings, sampler, output, method, samples, extra, key):
-    import arviz as az
-    import jax
-    import jax.numpy as jnp
-    import xarray as xr
-
-    from . import __version__
-    from .model import pointwise
-
-    chains, draws = (sampler.chains, sampler.draws) if not samples else np.shape(next(iter(samples.values())))[:2]
-    k1, k2 = jax.random.split(key)
-    flat = _complete_draws(parts, settings, method, samples, chains, draws, k1)
-    S = chains * draws
-    coords = _coords(layout)
-    dims = dict(DIMS, mu=mu_dim(layout))
     n_stars, n_gal = parts.lin.y0.shape[0], len(layout.galaxies)
-
-    mode = output.log_likelihood
-    if mode == "auto":
-        mode = "star" if n_stars * S <= AUTO_STAR_LIMIT else "galaxy"
-    fixed = {n: jnp.asarray(v) for n, v in parts.structure.fixed}
+    fixed = {n: jnp.asarray(v) for n, v in st.fixed}
     for name in ("scatter", "sn_scatter", "outlier_fraction", "parallax_offset"):
         if name not in flat and settings.prior(name).dist == "fixed":
             fixed[name] = jnp.asarray(settings.prior(name).get("value"))
+    linear = method != "nuts"
+    if linear:
+        rng = np.random.default_rng([seed, 1])  # the draws are a function of the seed alone
+        normals = jax.device_put((rng.standard_normal((S, st.p)), rng.standard_normal((S, st.n_galaxies, st.n_local))))
+    else:
+        normals = None
 
-    from .model import split_static, with_structure
-
-    st, array_parts = split_static(parts)
-
-    def body(carry, p, parts):
+    def body(carry, x, parts):
+        p, z = x
         p = {**fixed, **p}
-        out = pointwise(parts, settings, p)
+        drawn = _linear_draw(parts, settings, p, *z) if linear else {}
+        out = pointwise(parts, settings, {**p, **drawn})
         q_sum, e_sum, r_sum = carry
         carry = (q_sum + out["outlier_prob"], e_sum + out["ebv"], r_sum + out["star_resid"])
         ll = out["cepheids"]
@@ -499,16 +489,33 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
         if parts.parallax.shape[0]:
             from .terms.parallax import parallax_log_likelihood
 
-            ys["parallaxes"] = parallax_log_likelihood(parts.parallax, parts.parallax_err, jnp.exp(p["log_distance_pc"]),
-                                                       p["parallax_offset"])
-        return carry, ys
+            ys["parallaxes"] = parallax_log_likelihood(parts.parallax, parts.parallax_err,
+                                                       jnp.exp(p["log_distance_pc"]), p["parallax_offset"])
+        return carry, (drawn, ys)
 
     zero = (jnp.zeros(n_stars), jnp.zeros(n_stars), jnp.zeros(n_stars))
-    model_keys = [k_ for k_ in flat]
-    carry, ys = jax.jit(lambda xs, ap: jax.lax.scan(lambda c, p: body(c, p, with_structure(st, ap)), zero, xs))(
-        {k_: flat[k_] for k_ in model_keys}, array_parts)
+    carry, (drawn, ys) = jax.jit(lambda xs, ap: jax.lax.scan(lambda c, x: body(c, x, with_structure(st, ap)),
+                                                              zero, xs))((flat, normals), array_parts)
     derived = {"outlier_prob": np.asarray(carry[0]) / S, "ebv": np.asarray(carry[1]) / S,
                "residual": np.asarray(carry[2]) / S}
+    return {**flat, **drawn}, derived, ys
+
+
+def _assemble(parts, layout, settings, sampler, output, method, samples, extra):
+    import arviz as az
+    import xarray as xr
+
+    from . import __version__
+
+    chains, draws = (sampler.chains, sampler.draws) if not samples else np.shape(next(iter(samples.values())))[:2]
+    S = chains * draws
+    coords = _coords(layout)
+    dims = dict(DIMS, mu=mu_dim(layout))
+    n_stars = parts.lin.y0.shape[0]
+    mode = output.log_likelihood
+    if mode == "auto":
+        mode = "star" if n_stars * S <= AUTO_STAR_LIMIT else "galaxy"
+    flat, derived, ys = _draws_and_pass(parts, layout, settings, method, mode, samples, chains, draws, sampler.seed)
 
     def _da(x, dim=None):
         x = np.asarray(x).reshape((chains, draws) + np.shape(x)[1:])

@@ -66,8 +66,8 @@ import numpy as np
 from .config import ModelSettings
 
 __all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal",
-           "conditional_mean", "conditional_draw", "residuals", "unpack", "pack", "LINEAR_PARAMETERS",
-           "HUBBLE_TILT"]
+           "conditional_mean", "conditional_draw", "conditional_draw_given", "residuals", "unpack", "pack",
+           "LINEAR_PARAMETERS", "HUBBLE_TILT"]
 
 #: Global parameters that enter linearly (output names); ``h0`` enters as a = 5 log10 H0.
 LINEAR_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "sn_abs_mag", "h0")
@@ -520,22 +520,29 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
 
     Globals first, :math:`\theta_\mathrm{glob} = \hat\theta + L_S^{-T} z` with :math:`S = L_S L_S^T`, then each
     galaxy given them, :math:`\theta_{\mathrm{loc},i} = A_{ii}^{-1}(b_i - A_{ih}\theta_\mathrm{glob}) + L_i^{-T} z_i`.
+    The standard normals come from ``key``; :func:`conditional_draw_given` takes them as arguments.
     """
     import jax
-    import jax.numpy as jnp
+
+    k1, k2 = jax.random.split(key)
+    z_global = jax.random.normal(k1, (structure.p,))
+    z_local = jax.random.normal(k2, (structure.n_galaxies, structure.n_local))
+    return conditional_draw_given(z_global, z_local, structure, lin, offset_var, mu_par, sn_extra_var)
+
+
+def conditional_draw_given(z_global, z_local, structure: Structure, lin: LinearArrays, offset_var, mu_par=None,
+                           sn_extra_var=0.0):
+    r""":func:`conditional_draw` for given standard normals ``z_global`` (p,) and ``z_local`` (G, L): the draw
+    is a deterministic function of them (so a whole run's normals can come from one seeded generator)."""
     from jax.scipy.linalg import solve_triangular
 
     eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
     sol = _solve(eq)
-    k1, k2 = jax.random.split(key)
-    p = sol.mean_h.shape[0]
-    if p:
-        z = jax.random.normal(k1, (p,))
-        h = sol.mean_h + solve_triangular(sol.chol_s.T, z, lower=False)
+    if sol.mean_h.shape[0]:
+        h = sol.mean_h + solve_triangular(sol.chol_s.T, z_global, lower=False)
     else:
         h = sol.mean_h
-    zl = jax.random.normal(k2, eq.bl.shape)
-    noise = _small_solve(sol.chol_l, zl[..., None], transpose=True)[..., 0]
+    noise = _small_solve(sol.chol_l, z_local[..., None], transpose=True)[..., 0]
     loc = sol.inv_l_bl - sol.inv_l_lh @ h + noise
     return loc, h
 
