@@ -96,7 +96,9 @@ def write_outputs(result, out_dir, *, config=None, force=False, argv=None, plots
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
     swapped = False
     try:
-        result.idata.to_netcdf(str(tmp / "posterior.nc"))
+        # Uncompressed: draws and log-likelihoods are nearly incompressible (zlib saved 8% of the size of a 3,500-star
+        # posterior.nc at ~1 s of CPU time, most of a fit's writing time).
+        result.idata.to_netcdf(str(tmp / "posterior.nc"), compress=False)
         result.distances.write(tmp / "distances.ecsv", format="ascii.ecsv")
         result.parameters.write(tmp / "parameters.ecsv", format="ascii.ecsv")
         if getattr(result, "stars", None) is not None:

@@ -296,6 +296,31 @@ def _say(msg: str) -> None:
     print(msg, file=sys.stderr, flush=True)
 
 
+#: Modules a fit needs only after sampling (ArviZ with xarray, pandas, SciPy and matplotlib: ~2 s of CPU; the
+#: netCDF writer and what xarray's writer asks for), imported on a second thread while this one compiles.
+_LATER_MODULES = ("arviz", "h5netcdf", "dask.distributed")
+
+
+def _import_in_background(names=_LATER_MODULES) -> None:
+    """Import ``names`` on a daemon thread. XLA compiles with the GIL released, so on a second core the imports
+    cost no wall time; a module this thread asks for meanwhile waits for that thread's import (the import
+    system's per-module locks), and a failed import is left for the main thread to raise."""
+    import importlib
+    import threading
+
+    missing = [n for n in names if n not in sys.modules]
+
+    def run():
+        for name in missing:
+            try:
+                importlib.import_module(name)
+            except Exception:  # noqa: BLE001 - the main thread's own import reports it
+                pass
+
+    if missing:
+        threading.Thread(target=run, name="ladder-imports", daemon=True).start()
+
+
 def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sampler: SamplerSettings,
                 limits=None, output: OutputSettings = OutputSettings(), say=_say) -> SampleRun:
     """Sample the posterior by the method :func:`choose_method` picks; a pure function of its inputs (the seed
@@ -309,12 +334,16 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
     method, reason = choose_method(settings, layout, sampler)
     start = time.perf_counter()
     parts = model_parts(arrays, layout, settings)
+    _import_in_background()
     notes = [f"method {method}: {reason}"]
+    program = None
     grid_names = _grid_hyperparameters(settings, layout) if method == "marginal" and sampler.method != "nuts" else None
     if method == "gls":
         samples, extra, chain_method = {}, None, "vectorized"
     elif grid_names:
-        samples = _grid_draws(parts, settings, layout, sampler, grid_names)
+        program = _Program(parts, layout, settings, method,
+                           _ll_mode(output, parts.lin.y0.shape[0], sampler.chains * sampler.draws), grid_names)
+        samples = _grid_draws(program, sampler, grid_names)
         extra, chain_method = None, "vectorized"
         notes.append(f"hyperparameters {', '.join(grid_names)} drawn independently from their exact marginal "
                      "posterior on a grid (no Markov chain): every draw independent")
@@ -323,7 +352,7 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
         init = initial_values(parts, layout, settings, method)  # a Markov chain needs a starting point
         samples, extra, chain_method, more = _run_mcmc(model, parts, layout, settings, sampler, init, limits, say)
         notes += more
-    idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra)
+    idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra, program)
     notes += bound_notes
     wall = time.perf_counter() - start
     return SampleRun(idata, derived, wall, chain_method, method, notes, parts)
@@ -332,7 +361,6 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
 #: Hyperparameters the marginal method draws from a grid instead of NUTS, when they are all it has (1 or 2).
 _GRID_SITES = ("scatter", "sn_scatter")
 _GRID_POINTS = {1: 1201, 2: 161}  # per axis, over +-8 posterior sd: steps of 0.013 sd (1-D) and 0.1 sd (2-D)
-_GRID_BATCH = 128  # points per call of the compiled log posterior (every scan pads to a multiple of it)
 
 
 def _grid_hyperparameters(settings: ModelSettings, layout: Layout) -> list[str] | None:
@@ -343,40 +371,13 @@ def _grid_hyperparameters(settings: ModelSettings, layout: Layout) -> list[str] 
     return names or None
 
 
-def _grid_draws(parts, settings, layout, sampler, names) -> dict:
+def _grid_draws(program: "_Program", sampler, names) -> dict:
     r"""Independent draws of 1 or 2 positive hyperparameters from their exact marginal posterior
     :math:`p(\phi \mid y) \propto p(\phi)\,p(y \mid \phi)` (:func:`ladder.structure.log_marginal`), tabulated in
     :math:`\ln\phi` on a grid spanning +-8 posterior sd around the mode (found by a coarse scan, then a fine one),
-    drawn by inverse CDF within cells (piecewise-linear in 1-D, uniform within a cell in 2-D). Returns the draws
-    by name, shaped (chains, draws) like a sampler's."""
-    import jax
-    import jax.numpy as jnp
-
-    from .model import split_static, with_structure
-    from .priors import prior_distribution
-    from .structure import log_marginal
-
-    st, array_parts = split_static(parts)
-    priors = [prior_distribution(settings.prior(n)) for n in names]
-    n = parts.lin.y0.shape[0]
-
-    def logpost(x, ap):  # x: ln phi, (len(names),)
-        phi = jnp.exp(x)
-        lp = sum(d.log_prob(phi[i]) for i, d in enumerate(priors)) + jnp.sum(x)  # |d phi / d ln phi| = phi
-        sn_var = phi[1] ** 2 if len(names) == 2 else (
-            jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2 if parts.lin.sn_slot.shape[0] else 0.0)
-        lm = log_marginal(st, with_structure(st, ap).lin, jnp.full(n, phi[0] ** 2), None, sn_var)
-        return jnp.where(jnp.isfinite(lp), lp + lm, -jnp.inf)
-
-    # One compiled program of a fixed batch shape for every scan (a new shape would compile it again).
-    batch = jax.jit(lambda xs, ap: jax.lax.map(lambda x: logpost(x, ap), xs))
-
-    def table(mesh):
-        m = mesh.shape[0]
-        xs = np.concatenate([mesh, np.repeat(mesh[-1:], (-m) % _GRID_BATCH, axis=0)])
-        return np.concatenate([np.asarray(batch(xs[i:i + _GRID_BATCH], array_parts))
-                               for i in range(0, xs.shape[0], _GRID_BATCH)])[:m]
-
+    drawn by inverse CDF over the cells, uniform within a cell. Returns the draws by name, shaped (chains, draws)
+    like a sampler's."""
+    table = program.log_posterior  # (M, k) ln phi -> (M,)
     k = len(names)
     lo, hi = np.full(k, np.log(1e-4)), np.full(k, np.log(5.0))
     for points in (41, 61):  # coarse scans: locate the mode and the posterior width
@@ -424,84 +425,151 @@ def _grid_draws(parts, settings, layout, sampler, names) -> dict:
     return {nm: np.exp(x[:, i]).reshape(sampler.chains, sampler.draws) for i, nm in enumerate(names)}
 
 
-def _linear_draw(parts, settings, p: dict, z_global, z_local) -> dict:
-    """One exact draw of the linear block at the hyperparameters in ``p`` (output names, fixed ones included),
-    from the standard normals ``z_global`` (p,), ``z_local`` (G, L). Returns the linear parameters by name."""
-    import jax.numpy as jnp
-
-    from .model import mu_parallax, offset_var_from_params
-    from .structure import conditional_draw_given, unpack
-
-    st = parts.structure
-    ov = offset_var_from_params(parts, settings, p)
-    mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
-    sn_var = (p["sn_scatter"] ** 2 if "sn_scatter" in p else
-              jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2) if parts.lin.sn_slot.shape[0] else 0.0
-    loc, glob = conditional_draw_given(z_global, z_local, st, parts.lin, ov, mu_par, sn_var)
-    fixed = dict(st.fixed)
-    out = {"mu": loc[:, 0], **{n: v for n, v in unpack(st, glob).items() if n not in fixed}}
-    if st.n_local == 2 and parts.bias_slots.shape[0]:
-        out["photometric_bias"] = loc[parts.bias_slots, 1]
-    return out
+#: Points per call of the fit's compiled program (grid points or draws): one compiled shape for every call.
+_BATCH = 128
 
 
-def _draws_and_pass(parts, layout, settings, method, mode, samples, chains, draws, seed):
-    """Every posterior draw with every output parameter, and one pass over the draws, in one compiled program.
+def _ll_mode(output: OutputSettings, n_stars: int, n_draws: int) -> str:
+    """``[output] log_likelihood`` resolved: "star", "galaxy" or "none"."""
+    mode = output.log_likelihood
+    if mode == "auto":
+        mode = "star" if n_stars * n_draws <= AUTO_STAR_LIMIT else "galaxy"
+    return mode
 
-    For ``marginal`` and ``gls`` each draw gets its exact draw of the linear block (standard normals from
-    ``numpy.random.default_rng([seed, 1])``); then, per draw, the pointwise log-likelihoods (per star, per
-    galaxy or none, by ``mode``) and running sums of the per-star outlier probability, E(B-V) and residual.
-    Returns ``(draws by output name, flat (S, ...) numpy arrays; per-star means; pointwise values)``.
+
+class _Program:
+    """The one compiled program of a fit outside the Markov chain: per point, the exact marginal likelihood of the
+    hyperparameters and one exact draw of the linear block from one factorisation
+    (:func:`ladder.structure.marginal_and_draw`; ``marginal`` and ``gls``), then, unless only the grid's log
+    posterior is asked for, the pass over the draws: pointwise log-likelihoods (per star, per galaxy or none) and
+    running sums of the per-star outlier probability, E(B-V) and residual (:func:`ladder.model.pointwise`).
+
+    Every call takes :data:`_BATCH` points (padded), so the grid's scans and the draws share one compilation; the
+    data are traced arguments, not constants.
     """
-    import jax
-    import jax.numpy as jnp
 
-    from .model import pointwise, split_static, with_structure
+    def __init__(self, parts, layout, settings, method: str, mode: str, grid_names=None):
+        import jax
+        import jax.numpy as jnp
 
-    S = chains * draws
-    flat = jax.device_put({k: np.asarray(v).reshape((S,) + np.shape(v)[2:]) for k, v in samples.items()})
-    st, array_parts = split_static(parts)
-    n_stars, n_gal = parts.lin.y0.shape[0], len(layout.galaxies)
-    fixed = {n: jnp.asarray(v) for n, v in st.fixed}
-    for name in ("scatter", "sn_scatter", "outlier_fraction", "parallax_offset"):
-        if name not in flat and settings.prior(name).dist == "fixed":
-            fixed[name] = jnp.asarray(settings.prior(name).get("value"))
-    linear = method != "nuts"
-    if linear:
-        rng = np.random.default_rng([seed, 1])  # the draws are a function of the seed alone
-        normals = jax.device_put((rng.standard_normal((S, st.p)), rng.standard_normal((S, st.n_galaxies, st.n_local))))
-    else:
-        normals = None
+        from .model import pointwise, split_static, with_structure
 
-    def body(carry, x, parts):
-        p, z = x
-        p = {**fixed, **p}
-        drawn = _linear_draw(parts, settings, p, *z) if linear else {}
-        out = pointwise(parts, settings, {**p, **drawn})
-        q_sum, e_sum, r_sum = carry
-        carry = (q_sum + out["outlier_prob"], e_sum + out["ebv"], r_sum + out["star_resid"])
-        ll = out["cepheids"]
-        if mode == "galaxy":
-            ll = jax.ops.segment_sum(ll, parts.star_galaxy, num_segments=n_gal)
-        ys = {"anchors": out["anchors"], "supernovae": out["supernovae"]}
-        if mode != "none":
-            ys["cepheids"] = ll.astype(jnp.float32)
-        if parts.parallax.shape[0]:
-            from .terms.parallax import parallax_log_likelihood
+        self.parts, self.settings, self.grid_names = parts, settings, grid_names
+        self.linear = method != "nuts"
+        st, self.array_parts = split_static(parts)
+        n_stars, n_gal = parts.lin.y0.shape[0], len(layout.galaxies)
 
-            ys["parallaxes"] = parallax_log_likelihood(parts.parallax, parts.parallax_err,
-                                                       jnp.exp(p["log_distance_pc"]), p["parallax_offset"])
-        return carry, (drawn, ys)
+        def run(hyper, normals, valid, full, ap):
+            parts = with_structure(st, ap)
+            fixed = {n: jnp.asarray(v) for n, v in st.fixed}
+            for name in ("scatter", "sn_scatter", "outlier_fraction", "parallax_offset"):
+                if name not in hyper and settings.prior(name).dist == "fixed":
+                    fixed[name] = jnp.asarray(settings.prior(name).get("value"))
 
-    zero = (jnp.zeros(n_stars), jnp.zeros(n_stars), jnp.zeros(n_stars))
-    carry, (drawn, ys) = jax.jit(lambda xs, ap: jax.lax.scan(lambda c, x: body(c, x, with_structure(st, ap)),
-                                                              zero, xs))((flat, normals), array_parts)
-    derived = {"outlier_prob": np.asarray(carry[0]) / S, "ebv": np.asarray(carry[1]) / S,
-               "residual": np.asarray(carry[2]) / S}
-    return {**flat, **drawn}, derived, ys
+            def one(carry, x):
+                p, z, ok = x
+                p = {**fixed, **p}
+                lp, drawn = (self._linear(parts, p, *z) if self.linear else (jnp.zeros(()), {}))
+                if grid_names:
+                    lp = lp + self._grid_prior(p)
+
+                def pass_(_):
+                    out = pointwise(parts, settings, {**p, **drawn})
+                    ll = out["cepheids"]
+                    if mode == "galaxy":
+                        ll = jax.ops.segment_sum(ll, parts.star_galaxy, num_segments=n_gal)
+                    ys = {"anchors": out["anchors"], "supernovae": out["supernovae"]}
+                    if mode != "none":
+                        ys["cepheids"] = ll.astype(jnp.float32)
+                    if parts.parallax.shape[0]:
+                        from .terms.parallax import parallax_log_likelihood
+
+                        ys["parallaxes"] = parallax_log_likelihood(parts.parallax, parts.parallax_err,
+                                                                   jnp.exp(p["log_distance_pc"]), p["parallax_offset"])
+                    return (out["outlier_prob"], out["ebv"], out["star_resid"]), ys
+
+                shapes = jax.eval_shape(pass_, None)
+                inc, ys = jax.lax.cond(full, pass_, lambda _: jax.tree.map(lambda a: jnp.zeros(a.shape, a.dtype),
+                                                                           shapes), None)
+                carry = tuple(c + jnp.where(ok, i, 0.0) for c, i in zip(carry, inc))
+                return carry, (lp, drawn, ys)
+
+            zero = (jnp.zeros(n_stars), jnp.zeros(n_stars), jnp.zeros(n_stars))
+            return jax.lax.scan(one, zero, (hyper, normals, valid))
+
+        self._run = jax.jit(run)
+
+    def _linear(self, parts, p, z_global, z_local):
+        import jax.numpy as jnp
+
+        from .model import mu_parallax, offset_var_from_params
+        from .structure import marginal_and_draw, unpack
+
+        st, settings = parts.structure, self.settings
+        ov = offset_var_from_params(parts, settings, p)
+        mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
+        sn_var = (p["sn_scatter"] ** 2 if "sn_scatter" in p else
+                  jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2) if parts.lin.sn_slot.shape[0] else 0.0
+        lm, loc, glob = marginal_and_draw(z_global, z_local, st, parts.lin, ov, mu_par, sn_var)
+        fixed = dict(st.fixed)
+        out = {"mu": loc[:, 0], **{n: v for n, v in unpack(st, glob).items() if n not in fixed}}
+        if st.n_local == 2 and parts.bias_slots.shape[0]:
+            out["photometric_bias"] = loc[parts.bias_slots, 1]
+        return lm, out
+
+    def _grid_prior(self, p):
+        """ln p(phi) + ln |d phi / d ln phi| of the grid's hyperparameters (the grid is in ln phi)."""
+        import jax.numpy as jnp
+
+        from .priors import prior_distribution
+
+        lp = 0.0
+        for name in self.grid_names:
+            lp = lp + prior_distribution(self.settings.prior(name)).log_prob(p[name]) + jnp.log(p[name])
+        return jnp.where(jnp.isfinite(lp), lp, -jnp.inf)
+
+    def _normals(self, rng, m):
+        st = self.parts.structure
+        if not self.linear:
+            return None
+        return rng.standard_normal((m, st.p)), rng.standard_normal((m, st.n_galaxies, st.n_local))
+
+    def _calls(self, hyper: dict, normals, m: int, full: bool):
+        """Run the program over ``m`` points in batches of :data:`_BATCH`; yields (carry, outputs, n valid)."""
+        for i in range(0, m, _BATCH):
+            k = min(_BATCH, m - i)
+            pad = lambda x: np.concatenate([x[i:i + k], np.repeat(x[i + k - 1:i + k], _BATCH - k, axis=0)])  # noqa
+            valid = np.arange(_BATCH) < k
+            yield self._run({n: pad(v) for n, v in hyper.items()},
+                            None if normals is None else tuple(pad(z) for z in normals), valid, full,
+                            self.array_parts), k
+
+    def log_posterior(self, mesh):
+        """The grid's log posterior at points ``mesh`` (M, k) in ln phi (the order of ``grid_names``)."""
+        hyper = {n: np.exp(mesh[:, i]) for i, n in enumerate(self.grid_names)}
+        st, m = self.parts.structure, mesh.shape[0]
+        normals = (np.broadcast_to(0.0, (m, st.p)), np.broadcast_to(0.0, (m, st.n_galaxies, st.n_local)))
+        out = [np.asarray(o[1][0])[:k] for o, k in self._calls(hyper, normals, mesh.shape[0], False)]
+        return np.concatenate(out)
+
+    def draws(self, samples: dict, chains: int, draws: int, seed: int):
+        """Every posterior draw with every output parameter (for ``marginal`` and ``gls`` each gets its exact draw
+        of the linear block; standard normals from ``numpy.random.default_rng([seed, 1])``), and the pass over
+        them. Returns ``(flat (S, ...) arrays by output name, per-star means, pointwise values)``."""
+        S = chains * draws
+        flat = {k: np.asarray(v).reshape((S,) + np.shape(v)[2:]) for k, v in samples.items()}
+        normals = self._normals(np.random.default_rng([seed, 1]), S)  # the draws are a function of the seed alone
+        sums, drawn, ys = None, [], []
+        for (carry, (_, d, y)), k in self._calls(flat, normals, S, True):
+            sums = [np.asarray(c) for c in carry] if sums is None else [a + np.asarray(c) for a, c in zip(sums, carry)]
+            drawn.append({n: np.asarray(v)[:k] for n, v in d.items()})
+            ys.append({n: np.asarray(v)[:k] for n, v in y.items()})
+        cat = lambda parts: {n: np.concatenate([q[n] for q in parts]) for n in parts[0]}  # noqa: E731
+        derived = {"outlier_prob": sums[0] / S, "ebv": sums[1] / S, "residual": sums[2] / S}
+        return {**flat, **cat(drawn)}, derived, cat(ys)
 
 
-def _assemble(parts, layout, settings, sampler, output, method, samples, extra):
+def _assemble(parts, layout, settings, sampler, output, method, samples, extra, program=None):
     import arviz as az
     import xarray as xr
 
@@ -511,11 +579,10 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra):
     S = chains * draws
     coords = _coords(layout)
     dims = dict(DIMS, mu=mu_dim(layout))
-    n_stars = parts.lin.y0.shape[0]
-    mode = output.log_likelihood
-    if mode == "auto":
-        mode = "star" if n_stars * S <= AUTO_STAR_LIMIT else "galaxy"
-    flat, derived, ys = _draws_and_pass(parts, layout, settings, method, mode, samples, chains, draws, sampler.seed)
+    mode = _ll_mode(output, parts.lin.y0.shape[0], S)
+    if program is None:
+        program = _Program(parts, layout, settings, method, mode)
+    flat, derived, ys = program.draws(samples, chains, draws, sampler.seed)
 
     def _da(x, dim=None):
         x = np.asarray(x).reshape((chains, draws) + np.shape(x)[1:])

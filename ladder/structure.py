@@ -29,8 +29,9 @@ Hubble-flow SNe :math:`m_k - \mu(z_k; H_0{=}1) = M_\mathrm{SN} - a + \epsilon` (
 :math:`\mu(z; H_0) = \mu(z; 1) - 5\log_{10} H_0`).
 
 Every consumer derives from this one definition: the numpyro models (:mod:`ladder.model`), the exact
-marginal and closed-form solvers (:func:`normal_equations`, :func:`log_marginal`, :func:`conditional_draw`),
-initial values and clipping (:func:`conditional_mean`), residuals and figures (:func:`residuals`).
+marginal and closed-form solvers (:func:`normal_equations`, :func:`log_marginal`, :func:`conditional_draw`,
+:func:`marginal_and_draw`), initial values and clipping (:func:`conditional_mean`), residuals and figures
+(:func:`residuals`).
 
 **The normal equations** have arrow structure: one small local block per galaxy plus :math:`p` global
 columns. They are accumulated star by star with per-galaxy segment sums (no dense design matrix), and the
@@ -66,7 +67,7 @@ import numpy as np
 from .config import ModelSettings
 
 __all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal",
-           "conditional_mean", "conditional_draw", "conditional_draw_given", "residuals", "unpack", "pack",
+           "conditional_mean", "conditional_draw", "marginal_and_draw", "residuals", "unpack", "pack",
            "LINEAR_PARAMETERS", "HUBBLE_TILT"]
 
 #: Global parameters that enter linearly (output names); ``h0`` enters as a = 5 log10 H0.
@@ -484,10 +485,13 @@ def _solve(eq: NormalEquations) -> _Solved:
 
 def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
     r""":math:`\ln p(y \mid \phi)` with the linear block integrated out exactly (see the module docstring)."""
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
+    return _log_marginal(lin, eq, _solve(eq))
+
+
+def _log_marginal(lin: LinearArrays, eq: NormalEquations, sol: _Solved):
     import jax.numpy as jnp
 
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
-    sol = _solve(eq)
     proper_l = lin.prior_prec_local > 0
     proper = lin.prior_prec > 0
     prior_quad = jnp.sum(lin.prior_prec_local * lin.prior_mean_local**2) + jnp.sum(lin.prior_prec * lin.prior_mean**2)
@@ -520,20 +524,22 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
 
     Globals first, :math:`\theta_\mathrm{glob} = \hat\theta + L_S^{-T} z` with :math:`S = L_S L_S^T`, then each
     galaxy given them, :math:`\theta_{\mathrm{loc},i} = A_{ii}^{-1}(b_i - A_{ih}\theta_\mathrm{glob}) + L_i^{-T} z_i`.
-    The standard normals come from ``key``; :func:`conditional_draw_given` takes them as arguments.
+    The standard normals come from ``key``; :func:`marginal_and_draw` takes them as arguments.
     """
     import jax
 
     k1, k2 = jax.random.split(key)
     z_global = jax.random.normal(k1, (structure.p,))
     z_local = jax.random.normal(k2, (structure.n_galaxies, structure.n_local))
-    return conditional_draw_given(z_global, z_local, structure, lin, offset_var, mu_par, sn_extra_var)
+    _, loc, glob = marginal_and_draw(z_global, z_local, structure, lin, offset_var, mu_par, sn_extra_var)
+    return loc, glob
 
 
-def conditional_draw_given(z_global, z_local, structure: Structure, lin: LinearArrays, offset_var, mu_par=None,
-                           sn_extra_var=0.0):
-    r""":func:`conditional_draw` for given standard normals ``z_global`` (p,) and ``z_local`` (G, L): the draw
-    is a deterministic function of them (so a whole run's normals can come from one seeded generator)."""
+def marginal_and_draw(z_global, z_local, structure: Structure, lin: LinearArrays, offset_var, mu_par=None,
+                      sn_extra_var=0.0):
+    r""":func:`log_marginal` and the :func:`conditional_draw` for given standard normals ``z_global`` (p,) and
+    ``z_local`` (G, L), from one factorisation: ``(ln p(y | phi), theta_local, theta_global)``. The draw is a
+    deterministic function of the normals (so a whole run's normals can come from one seeded generator)."""
     from jax.scipy.linalg import solve_triangular
 
     eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
@@ -544,7 +550,7 @@ def conditional_draw_given(z_global, z_local, structure: Structure, lin: LinearA
         h = sol.mean_h
     noise = _small_solve(sol.chol_l, z_local[..., None], transpose=True)[..., 0]
     loc = sol.inv_l_bl - sol.inv_l_lh @ h + noise
-    return loc, h
+    return _log_marginal(lin, eq, sol), loc, h
 
 
 def residuals(structure: Structure, lin: LinearArrays, theta_local, theta_global, mu_par=None):
