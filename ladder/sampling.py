@@ -16,6 +16,7 @@ per-star quantity is stored per draw.
 
 from __future__ import annotations
 
+import functools
 import sys
 import time
 from dataclasses import dataclass, field
@@ -207,17 +208,21 @@ def _dense_block(init: dict) -> list[tuple[str, ...]] | bool:
 
 
 def _chain_method(requested: str, chains: int) -> str:
+    """``parallel`` when there are at least two CPU devices and the chains fill them evenly (more chains than
+    devices run in rounds, e.g. 4 chains on 2 cores as 2 x 2), else ``sequential``; or what the run file asks."""
     from ._jax import cpu_devices
 
     if requested != "auto":
         return requested
-    return "parallel" if chains > 1 and cpu_devices() >= chains else "sequential"
+    devices = cpu_devices()
+    return "parallel" if chains > 1 and devices > 1 and chains % min(devices, chains) == 0 else "sequential"
 
 
 def _pmap_with_data(fn):
     """Parallel chains with the data as an argument of the compiled program (``in_axes=None``), not as constants
     closed over: numpyro's own ``parallel`` method binds the model arguments into the mapped function, which
-    makes XLA fold a large catalogue into the program (minutes of compilation at 10^5 stars)."""
+    makes XLA fold a large catalogue into the program (minutes of compilation at 10^5 stars). With more chains
+    than devices, each device runs its share of the chains one after another (``lax.map``), all devices at once."""
     import jax
 
     kw = dict(fn.keywords)
@@ -226,7 +231,16 @@ def _pmap_with_data(fn):
     def run(map_args, data):
         return fn.func(map_args, args=data, **kw)
 
-    return lambda map_args: jax.pmap(run, in_axes=(0, None))(map_args, args)
+    def mapped(map_args):
+        n = jax.tree.leaves(map_args)[0].shape[0]
+        d = min(jax.local_device_count(), n)
+        if n == d:
+            return jax.pmap(run, in_axes=(0, None))(map_args, args)
+        split = jax.tree.map(lambda x: x.reshape((d, n // d) + x.shape[1:]), map_args)
+        out = jax.pmap(lambda m, data: jax.lax.map(lambda a: run(a, data), m), in_axes=(0, None))(split, args)
+        return jax.tree.map(lambda x: x.reshape((n,) + x.shape[2:]), out)
+
+    return mapped
 
 
 def _quick_gate(samples: dict, limits) -> list[str]:
@@ -437,6 +451,91 @@ def _ll_mode(output: OutputSettings, n_stars: int, n_draws: int) -> str:
     return mode
 
 
+@functools.lru_cache(maxsize=8)
+def _compiled_program(st, settings, linear: bool, mode: str, grid_names: tuple, n_gal: int):
+    """The jit-compiled function behind :class:`_Program`, one per static description: a later fit in the same
+    process with the same structure, settings and array shapes (a sweep, a calibration by simulation, the test
+    suite) reuses its compilation."""
+    import jax
+    import jax.numpy as jnp
+
+    from .model import pointwise, with_structure
+
+    def run(hyper, normals, valid, full, ap):
+        parts = with_structure(st, ap)
+        n_stars = parts.lin.y0.shape[0]
+        fixed = {n: jnp.asarray(v) for n, v in st.fixed}
+        for name in ("scatter", "sn_scatter", "outlier_fraction", "parallax_offset"):
+            if name not in hyper and settings.prior(name).dist == "fixed":
+                fixed[name] = jnp.asarray(settings.prior(name).get("value"))
+
+        def one(carry, x):
+            p, z, ok = x
+            p = {**fixed, **p}
+            lp, drawn = _linear_block(parts, settings, p, *z) if linear else (jnp.zeros(()), {})
+            if grid_names:
+                lp = lp + _grid_prior(settings, grid_names, p)
+
+            def pass_(_):
+                out = pointwise(parts, settings, {**p, **drawn})
+                ll = out["cepheids"]
+                if mode == "galaxy":
+                    ll = jax.ops.segment_sum(ll, parts.star_galaxy, num_segments=n_gal)
+                ys = {"anchors": out["anchors"], "supernovae": out["supernovae"]}
+                if mode != "none":
+                    ys["cepheids"] = ll.astype(jnp.float32)
+                if parts.parallax.shape[0]:
+                    from .terms.parallax import parallax_log_likelihood
+
+                    ys["parallaxes"] = parallax_log_likelihood(parts.parallax, parts.parallax_err,
+                                                               jnp.exp(p["log_distance_pc"]), p["parallax_offset"])
+                return (out["outlier_prob"], out["ebv"], out["star_resid"]), ys
+
+            shapes = jax.eval_shape(pass_, None)
+            inc, ys = jax.lax.cond(full, pass_, lambda _: jax.tree.map(lambda a: jnp.zeros(a.shape, a.dtype), shapes),
+                                   None)
+            carry = tuple(c + jnp.where(ok, i, 0.0) for c, i in zip(carry, inc))
+            return carry, (lp, drawn, ys)
+
+        zero = (jnp.zeros(n_stars), jnp.zeros(n_stars), jnp.zeros(n_stars))
+        return jax.lax.scan(one, zero, (hyper, normals, valid))
+
+    return jax.jit(run)
+
+
+def _linear_block(parts, settings, p: dict, z_global, z_local):
+    """At the hyperparameters ``p`` (output names, fixed ones included): ``(ln p(y | phi), linear parameters by
+    name)``, the parameters one exact draw from the standard normals ``z_global`` (p,), ``z_local`` (G, L)."""
+    import jax.numpy as jnp
+
+    from .model import mu_parallax, offset_var_from_params
+    from .structure import marginal_and_draw, unpack
+
+    st = parts.structure
+    ov = offset_var_from_params(parts, settings, p)
+    mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
+    sn_var = (p["sn_scatter"] ** 2 if "sn_scatter" in p else
+              jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2) if parts.lin.sn_slot.shape[0] else 0.0
+    lm, loc, glob = marginal_and_draw(z_global, z_local, st, parts.lin, ov, mu_par, sn_var)
+    fixed = dict(st.fixed)
+    out = {"mu": loc[:, 0], **{n: v for n, v in unpack(st, glob).items() if n not in fixed}}
+    if st.n_local == 2 and parts.bias_slots.shape[0]:
+        out["photometric_bias"] = loc[parts.bias_slots, 1]
+    return lm, out
+
+
+def _grid_prior(settings, names, p):
+    """ln p(phi) + ln |d phi / d ln phi| of the grid's hyperparameters (the grid is in ln phi)."""
+    import jax.numpy as jnp
+
+    from .priors import prior_distribution
+
+    lp = 0.0
+    for name in names:
+        lp = lp + prior_distribution(settings.prior(name)).log_prob(p[name]) + jnp.log(p[name])
+    return jnp.where(jnp.isfinite(lp), lp, -jnp.inf)
+
+
 class _Program:
     """The one compiled program of a fit outside the Markov chain: per point, the exact marginal likelihood of the
     hyperparameters and one exact draw of the linear block from one factorisation
@@ -449,84 +548,12 @@ class _Program:
     """
 
     def __init__(self, parts, layout, settings, method: str, mode: str, grid_names=None):
-        import jax
-        import jax.numpy as jnp
-
-        from .model import pointwise, split_static, with_structure
+        from .model import split_static
 
         self.parts, self.settings, self.grid_names = parts, settings, grid_names
         self.linear = method != "nuts"
         st, self.array_parts = split_static(parts)
-        n_stars, n_gal = parts.lin.y0.shape[0], len(layout.galaxies)
-
-        def run(hyper, normals, valid, full, ap):
-            parts = with_structure(st, ap)
-            fixed = {n: jnp.asarray(v) for n, v in st.fixed}
-            for name in ("scatter", "sn_scatter", "outlier_fraction", "parallax_offset"):
-                if name not in hyper and settings.prior(name).dist == "fixed":
-                    fixed[name] = jnp.asarray(settings.prior(name).get("value"))
-
-            def one(carry, x):
-                p, z, ok = x
-                p = {**fixed, **p}
-                lp, drawn = (self._linear(parts, p, *z) if self.linear else (jnp.zeros(()), {}))
-                if grid_names:
-                    lp = lp + self._grid_prior(p)
-
-                def pass_(_):
-                    out = pointwise(parts, settings, {**p, **drawn})
-                    ll = out["cepheids"]
-                    if mode == "galaxy":
-                        ll = jax.ops.segment_sum(ll, parts.star_galaxy, num_segments=n_gal)
-                    ys = {"anchors": out["anchors"], "supernovae": out["supernovae"]}
-                    if mode != "none":
-                        ys["cepheids"] = ll.astype(jnp.float32)
-                    if parts.parallax.shape[0]:
-                        from .terms.parallax import parallax_log_likelihood
-
-                        ys["parallaxes"] = parallax_log_likelihood(parts.parallax, parts.parallax_err,
-                                                                   jnp.exp(p["log_distance_pc"]), p["parallax_offset"])
-                    return (out["outlier_prob"], out["ebv"], out["star_resid"]), ys
-
-                shapes = jax.eval_shape(pass_, None)
-                inc, ys = jax.lax.cond(full, pass_, lambda _: jax.tree.map(lambda a: jnp.zeros(a.shape, a.dtype),
-                                                                           shapes), None)
-                carry = tuple(c + jnp.where(ok, i, 0.0) for c, i in zip(carry, inc))
-                return carry, (lp, drawn, ys)
-
-            zero = (jnp.zeros(n_stars), jnp.zeros(n_stars), jnp.zeros(n_stars))
-            return jax.lax.scan(one, zero, (hyper, normals, valid))
-
-        self._run = jax.jit(run)
-
-    def _linear(self, parts, p, z_global, z_local):
-        import jax.numpy as jnp
-
-        from .model import mu_parallax, offset_var_from_params
-        from .structure import marginal_and_draw, unpack
-
-        st, settings = parts.structure, self.settings
-        ov = offset_var_from_params(parts, settings, p)
-        mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
-        sn_var = (p["sn_scatter"] ** 2 if "sn_scatter" in p else
-                  jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2) if parts.lin.sn_slot.shape[0] else 0.0
-        lm, loc, glob = marginal_and_draw(z_global, z_local, st, parts.lin, ov, mu_par, sn_var)
-        fixed = dict(st.fixed)
-        out = {"mu": loc[:, 0], **{n: v for n, v in unpack(st, glob).items() if n not in fixed}}
-        if st.n_local == 2 and parts.bias_slots.shape[0]:
-            out["photometric_bias"] = loc[parts.bias_slots, 1]
-        return lm, out
-
-    def _grid_prior(self, p):
-        """ln p(phi) + ln |d phi / d ln phi| of the grid's hyperparameters (the grid is in ln phi)."""
-        import jax.numpy as jnp
-
-        from .priors import prior_distribution
-
-        lp = 0.0
-        for name in self.grid_names:
-            lp = lp + prior_distribution(self.settings.prior(name)).log_prob(p[name]) + jnp.log(p[name])
-        return jnp.where(jnp.isfinite(lp), lp, -jnp.inf)
+        self._run = _compiled_program(st, settings, self.linear, mode, tuple(grid_names or ()), len(layout.galaxies))
 
     def _normals(self, rng, m):
         st = self.parts.structure
