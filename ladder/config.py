@@ -655,7 +655,7 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
                              file=sec.file, key="model.bands")
     metallicity = sec.get("metallicity", (bool, str), True)
     if isinstance(metallicity, str) and metallicity != "per_band":
-        raise InputError(f"must be true, false or \"per_band\", got {metallicity!r}", file=sec.file,
+        raise InputError(f"must be true or false, or \"per_band\", got {metallicity!r}", file=sec.file,
                          key="model.metallicity")
     if metallicity == "per_band" and extinction != "multiband":
         raise InputError("metallicity = \"per_band\" gives one coefficient per fitted band: it needs "

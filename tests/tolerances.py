@@ -118,3 +118,11 @@ LOO_VS_ARVIZ_RTOL = 1e-9  # delta elpd and its se vs arviz.compare on the same p
 PSIS_VS_REFIT_SHIFT_ATOL = 0.45  # baseline sds; MC error of a 2x200-draw mean ~ sd/sqrt(ESS ~ 100) = 0.1 sd for the refit and more for importance weights (k <= 0.7): difference se ~ 0.15, 3 sigma
 PREDICTIVE_FLAG_P = 0.01  # a predictive p-value below 1% flags a galaxy (common practice for posterior predictive checks)
 PREDICTIVE_PASS_P = 0.005  # 200 replicates resolve p to 0.005; posterior predictive p-values of a correct model concentrate near 0.5 (they use the data twice), so none of 12 falls below 0.005 by chance for a correct model
+
+# --- one-sided blend component and per-band terms (tests/test_outliers.py, tests/test_bands.py) ---
+BLEND_VS_SCIPY_RTOL = 1e-9  # same closed form as scipy.stats.exponnorm (erfc vs log_ndtr); rounding only, where the density is not tiny
+BLEND_VS_SCIPY_ATOL = 1e-9  # log densities of O(1-100); differences are float64 rounding (exp/log of ~1e-40 in the far tail)
+BLEND_QUAD_ATOL = 1e-7  # log of a QUADPACK integral with epsabs 1e-14 of a density of O(1); quadrature error ~1e-9 relative
+FRACTION_RTOL = 1e-12  # logit-normal fraction vs scipy.special.expit: the same closed form, float64 rounding only
+JOINT_CHI2_P_PASS = 1e-3  # host moduli vs truth, chi-square with the posterior covariance: a calibrated posterior fails 1 in 1000
+JOINT_CHI2_P_BIASED = 1e-3  # the simpler model on data with the effect: its chi-square must be as unlikely as that to count as biased
