@@ -359,10 +359,9 @@ def _compile_cache(path: Path) -> None:
     """
     import jax
 
-    if jax.config.jax_compilation_cache_dir:
-        return
-    path.mkdir(parents=True, exist_ok=True)
-    jax.config.update("jax_compilation_cache_dir", str(path))
+    if not jax.config.jax_compilation_cache_dir:  # else the user's own cache (JAX_COMPILATION_CACHE_DIR) is used
+        path.mkdir(parents=True, exist_ok=True)
+        jax.config.update("jax_compilation_cache_dir", str(path))
     jax.config.update("jax_persistent_cache_min_compile_time_secs", 0.0)
     jax.config.update("jax_persistent_cache_min_entry_size_bytes", 0)
 

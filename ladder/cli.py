@@ -353,9 +353,12 @@ def _calibrate(args) -> int:
     p_of = {str(r["parameter"]): float(r["p_value"]) for r in uniformity}
     for name in dict.fromkeys(str(p) for p in coverage["parameter"]):
         rows = coverage[coverage["parameter"] == name]
-        cells = [f"{r['empirical']:.2f}+/-{r['binomial_sd']:.2f}{'' if r['within_2sd'] else '!'}" for r in rows]
+        cells = [f"{r['empirical']:.2f}+/-{r['binomial_sd']:.2f}{'' if r['within_2sd'] else '!'}" if r["n"] else "-"
+                 for r in rows]
         print(f"{name:<28s} {int(rows['n'][0]):>4d} " + " ".join(f"{c:>13s}" for c in cells)
               + f" {p_of.get(name, float('nan')):>9.3f}")
+    print("empirical coverage +/- binomial sd per nominal level (!: more than 2 sd from nominal); uniform p: "
+          "chi-square test of the ranks (coverage.ecsv, uniformity.ecsv)")
     return _gate_exit(ranks.meta["failed"], ranks.meta["failed_diagnostics"], "replication", args.strict)
 
 

@@ -118,3 +118,6 @@ LOO_VS_ARVIZ_RTOL = 1e-9  # delta elpd and its se vs arviz.compare on the same p
 PSIS_VS_REFIT_SHIFT_ATOL = 0.45  # baseline sds; MC error of a 2x200-draw mean ~ sd/sqrt(ESS ~ 100) = 0.1 sd for the refit and more for importance weights (k <= 0.7): difference se ~ 0.15, 3 sigma
 PREDICTIVE_FLAG_P = 0.01  # a predictive p-value below 1% flags a galaxy (common practice for posterior predictive checks)
 PREDICTIVE_PASS_P = 0.005  # 200 replicates resolve p to 0.005; posterior predictive p-values of a correct model concentrate near 0.5 (they use the data twice), so none of 12 falls below 0.005 by chance for a correct model
+
+# --- calibration by simulation (tests/test_calibrate.py) ---
+CALIBRATION_SIM_KS_P = 1e-3  # KS p-value floor for standardised residuals of a simulated catalogue at its truth; false alarm 1e-3 per check
