@@ -40,7 +40,7 @@ import numpy as np
 from .config import RunConfig
 from .errors import InputError
 
-__all__ = ["SweepPlan", "plan_sweep", "run_sweep", "run_variant", "sweep_table", "sweep_figure", "shift",
+__all__ = ["SweepPlan", "plan_sweep", "run_sweep", "run_variant", "run_tasks", "sweep_table", "sweep_figure", "shift",
            "anchor_tension", "loo_difference", "psis_leave_one_galaxy_out",
            "galaxy_log_likelihood", "PSIS_K_MAX", "input_key", "is_complete", "LOG_LIKELIHOOD"]
 
@@ -275,10 +275,31 @@ def run_sweep(run_file: str | Path, out_dir: str | Path, *, workers: int | None 
 
 
 def _run_distributed(plan, todo, out, workers, scheduler, plots, argv, report, say) -> None:
+    path = str(out.resolve())
+    run_tasks(run_variant, {name: (name, plan.configs[name], path, plots, argv) for name in todo},
+              workers=workers, scheduler=scheduler, report=report, say=say, label="sweep",
+              failed=lambda name, exc: {"variant": name, "status": "failed", "error": f"{type(exc).__name__}: {exc}",
+                                        "seconds": 0.0})
+
+
+def run_tasks(fn: Callable, tasks: dict[str, tuple], *, workers: int | None = None, scheduler: str | None = None,
+              report: Callable[[dict, int], None], say: Callable[[str], None], label: str,
+              failed: Callable[[str, BaseException], dict]) -> None:
+    """Run ``fn(*args)`` for every ``name: args`` of ``tasks`` on Dask distributed: the one runner of sweeps and
+    calibrations.
+
+    A local cluster of ``workers`` single-threaded worker processes (default one per CPU core, at most one per
+    task), or the running scheduler at ``scheduler``. ``fn`` should not raise (it returns its own failure record);
+    a task whose worker died gets ``failed(name, exc)``. ``report(result, running)`` is called in this process as
+    each task finishes. An interrupt (KeyboardInterrupt) closes the client and the local cluster and propagates.
+    """
     try:
         from distributed import Client, LocalCluster, as_completed
     except ImportError:
-        raise InputError("sweeps run on Dask distributed: pip install 'dask[distributed]'", key="--workers") from None
+        raise InputError(f"{label} runs on Dask distributed: pip install 'dask[distributed]'", key="--workers") from None
+    names = list(tasks)
+    if not names:
+        return
     cluster = None
     if scheduler:
         try:
@@ -287,22 +308,22 @@ def _run_distributed(plan, todo, out, workers, scheduler, plots, argv, report, s
             raise InputError(f"cannot reach the Dask scheduler: {exc}", key="--scheduler") from None
     else:
         n = workers or _default_workers()
-        cluster = LocalCluster(n_workers=min(n, len(todo)), threads_per_worker=1, processes=True,
+        cluster = LocalCluster(n_workers=min(n, len(names)), threads_per_worker=1, processes=True,
                                dashboard_address=None, silence_logs=40)
         client = Client(cluster)
     try:
-        say(f"sweep: Dask cluster with {len(client.scheduler_info()['workers'])} workers"
+        say(f"{label}: Dask cluster with {len(client.scheduler_info()['workers'])} workers"
             + (f" at {scheduler}" if scheduler else " (local)"))
-        futures = [client.submit(run_variant, name, plan.configs[name], str(out.resolve()), plots, argv,
-                                 key=f"ladder-variant-{name}-{time.time_ns()}", pure=False) for name in todo]
+        stamp = time.time_ns()
+        futures = [client.submit(fn, *tasks[name], key=f"ladder-{label}-{name}-{stamp}", pure=False)
+                   for name in names]
         pending = len(futures)
         for fut in as_completed(futures):
             pending -= 1
             try:
                 res = fut.result()
-            except Exception as exc:  # a worker died: the variant failed, the sweep goes on
-                name = todo[futures.index(fut)]
-                res = {"variant": name, "status": "failed", "error": f"{type(exc).__name__}: {exc}", "seconds": 0.0}
+            except Exception as exc:  # a worker died: the task failed, the others go on
+                res = failed(names[futures.index(fut)], exc)
             report(res, min(pending, len(client.scheduler_info()["workers"])))
     finally:
         client.close()
