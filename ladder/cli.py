@@ -1,9 +1,10 @@
 """Command line: a thin skin over the Python API.
 
 ``ladder fit RUN.toml --out DIR [--strict] [--force]``, ``ladder check RUN.toml [--strict]``,
-``ladder simulate --out DIR [--seed N] ...``, ``ladder report DIR``, ``ladder verify DIR``. Exit codes: 0 ok,
+``ladder simulate --out DIR [--seed N] ...``, ``ladder report DIR``, ``ladder verify DIR``, ``ladder sweep``,
+``ladder compare``, ``ladder calibrate``. Exit codes: 0 ok,
 1 ``verify`` found an input changed or missing, 2 bad input (and, under ``--strict``, implausible input),
-3 failed diagnostics under ``--strict``, 130 / 143 interrupted by SIGINT / SIGTERM (nothing written).
+3 failed diagnostics under ``--strict`` (fit; sweep and calibrate after writing their table), 130 / 143 interrupted by SIGINT / SIGTERM (nothing written).
 Implausible values (likely unit mistakes, :mod:`ladder.plausibility`) are printed as ``ladder: warning: ...``.
 """
 
@@ -68,6 +69,10 @@ def _parser() -> argparse.ArgumentParser:
     for flag, metavar, help_ in (
         ("--parallax", "N", "Cepheids with parallaxes in the invented home galaxy Nearfold (default 0: none)"),
         ("--outlier-fraction", "F", "fraction of host Cepheids that are blends (default 0)"),
+        ("--outlier-fraction-far", "F", "blend fraction in the hosts beyond the middle of the host distance range "
+                                        "(default: --outlier-fraction everywhere)"),
+        ("--outlier-shift-scale", "W", "blends brighter by an exponential shift of this mean in mag (default: "
+                                       "uniform in 0.3-1.5 mag)"),
         ("--pl-break-period", "P", "period of a PL break in days (default: no break)"),
         ("--pl-slope-long", "B", "W slope above the break (required with --pl-break-period)"),
         ("--scatter-spread", "S", "spread of the per-galaxy intrinsic scatter, log scale (default 0)"),
@@ -76,6 +81,10 @@ def _parser() -> argparse.ArgumentParser:
         ("--h0", "H", "true Hubble constant in km/s/Mpc (default 68.5, invented)"),
         ("--reddening-law", "LAW", "extinction ratios from ccm89 or fitzpatrick99 (default none: fixed ratios)"),
         ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
+        ("--anchor-systematic", "S", "sd in mag of one offset shared by every anchor's mu_geo (default 0); writes "
+         "anchor_covariance.ecsv"),
+        ("--sn-systematic", "S", "sd in mag of one offset shared by every calibrator supernova (default 0; needs "
+         "--hubble-flow); writes supernova_covariance.ecsv"),
     ):
         s.add_argument(flag, default=None, metavar=metavar, help=help_)
     _add_verify_parser(sub)
@@ -242,10 +251,12 @@ def _simulate(args) -> int:
                                  ("n_cepheids", args.cepheids)) if v is not None}
     fields = {  # option dest -> (MockSettings field, type)
         "parallax": ("n_parallax", int), "outlier_fraction": ("outlier_fraction", float),
+        "outlier_fraction_far": ("outlier_fraction_far", float), "outlier_shift_scale": ("outlier_shift_scale", float),
         "pl_break_period": ("pl_break_period", float), "pl_slope_long": ("pl_slope_long", float),
         "scatter_spread": ("scatter_spread", float), "bias_sd": ("bias_sd", float),
         "hubble_flow": ("n_hubble_flow", int), "h0": ("h0", float), "reddening_law": ("reddening_law", str),
-        "r_v": ("r_v", float),
+        "r_v": ("r_v", float), "anchor_systematic": ("anchor_systematic", float),
+        "sn_systematic": ("sn_systematic", float),
     }
     for dest, (key, kind) in fields.items():
         text = getattr(args, dest)
@@ -296,12 +307,81 @@ def _add_sweep_commands(sub) -> None:
     w.add_argument("--scheduler", default=None, metavar="ADDRESS",
                    help="use a running Dask scheduler, e.g. tcp://HOST:PORT, instead of a local cluster")
     w.add_argument("--no-plots", action="store_true", help="skip the PNG figures")
+    w.add_argument("--strict", action="store_true",
+                   help="refuse implausible input (exit 2) and exit 3 after writing the table when any variant "
+                        "failed or failed its sampler diagnostics")
+    _add_calibrate_parser(sub)
     k = sub.add_parser("compare", help="compare finished fits: overlaid posteriors, distance forest plot, table")
     k.add_argument("runs", nargs="+", metavar="DIR", help="result directories of `ladder fit` or sweep members")
     k.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
     k.add_argument("--force", action="store_true", help="replace an existing non-empty output directory")
     k.add_argument("--label", action="append", default=None, metavar="NAME",
                    help="label of each run in the figures and table (repeat, in order; default: directory names)")
+
+
+def _add_calibrate_parser(sub) -> None:
+    c = sub.add_parser("calibrate", help="calibration by simulation: draw from the priors, simulate catalogues "
+                                         "like the run's, fit them, rank the truths (ranks, coverage, sbc.png)")
+    c.add_argument("run", metavar="RUN.toml", help="run file (every prior proper)")
+    c.add_argument("--replications", type=int, required=True, metavar="N", help="simulated catalogues to fit")
+    c.add_argument("--out", required=True, metavar="DIR", help="calibration directory (rerunning into it resumes)")
+    c.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="worker processes of the local Dask cluster (default: one per CPU core)")
+    c.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="use a running Dask scheduler, e.g. tcp://HOST:PORT, instead of a local cluster")
+    c.add_argument("--seed", type=int, default=None, metavar="S",
+                   help="seed of the calibration (default: the run's [sampler] seed); replication i uses (S, i)")
+    c.add_argument("--strict", action="store_true",
+                   help="refuse implausible input (exit 2) and exit 3 after writing the tables when any replication "
+                        "failed or failed its sampler diagnostics")
+    c.add_argument("--no-plots", action="store_true", help="skip sbc.png")
+
+
+def _calibrate(args) -> int:
+    from . import load_run
+    from .calibrate import run_calibration
+
+    if args.workers is not None and args.scheduler:
+        raise InputError("give either --workers (local cluster) or --scheduler (existing cluster), not both",
+                         key="--scheduler")
+    cfg = load_run(args.run)
+    data, _ = _load_data(cfg, args.strict)
+    if data is None:
+        return EXIT_BAD_INPUT
+    try:
+        ranks, coverage, uniformity = run_calibration(
+            args.run, args.out, args.replications, workers=args.workers, scheduler=args.scheduler, seed=args.seed,
+            plots=not args.no_plots, progress=_say, argv=["ladder", *sys.argv[1:]])
+    except KeyboardInterrupt as exc:
+        _say(f"ladder: calibration interrupted; finished replications are kept in {args.out}/replications: rerun "
+             "the same command to run only the rest (the summary tables were not updated)")
+        return EXIT_SIGTERM if isinstance(exc, _Terminated) else EXIT_SIGINT
+    _say(f"ladder: wrote {args.out}/ranks.ecsv, coverage.ecsv, uniformity.ecsv"
+         + ("" if args.no_plots else ", sbc.png"))
+    print(f"{'parameter':<28s} {'n':>4s} " + " ".join(f"{f'{c:.0%}':>13s}" for c in sorted(set(coverage['nominal'])))
+          + f" {'uniform p':>9s}")
+    p_of = {str(r["parameter"]): float(r["p_value"]) for r in uniformity}
+    for name in dict.fromkeys(str(p) for p in coverage["parameter"]):
+        rows = coverage[coverage["parameter"] == name]
+        cells = [f"{r['empirical']:.2f}+/-{r['binomial_sd']:.2f}{'' if r['within_2sd'] else '!'}" if r["n"] else "-"
+                 for r in rows]
+        print(f"{name:<28s} {int(rows['n'][0]):>4d} " + " ".join(f"{c:>13s}" for c in cells)
+              + f" {p_of.get(name, float('nan')):>9.3f}")
+    print("empirical coverage +/- binomial sd per nominal level (!: more than 2 sd from nominal); uniform p: "
+          "chi-square test of the ranks (coverage.ecsv, uniformity.ecsv)")
+    return _gate_exit(ranks.meta["failed"], ranks.meta["failed_diagnostics"], "replication", args.strict)
+
+
+def _gate_exit(n_failed: int, n_gate: int, what: str, strict: bool) -> int:
+    """Exit code after a sweep or calibration whose table is written: 3 under --strict when any fit failed."""
+    if n_failed or n_gate:
+        _say(f"ladder: WARNING: {plural(int(n_gate), what)} failed the sampler diagnostics and "
+             f"{plural(int(n_failed), what)} failed to run: marked in the table"
+             + (f", left out of the coverage" if what == "replication" else "")
+             + ("" if strict else " (--strict makes this exit 3)"))
+        if strict:
+            return EXIT_DIAGNOSTICS
+    return EXIT_OK
 
 
 def _check_selection_and_variants(cfg) -> None:
@@ -332,6 +412,11 @@ def _sweep(args) -> int:
     if args.workers is not None and args.scheduler:
         raise InputError("give either --workers (local cluster) or --scheduler (existing cluster), not both",
                          key="--scheduler")
+    if args.strict:
+        from . import load_run
+
+        if _load_data(load_run(args.run), True)[0] is None:
+            return EXIT_BAD_INPUT
     try:
         table = run_sweep(args.run, args.out, workers=args.workers, scheduler=args.scheduler,
                           plots=not args.no_plots, progress=_say, argv=["ladder", *sys.argv[1:]])
@@ -348,9 +433,12 @@ def _sweep(args) -> int:
         print(f"{row['variant']:<24s} {row['status']:<7s} {str(bool(row['passed'])):<6s} "
               + " ".join(f"{row[c]:>22.2f}" for c in cols) + f" {loo:>16s}")
     failed = [r["variant"] for r in table if r["status"] != "done"]
+    gate = [r["variant"] for r in table if r["status"] == "done" and not r["passed"]]
     if failed:
         _say(f"ladder: {len(failed)} variant(s) failed: {', '.join(failed)} (errors in sweep.ecsv)")
-    return EXIT_OK
+    if gate:
+        _say(f"ladder: sampler diagnostics failed for {', '.join(gate)} (passed = False in sweep.ecsv)")
+    return _gate_exit(len(failed), len(gate), "variant", args.strict)
 
 
 def _compare(args) -> int:
@@ -422,7 +510,7 @@ def main(argv: list[str] | None = None) -> int:
         previous = signal.signal(signal.SIGTERM, _on_sigterm)
     try:
         return {"fit": _fit, "check": _check, "simulate": _simulate, "report": _report, "verify": _verify,
-                "sweep": _sweep, "compare": _compare}[args.command](args)
+                "sweep": _sweep, "compare": _compare, "calibrate": _calibrate}[args.command](args)
     except InputError as exc:
         _say(f"ladder: error: {exc}")
         return EXIT_BAD_INPUT

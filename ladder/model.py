@@ -20,9 +20,10 @@ stars) and :math:`M_B(P)` the PL relation (optionally broken). Each piece is a t
 
 Symbols ↔ output names: :math:`\mu_i` ``mu`` (dim ``host``), :math:`M_B` ``pl_zero_point``, :math:`b` ``pl_slope``,
 :math:`b_\mathrm{long}` ``pl_slope_long``, :math:`\gamma` ``metallicity_coef``, :math:`\sigma_\mathrm{int}`
-``scatter`` (per galaxy: ``host_scatter``, spread ``scatter_spread``), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
+``scatter`` (per galaxy: ``host_scatter``, spread ``scatter_spread``), :math:`\tau_B` ``band_scatter``
+(``scatter_bands``: an independent per-band part of the intrinsic scatter), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
 :math:`E(B-V)_j` ``ebv`` (galaxy mean ``ebv_mean``), :math:`\beta_i` ``photometric_bias``, :math:`f`
-``outlier_fraction``, :math:`\varpi_0` ``parallax_offset``, :math:`H_0` ``h0``, :math:`M_\mathrm{SN}` ``sn_abs_mag``,
+``outlier_fraction`` (per galaxy ``host_outlier_fraction``, logit spread ``outlier_fraction_spread``), :math:`\varpi_0` ``parallax_offset``, :math:`H_0` ``h0``, :math:`M_\mathrm{SN}` ``sn_abs_mag``,
 :math:`\sigma_\mathrm{SN}` ``sn_scatter``.
 
 The linear part of the model (moduli, PL, metallicity, SN and H0 terms, biases) is defined once in
@@ -47,8 +48,8 @@ __all__ = ["ModelArrays", "Layout", "model_arrays", "ModelParts", "model_parts",
 
 #: Global parameters in output order (vector-valued ones get one row per band).
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
-                     "wesenheit_r", "r_v", "outlier_fraction", "parallax_offset", "parallax_length_scale", "h0",
-                     "sn_abs_mag", "sn_scatter")
+                     "band_scatter", "wesenheit_r", "r_v", "outlier_fraction", "outlier_fraction_spread",
+                     "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag", "sn_scatter")
 #: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
 DERIVED_PER_STAR = ("outlier_prob", "ebv")
 
@@ -78,6 +79,8 @@ class ModelArrays(NamedTuple):
     sn_mag: np.ndarray
     sn_err: np.ndarray
     sn_z: np.ndarray  # 1 for calibrators (unused)
+    anchor_cov: np.ndarray = np.zeros((0, 0))  # (n_anchors, n_anchors) covariance table, mag^2; (0, 0): none
+    sn_cov: np.ndarray = np.zeros((0, 0))  # (n_sn, n_sn) covariance table, mag^2; (0, 0): none
 
 
 @dataclass(frozen=True)
@@ -219,6 +222,11 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         sn_mag=sne.mag[sn_keep].astype(float) if sne is not None else np.zeros(0),
         sn_err=sne.mag_err[sn_keep].astype(float) if sne is not None else np.zeros(0),
         sn_z=np.where(sn_slot < 0, sne.z[sn_keep], 1.0) if sne is not None else np.zeros(0),
+        # covariance tables over the rows fitted (the marginal of a Gaussian: rows and columns of the kept ones)
+        anchor_cov=np.asarray(data.anchor_cov[np.ix_(anchors, anchors)], float) if data.anchor_cov is not None
+        else np.zeros((0, 0)),
+        sn_cov=np.asarray(sne.cov[np.ix_(sn_keep, sn_keep)], float) if sne is not None and sne.cov is not None
+        else np.zeros((0, 0)),
     )
     layout = Layout(
         galaxies=tuple(data.host_names),
@@ -244,9 +252,11 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
         "pl_zero_point": True, "pl_slope": True, "pl_slope_long": settings.pl_break,
         "metallicity_coef": settings.metallicity, "scatter": True,
         "scatter_spread": settings.scatter_model == "per_host",
+        "band_scatter": settings.scatter_bands,
         "wesenheit_r": False,  # R is fixed in every model (an uncertain R is refused by the run-file parser)
         "r_v": settings.needs_law and settings.reddening.free,
         "outlier_fraction": settings.outliers == "mixture",
+        "outlier_fraction_spread": settings.outliers == "mixture" and settings.outlier_fraction_model == "per_galaxy",
         "parallax_offset": par, "parallax_length_scale": par and settings.parallax.length_scale_pc is None,
         "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
     }
@@ -463,16 +473,14 @@ def _photometric_modulus(resid0, var, mask, a=None):
     return jnp.where(ok, (s2 * t0 - s1 * t1) / safe, plain), jnp.where(ok, s2 / safe, plain_var)
 
 
-def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None):
-    r"""(N,) log density of each Cepheid's magnitudes given its residuals (N, k): the common-offset Normal
-    (:func:`ladder.terms.noise.common_offset_normal_logpdf`), with E(B-V) integrated out when ``extinction``
-    = ``(a, rate)`` (:func:`ladder.terms.noise.reddened_star_logpdf`), and the outlier mixture
-    (:func:`ladder.terms.outliers.mixture_logpdf`) when ``fraction`` is given. Clipped stars give 0."""
+def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, outliers=True):
+    """(N,) log densities of every star under the core and (with ``outliers``) the outlier component: the
+    broad Normal (offset variance + outlier_width^2) or the one-sided blend
+    (:func:`ladder.terms.outliers.blend_logpdf`). ``(core, other or None)``."""
     import jax
-    import jax.numpy as jnp
 
     from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf
-    from .terms.outliers import mixture_logpdf
+    from .terms.outliers import blend_logpdf
 
     var, mask = parts.lin.var, parts.lin.mask
     if extinction is None:
@@ -482,19 +490,40 @@ def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, e
         dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
             resid, var, mask, s2, a, rate)
     core = dens(offset_var)
+    if not outliers:
+        return core, None
+    if settings.outlier_component == "blend":  # one fitted magnitude only (the run-file parser refuses multiband)
+        other = jax.vmap(blend_logpdf, in_axes=(0, 0, 0, 0, None))(resid, var, mask, offset_var,
+                                                                   settings.outlier_width)
+    else:
+        other = dens(offset_var + settings.outlier_width**2)
+    return core, other
+
+
+def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None):
+    r"""(N,) log density of each Cepheid's magnitudes given its residuals (N, k): the common-offset Normal
+    (:func:`ladder.terms.noise.common_offset_normal_logpdf`), with E(B-V) integrated out when ``extinction``
+    = ``(a, rate)`` (:func:`ladder.terms.noise.reddened_star_logpdf`), and the outlier mixture
+    (:func:`ladder.terms.outliers.mixture_logpdf`; outlier component broad or blend) when ``fraction`` (a scalar
+    or one per star) is given. Clipped stars give 0."""
+    import jax.numpy as jnp
+
+    from .terms.outliers import mixture_logpdf
+
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction, fraction is not None)
     if fraction is not None:
-        core = mixture_logpdf(core, dens(offset_var + settings.outlier_width**2), fraction)
-    return jnp.where(jnp.any(mask, axis=1), core, 0.0)
+        core = mixture_logpdf(core, other, fraction)
+    return jnp.where(jnp.any(parts.lin.mask, axis=1), core, 0.0)
 
 
 def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None,
                     fraction=None):
-    """(N,) conditional probability of the broad (outlier) component, and (N,) posterior-mean E(B-V)
+    """(N,) conditional probability of the outlier component (broad or blend), and (N,) posterior-mean E(B-V)
     (zeros without extinction), at these parameters."""
     import jax
     import jax.numpy as jnp
 
-    from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf, reddening_posterior_mean
+    from .terms.noise import reddening_posterior_mean
     from .terms.outliers import membership_probability
 
     var, mask = parts.lin.var, parts.lin.mask
@@ -505,28 +534,42 @@ def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_va
         ebv = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(resid, var, mask, offset_var, a, rate)
     if fraction is None:
         return jnp.zeros(n), ebv
-    if extinction is None:
-        dens = lambda s2: jax.vmap(common_offset_normal_logpdf)(resid, var, mask, s2)  # noqa: E731
-    else:
-        dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
-            resid, var, mask, s2, a, rate)
-    q = membership_probability(dens(offset_var), dens(offset_var + settings.outlier_width**2), fraction)
-    return q, ebv
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction)
+    return membership_probability(core, other, fraction), ebv
+
+
+def _rows_logpdf(y, loc, var, table, dense: bool):
+    r"""Log densities of rows ``y`` about ``loc``: independent Normals, or with a covariance table the sequential
+    conditionals :math:`\ln p(y_i \mid y_{<i})` of :math:`\mathcal N(\mathrm{loc}, \mathrm{diag}(\mathrm{var})
+    + C_\mathrm{table})` in file order: with :math:`C = L L^T` (:func:`ladder.structure.row_cholesky`) and
+    :math:`z = L^{-1}(y - \mathrm{loc})`, :math:`\ln\phi(z_i) - \ln L_{ii}`; they sum to the joint density."""
+    import jax.numpy as jnp
+    from jax.scipy.linalg import solve_triangular
+    from jax.scipy.stats import norm
+
+    if not dense:
+        return norm.logpdf(y, loc, jnp.sqrt(var))
+    from .structure import row_cholesky
+
+    chol = row_cholesky(var, table)
+    z = solve_triangular(chol, y - loc, lower=True)
+    return norm.logpdf(z) - jnp.log(jnp.diagonal(chol))
 
 
 def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0):
     """Pointwise log densities of the anchors' geometric moduli and of the supernovae at these parameters:
-    ``(anchors (n_anchor,), supernovae (n_sn,))``; the rows of :mod:`ladder.structure`."""
+    ``(anchors (n_anchor,), supernovae (n_sn,))``; the rows of :mod:`ladder.structure`. With a covariance table
+    (``[data] anchor_covariance`` / ``supernova_covariance``) each row's value is its density given the rows
+    before it (:func:`_rows_logpdf`), so the sum is the multivariate normal density of the block."""
     import jax.numpy as jnp
-    from jax.scipy.stats import norm
 
-    lin, G = parts.lin, parts.structure.n_galaxies
-    a = norm.logpdf(lin.anchor_y, theta_local[lin.anchor_slot, 0], jnp.sqrt(lin.anchor_var)) \
-        if lin.anchor_slot.shape[0] else jnp.zeros(0)
+    st, lin, G = parts.structure, parts.lin, parts.structure.n_galaxies
+    a = _rows_logpdf(lin.anchor_y, theta_local[lin.anchor_slot, 0], lin.anchor_var, lin.anchor_cov,
+                     st.anchor_dense) if lin.anchor_slot.shape[0] else jnp.zeros(0)
     if lin.sn_slot.shape[0]:
         mu = jnp.concatenate([theta_local[:, 0], jnp.zeros(1)])[lin.sn_slot]
         loc = jnp.where(lin.sn_slot < G, mu, 0.0) + lin.sn_design @ theta_global
-        sn = norm.logpdf(lin.sn_y, loc, jnp.sqrt(lin.sn_var + sn_extra_var))
+        sn = _rows_logpdf(lin.sn_y, loc, lin.sn_var + sn_extra_var, lin.sn_cov, st.sn_dense)
     else:
         sn = jnp.zeros(0)
     return a, sn
@@ -548,9 +591,35 @@ def nonlinear_inputs(parts: ModelParts, settings: ModelSettings, params: dict):
             rate = jnp.full(parts.star_galaxy.shape, 1.0 / settings.prior("ebv_mean").get("value"))
         extinction = (extinction_ratio(rd.law, jnp.asarray(parts.wavelength), r_v) * r_v, rate)
     if settings.outliers == "mixture":
-        fraction = params["outlier_fraction"] if "outlier_fraction" in params else \
-            jnp.asarray(settings.prior("outlier_fraction").get("value"))
+        if settings.outlier_fraction_model == "per_galaxy":
+            fraction = params["host_outlier_fraction"][parts.star_galaxy]
+        else:
+            fraction = params["outlier_fraction"] if "outlier_fraction" in params else \
+                jnp.asarray(settings.prior("outlier_fraction").get("value"))
     return extinction, fraction
+
+
+def _outlier_sites(settings: ModelSettings, n_gal: int) -> dict:
+    """The outlier mixture's fraction: global (``outlier_fraction``), or per galaxy under a non-centred
+    logit-normal prior around it (:func:`ladder.terms.outliers.per_galaxy_fraction`)."""
+    import jax.numpy as jnp
+    import numpyro
+    import numpyro.distributions as dist
+
+    from .priors import sample_parameter
+    from .terms.outliers import per_galaxy_fraction
+
+    params = {}
+    spec = settings.prior("outlier_fraction")
+    if spec.dist != "fixed":
+        params["outlier_fraction"] = sample_parameter("outlier_fraction", spec)
+    if settings.outlier_fraction_model == "per_galaxy":
+        median = params.get("outlier_fraction", jnp.asarray(spec.get("value")) if spec.dist == "fixed" else None)
+        spread = sample_parameter("outlier_fraction_spread", settings.prior("outlier_fraction_spread"))
+        z = numpyro.sample("host_outlier_fraction_z", dist.Normal(0.0, 1.0).expand((n_gal,)))
+        params["host_outlier_fraction"] = numpyro.deterministic("host_outlier_fraction",
+                                                                per_galaxy_fraction(median, spread, z))
+    return params
 
 
 def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
@@ -593,8 +662,8 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
         params["r_v"] = numpyro.sample("r_v", dist.TruncatedNormal(rd.rv, rd.rv_err, low=1.0))
     if settings.multiband and settings.prior("ebv_mean").dist != "fixed":
         params["ebv_mean"] = sample_parameter("ebv_mean", settings.prior("ebv_mean"), (n_gal,))
-    if settings.outliers == "mixture" and settings.prior("outlier_fraction").dist != "fixed":
-        params["outlier_fraction"] = sample_parameter("outlier_fraction", settings.prior("outlier_fraction"))
+    if settings.outliers == "mixture":
+        params.update(_outlier_sites(settings, n_gal))
     extinction, fraction = nonlinear_inputs(parts, settings, params)
 
     mu_par = None

@@ -8,10 +8,13 @@ For Cepheid *j* (fitted columns *B*) at parameters :math:`\theta, \phi`:
     \epsilon_{jB} \sim \mathcal N(0, \sigma_{jB}^2),\quad
     s_j \sim \mathcal N(0, \sigma_{\mathrm{int},i}^2)\ \text{or, with probability } f,\ \mathcal N(0, \sigma_{\mathrm{int},i}^2 + w^2),
 
+    \text{(blend component: with probability } f \text{ the star is brighter by } o_j \sim \mathrm{Exponential}(\text{mean } w)
+    \text{ in every band)},
+
     E_j \sim \mathrm{Exponential}(\text{mean } \bar E_i) \ (\text{multiband extinction}),
 
 with :math:`\hat m` the model's prediction (:func:`ladder.structure.residuals`: observed minus residual) and
-the per-galaxy scatter, outlier fraction and extinction exactly as in :func:`ladder.model.star_logpdf`. Anchors,
+the per-galaxy scatter, outlier fraction (global or per galaxy) and extinction exactly as in :func:`ladder.model.star_logpdf`. Anchors,
 supernovae and parallaxes are replicated from their Gaussian likelihoods. Used for posterior predictive checks
 (Gelman, Meng & Stern 1996, Statistica Sinica 6, 733) and for ``--predictive``.
 """
@@ -30,9 +33,10 @@ def replicate_stars(key, parts, settings, params: dict):
     import jax
 
     n, k = parts.lin.y0.shape
-    k1, k2, k3, k4 = jax.random.split(key, 4)
+    k1, k2, k3, k4, k5 = jax.random.split(key, 5)
     noise = {"uniform": jax.random.uniform(k1, (n,)), "offset": jax.random.normal(k2, (n,)),
-             "error": jax.random.normal(k3, (n, k)), "exponential": jax.random.exponential(k4, (n,))}
+             "error": jax.random.normal(k3, (n, k)), "exponential": jax.random.exponential(k4, (n,)),
+             "blend": jax.random.exponential(k5, (n,))}
     return replicate_stars_given(noise, parts, settings, params)
 
 
@@ -42,6 +46,8 @@ def _noise(rng, parts, settings, shape=()) -> dict:
     out = {"offset": rng.standard_normal(shape + (n,)), "error": rng.standard_normal(shape + (n, k))}
     if settings.outliers == "mixture":
         out["uniform"] = rng.random(shape + (n,))
+        if settings.outlier_component == "blend":
+            out["blend"] = rng.standard_exponential(shape + (n,))
     if settings.multiband:
         out["exponential"] = rng.standard_exponential(shape + (n,))
     return out
@@ -49,8 +55,9 @@ def _noise(rng, parts, settings, shape=()) -> dict:
 
 def replicate_stars_given(noise: dict, parts, settings, params: dict):
     """:func:`replicate_stars` for given standard variates: ``noise["offset"]`` (N,) and ``noise["error"]``
-    (N, k) standard normal, ``noise["uniform"]`` (N,) uniform on [0, 1) (outlier mixture) and
-    ``noise["exponential"]`` (N,) standard exponential (multiband extinction). JAX."""
+    (N, k) standard normal, ``noise["uniform"]`` (N,) uniform on [0, 1) (outlier mixture), ``noise["blend"]`` (N,)
+    standard exponential (blend component) and ``noise["exponential"]`` (N,) standard exponential (multiband
+    extinction). JAX."""
     import jax.numpy as jnp
 
     from .model import mu_parallax, nonlinear_inputs, offset_var_from_params, theta_from_params
@@ -63,12 +70,16 @@ def replicate_stars_given(noise: dict, parts, settings, params: dict):
     offset_var = offset_var_from_params(parts, settings, params)
     extinction, fraction = nonlinear_inputs(parts, settings, params)
     var_s = offset_var
+    shift = jnp.zeros(pred.shape[0])
     if fraction is not None:
-        broad = noise["uniform"] < fraction
-        var_s = jnp.where(broad, offset_var + settings.outlier_width**2, offset_var)
+        member = noise["uniform"] < fraction
+        if settings.outlier_component == "blend":  # brighter by an exponential shift of mean outlier_width
+            shift = jnp.where(member, -settings.outlier_width * noise["blend"], 0.0)
+        else:
+            var_s = jnp.where(member, offset_var + settings.outlier_width**2, offset_var)
     s = jnp.sqrt(var_s) * noise["offset"]
     eps = jnp.sqrt(lin.var) * noise["error"]
-    rep = pred + s[:, None] + eps
+    rep = pred + (s + shift)[:, None] + eps
     if extinction is not None:
         a, rate = extinction
         e = noise["exponential"] / rate
@@ -188,7 +199,13 @@ def add_predictive(result, *, group: bool = False, n_draws: int = 200, seed: int
         take = np.linspace(0, S - 1, min(n_draws, S)).astype(int)
         mu = np.asarray(post["mu"]).reshape(S, -1)[take][:, np.asarray(parts.lin.anchor_slot)]
         rng = np.random.default_rng(seed)
-        geo = mu + np.sqrt(np.asarray(parts.lin.anchor_var)) * rng.standard_normal(mu.shape)
+        if parts.structure.anchor_dense:  # with the covariance table: the same Cholesky factor as the likelihood
+            from .structure import row_cholesky
+
+            chol = np.asarray(row_cholesky(parts.lin.anchor_var, parts.lin.anchor_cov))
+            geo = mu + rng.standard_normal(mu.shape) @ chol.T
+        else:
+            geo = mu + np.sqrt(np.asarray(parts.lin.anchor_var)) * rng.standard_normal(mu.shape)
         groups["anchor_mu_geo"] = xr.DataArray(geo[None], dims=["chain", "draw", "anchor"],
                                                coords={"anchor": list(result.layout.anchors)})
     result.idata.add_groups({"posterior_predictive": xr.Dataset(groups)})

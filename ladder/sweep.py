@@ -40,7 +40,7 @@ import numpy as np
 from .config import RunConfig
 from .errors import InputError
 
-__all__ = ["SweepPlan", "plan_sweep", "run_sweep", "run_variant", "sweep_table", "sweep_figure", "shift",
+__all__ = ["SweepPlan", "plan_sweep", "run_sweep", "run_variant", "run_tasks", "sweep_table", "sweep_figure", "shift",
            "anchor_tension", "loo_difference", "psis_leave_one_galaxy_out",
            "galaxy_log_likelihood", "PSIS_K_MAX", "input_key", "is_complete", "LOG_LIKELIHOOD"]
 
@@ -117,9 +117,13 @@ def plan_sweep(run_file: str | Path) -> SweepPlan:
 
 
 # ----------------------------------------------------------------------------- one variant
+#: The input tables of a run (RunConfig attributes and provenance input roles) whose content a fit depends on.
+_TABLES = ("cepheids", "hosts", "supernovae", "supernova_covariance", "anchor_covariance")
+
+
 def _canonical_run(run: dict[str, Any]) -> dict[str, Any]:
     run = json.loads(json.dumps(run, default=str))
-    for k in ("cepheids", "hosts", "supernovae"):
+    for k in _TABLES:
         if k in run.get("data", {}):
             run["data"][k] = str(Path(run["data"][k]).resolve())
     return run
@@ -129,8 +133,7 @@ def input_key(cfg: RunConfig) -> str:
     """SHA-256 of the resolved run dict and the input tables' SHA-256: equal keys -> the same fit."""
     from .provenance import sha256_file
 
-    tables = {k: sha256_file(p) for k, p in (("cepheids", cfg.cepheids), ("hosts", cfg.hosts),
-                                             ("supernovae", cfg.supernovae)) if p is not None}
+    tables = {k: sha256_file(p) for k, p in ((k, getattr(cfg, k)) for k in _TABLES) if p is not None}
     return _key(_canonical_run(cfg.to_dict()), tables)
 
 
@@ -146,7 +149,7 @@ def is_complete(directory: str | Path, cfg: RunConfig) -> bool:
         return False
     try:
         prov = json.loads((d / "provenance.json").read_text(encoding="utf-8"))
-        tables = {k: v["sha256"] for k, v in prov["inputs"].items() if k in ("cepheids", "hosts", "supernovae")}
+        tables = {k: v["sha256"] for k, v in prov["inputs"].items() if k in _TABLES}
         return _key(_canonical_run(prov["run"]), tables) == input_key(cfg)
     except (OSError, ValueError, KeyError, TypeError):
         return False
@@ -272,10 +275,31 @@ def run_sweep(run_file: str | Path, out_dir: str | Path, *, workers: int | None 
 
 
 def _run_distributed(plan, todo, out, workers, scheduler, plots, argv, report, say) -> None:
+    path = str(out.resolve())
+    run_tasks(run_variant, {name: (name, plan.configs[name], path, plots, argv) for name in todo},
+              workers=workers, scheduler=scheduler, report=report, say=say, label="sweep",
+              failed=lambda name, exc: {"variant": name, "status": "failed", "error": f"{type(exc).__name__}: {exc}",
+                                        "seconds": 0.0})
+
+
+def run_tasks(fn: Callable, tasks: dict[str, tuple], *, workers: int | None = None, scheduler: str | None = None,
+              report: Callable[[dict, int], None], say: Callable[[str], None], label: str,
+              failed: Callable[[str, BaseException], dict]) -> None:
+    """Run ``fn(*args)`` for every ``name: args`` of ``tasks`` on Dask distributed: the one runner of sweeps and
+    calibrations.
+
+    A local cluster of ``workers`` single-threaded worker processes (default one per CPU core, at most one per
+    task), or the running scheduler at ``scheduler``. ``fn`` should not raise (it returns its own failure record);
+    a task whose worker died gets ``failed(name, exc)``. ``report(result, running)`` is called in this process as
+    each task finishes. An interrupt (KeyboardInterrupt) closes the client and the local cluster and propagates.
+    """
     try:
         from distributed import Client, LocalCluster, as_completed
     except ImportError:
-        raise InputError("sweeps run on Dask distributed: pip install 'dask[distributed]'", key="--workers") from None
+        raise InputError(f"{label} runs on Dask distributed: pip install 'dask[distributed]'", key="--workers") from None
+    names = list(tasks)
+    if not names:
+        return
     cluster = None
     if scheduler:
         try:
@@ -284,22 +308,22 @@ def _run_distributed(plan, todo, out, workers, scheduler, plots, argv, report, s
             raise InputError(f"cannot reach the Dask scheduler: {exc}", key="--scheduler") from None
     else:
         n = workers or _default_workers()
-        cluster = LocalCluster(n_workers=min(n, len(todo)), threads_per_worker=1, processes=True,
+        cluster = LocalCluster(n_workers=min(n, len(names)), threads_per_worker=1, processes=True,
                                dashboard_address=None, silence_logs=40)
         client = Client(cluster)
     try:
-        say(f"sweep: Dask cluster with {len(client.scheduler_info()['workers'])} workers"
+        say(f"{label}: Dask cluster with {len(client.scheduler_info()['workers'])} workers"
             + (f" at {scheduler}" if scheduler else " (local)"))
-        futures = [client.submit(run_variant, name, plan.configs[name], str(out.resolve()), plots, argv,
-                                 key=f"ladder-variant-{name}-{time.time_ns()}", pure=False) for name in todo]
+        stamp = time.time_ns()
+        futures = [client.submit(fn, *tasks[name], key=f"ladder-{label}-{name}-{stamp}", pure=False)
+                   for name in names]
         pending = len(futures)
         for fut in as_completed(futures):
             pending -= 1
             try:
                 res = fut.result()
-            except Exception as exc:  # a worker died: the variant failed, the sweep goes on
-                name = todo[futures.index(fut)]
-                res = {"variant": name, "status": "failed", "error": f"{type(exc).__name__}: {exc}", "seconds": 0.0}
+            except Exception as exc:  # a worker died: the task failed, the others go on
+                res = failed(names[futures.index(fut)], exc)
             report(res, min(pending, len(client.scheduler_info()["workers"])))
     finally:
         client.close()
@@ -320,6 +344,13 @@ def _trusted(estimate: dict) -> bool:
 def galaxy_log_likelihood(idata, data, galaxy: str) -> np.ndarray:
     """Sum over every pointwise log-likelihood term of ``galaxy`` (its Cepheids, parallaxes, geometric distance,
     supernovae) per posterior draw, flattened over chains: (n_draws,)."""
+    sne = data.supernovae
+    if sne is not None and sne.cov is not None:
+        # with a covariance table a supernova's pointwise value is its density given the rows before it, not given
+        # all the others: the galaxy's terms do not add up to its leave-out likelihood (refit instead)
+        own = np.array([i >= 0 and data.host_names[i] == galaxy for i in sne.host_index])
+        if own.any() and np.any(sne.cov[np.ix_(own, ~own)] != 0.0):
+            raise ValueError(f"the supernovae of {galaxy} are correlated with others ([data] supernova_covariance)")
     star_host = {s: data.host_names[h] for s, h in zip(data.star_names, data.star_host)}
     sn_host = {}
     if data.supernovae is not None:
@@ -421,8 +452,7 @@ def _comparable(cfg: RunConfig, base: RunConfig, idata, idata0) -> str:
     if cfg.model.outliers == "clip" or base.model.outliers == "clip":
         return "clipping: clipped stars contribute nothing to the likelihood, not comparable"
     if cfg.selection.to_dict() != base.selection.to_dict() or \
-            [str(p) for p in (cfg.cepheids, cfg.hosts, cfg.supernovae)] != \
-            [str(p) for p in (base.cepheids, base.hosts, base.supernovae)]:
+            [str(getattr(cfg, k)) for k in _TABLES] != [str(getattr(base, k)) for k in _TABLES]:
         return "different data (selection or tables)"
     if cfg.model.fitted_bands != base.model.fitted_bands or cfg.model.extinction != base.model.extinction \
             or (cfg.model.wesenheit is None) != (base.model.wesenheit is None):

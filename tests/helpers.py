@@ -57,3 +57,19 @@ def assert_recovers(result, truth: dict, names=None, z=RECOVERY_Z):
     bad = {k: round(float(v), 2) for k, v in zs.items() if abs(v) > z}
     assert not bad, f"truth outside {z} posterior sd for {bad}"
     return zs
+
+
+def joint_chi2(result, true_mu: dict, galaxies=None) -> tuple[float, int, float]:
+    """Host distances judged jointly: ``(chi2, dof, p)`` of the posterior-mean moduli against the truth with the
+    posterior covariance of the moduli (they share the zero point, so star-by-star z-scores would overcount),
+    over ``galaxies`` (default: every galaxy of the posterior that ``true_mu`` names). p from scipy.stats.chi2."""
+    from scipy import stats
+
+    post = result.idata.posterior
+    dim = post["mu"].dims[-1]
+    names = [str(h) for h in post[dim].values]
+    keep = [i for i, h in enumerate(names) if h in true_mu and (galaxies is None or h in galaxies)]
+    mu = np.asarray(post["mu"]).reshape(-1, len(names))[:, keep]
+    d = mu.mean(axis=0) - np.array([true_mu[names[i]] for i in keep])
+    chi2 = float(d @ np.linalg.solve(np.atleast_2d(np.cov(mu.T)), d))
+    return chi2, len(keep), float(stats.chi2.sf(chi2, len(keep)))

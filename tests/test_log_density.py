@@ -1,7 +1,7 @@
 """The NUTS model's total log density against an independent implementation, for every model mode.
 
 The reference is written here with scipy.stats (normal, half-normal, uniform, truncated normal, multivariate
-normal), scipy.integrate.quad for the extinction integral, the `extinction` package for the reddening law
+normal, exponentially modified normal for the blend component), scipy.special (logit, expit), scipy.integrate.quad for the extinction integral, the `extinction` package for the reddening law
 (Fitzpatrick 1999) and the kinematic luminosity distance of Visser (2004, Class. Quantum Grav. 21, 2603,
 eq. for d_L to third order) -- none of ladder's own term code. It is evaluated at random parameter points and
 compared with numpyro's log joint of :func:`ladder.model.full_model` over the same sampler coordinates.
@@ -16,7 +16,7 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 from numpyro.infer.util import log_density
-from scipy import integrate, stats
+from scipy import integrate, special, stats
 
 import ladder
 from ladder.model import full_model, model_arrays, model_parts
@@ -34,6 +34,13 @@ MODES = {
     "multiband": ({"extinction": "multiband"}, {}),
     "multiband, uncertain R_V": ({"extinction": "multiband", "rv_err": 0.3}, {}),
     "multiband + mixture": ({"extinction": "multiband", "outliers": "mixture"}, {}),
+    "covariance tables": ({}, {"n_hubble_flow": 15, "anchor_systematic": 0.05, "sn_systematic": 0.04}),
+    "per-galaxy mixture": ({"outliers": "mixture", "outlier_fraction_model": "per_galaxy"}, {}),
+    "blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_width": 0.5}, {}),
+    "per-galaxy blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_fraction_model": "per_galaxy"},
+                         {}),
+    "multiband + per-galaxy mixture": ({"extinction": "multiband", "outliers": "mixture",
+                                        "outlier_fraction_model": "per_galaxy"}, {}),
 }
 
 
@@ -64,6 +71,8 @@ def _random_point(rng, data, settings, layout):
         v["scatter_spread"], v["host_scatter_z"] = rng.uniform(0.1, 0.5), rng.normal(0, 1, n_gal)
     if settings.outliers == "mixture":
         v["outlier_fraction"] = rng.uniform(0.02, 0.3)
+        if settings.outlier_fraction_model == "per_galaxy":
+            v["outlier_fraction_spread"], v["host_outlier_fraction_z"] = rng.uniform(0.2, 1.5), rng.normal(0, 1, n_gal)
     if settings.multiband:
         v["ebv_mean"] = rng.uniform(0.05, 0.3, n_gal)
         if settings.reddening.free:
@@ -102,8 +111,11 @@ def _reference(v, data, settings, layout):
             bias[i] = data.host_bias[i] + data.host_bias_err[i] * z
     f = None
     if "outlier_fraction" in v:
-        f = v["outlier_fraction"]
-        lp += stats.uniform.logpdf(f, 0.0, 0.5)
+        f = np.full(n_gal, v["outlier_fraction"])
+        lp += stats.uniform.logpdf(v["outlier_fraction"], 0.0, 0.5)
+    if "host_outlier_fraction_z" in v:  # logit-normal around the median (scipy.special.logit / expit)
+        lp += H(v["outlier_fraction_spread"], scale=1.0) + N(v["host_outlier_fraction_z"], 0, 1).sum()
+        f = special.expit(special.logit(v["outlier_fraction"]) + v["outlier_fraction_spread"] * v["host_outlier_fraction_z"])
     rv = settings.reddening.rv
     if "r_v" in v:
         rv = v["r_v"]
@@ -157,13 +169,25 @@ def _reference(v, data, settings, layout):
 
         core = dens(0.0)
         if f is not None:
-            core = np.logaddexp(np.log1p(-f) + core, np.log(f) + dens(settings.outlier_width**2))
+            fj = f[data.star_host[j]]
+            if settings.outlier_component == "blend":  # one magnitude, brighter by Exp(mean w): x = -r is
+                sd = np.sqrt(err[j][seen][0] ** 2 + s2)  # exponnorm(K = w / sd, scale = sd) (Grushka 1972)
+                other = stats.exponnorm.logpdf(-y[0], settings.outlier_width / sd, loc=0.0, scale=sd)
+            else:
+                other = dens(settings.outlier_width**2)
+            core = np.logaddexp(np.log1p(-fj) + core, np.log(fj) + other)
         lp += core
-    for g, i in zip(layout.anchors, np.flatnonzero(data.is_anchor)):
-        lp += N(data.mu_geo[i], mu_of[g], data.mu_geo_err[i])
+    # anchors and supernovae: independent Normals, or one multivariate normal over each block with a covariance
+    # table added to the diagonal of the stated variances (scipy.stats.multivariate_normal)
+    anchors = np.flatnonzero(data.is_anchor)
+    geo_cov = np.diag(data.mu_geo_err[anchors] ** 2)
+    if data.anchor_cov is not None:
+        geo_cov = geo_cov + data.anchor_cov[np.ix_(anchors, anchors)]
+    lp += stats.multivariate_normal([mu_of[data.host_names[i]] for i in anchors], geo_cov).logpdf(data.mu_geo[anchors])
     if layout.has_sn:
         sne, s = data.supernovae, settings.supernovae
         lp += N(v["sn_abs_mag"], -19.3, 1.0) + H(v["sn_scatter"], scale=0.3) + stats.uniform.logpdf(v["h0"], 20, 130)
+        used, locs, variances = [], [], []
         for k, name in enumerate(sne.sn_names):
             if name not in layout.supernovae:
                 continue
@@ -172,16 +196,23 @@ def _reference(v, data, settings, layout):
                 dl = C_KMS * z / v["h0"] * (1 + (1 - q0) / 2 * z - (1 - q0 - 3 * q0**2 + j0) / 6 * z**2)
                 loc = v["sn_abs_mag"] + 5 * np.log10(dl) + 25
                 pv = 5 / np.log(10) * s.sigma_v / (C_KMS * z)
-                lp += N(sne.mag[k], loc, np.sqrt(sne.mag_err[k] ** 2 + v["sn_scatter"] ** 2 + pv**2))
+                var = sne.mag_err[k] ** 2 + v["sn_scatter"] ** 2 + pv**2
             else:
-                lp += N(sne.mag[k], mu_of[data.host_names[sne.host_index[k]]] + v["sn_abs_mag"],
-                        np.sqrt(sne.mag_err[k] ** 2 + v["sn_scatter"] ** 2))
+                loc = mu_of[data.host_names[sne.host_index[k]]] + v["sn_abs_mag"]
+                var = sne.mag_err[k] ** 2 + v["sn_scatter"] ** 2
+            used.append(k), locs.append(loc), variances.append(var)
+        cov = np.diag(variances)
+        if sne.cov is not None:
+            cov = cov + sne.cov[np.ix_(used, used)]
+        lp += stats.multivariate_normal(locs, cov).logpdf(sne.mag[used])
     return float(lp)
 
 
 @pytest.mark.parametrize("mode", list(MODES))
 def test_full_model_log_density_matches_reference(tmp_path_factory, mode):
     data, settings, arrays, layout, parts = _setup(tmp_path_factory, mode)
+    if mode == "covariance tables":  # the mock's run file names both tables: the dense blocks are in the model
+        assert parts.structure.anchor_dense and parts.structure.sn_dense
     rng = np.random.default_rng(len(mode))
     for _ in range(3):
         v = _random_point(rng, data, settings, layout)

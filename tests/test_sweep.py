@@ -218,3 +218,23 @@ def test_existing_scheduler(sweep, tmp_path):
     for c in t.colnames:
         if t[c].dtype.kind == "f":
             np.testing.assert_array_equal(t[c], table[c][:2])
+
+
+def test_strict_sweep_exits_3_after_the_table(sweep, monkeypatch, tmp_path, capsys):
+    """A variant that failed (or failed its sampler diagnostics) is a marked row of the table (status, passed);
+    --strict turns it into exit 3 after the table is written, as `ladder fit --strict` does for one fit. The
+    sweep itself is the session's tiny sweep (its ``broken`` variant failed); here only the command's verdict."""
+    import ladder.sweep
+
+    run, _, table, _, _ = sweep
+    monkeypatch.setattr(ladder.sweep, "run_sweep", lambda *a, **k: table)
+    assert main(["sweep", str(run), "--out", str(tmp_path / "o")]) == 0
+    err = capsys.readouterr().err
+    assert "broken" in err and "--strict makes this exit 3" in err
+    assert main(["sweep", str(run), "--out", str(tmp_path / "o"), "--strict"]) == 3
+    gate = table.copy()
+    gate["status"][list(gate["variant"]).index("broken")] = "done"
+    gate["passed"][list(gate["variant"]).index("long_periods")] = False
+    monkeypatch.setattr(ladder.sweep, "run_sweep", lambda *a, **k: gate)
+    assert main(["sweep", str(run), "--out", str(tmp_path / "o"), "--strict"]) == 3
+    assert "sampler diagnostics failed for" in capsys.readouterr().err

@@ -87,8 +87,7 @@ BIAS_Z = 3.0  # an offset beyond 3 posterior sds is a bias, not noise (one-sided
 PARALLAX_MODULUS_ATOL = 0.01  # parallax stars, model residual vs the equation at the posterior-mean distance: 0.01 mag is far below what a residual panel (~1 mag over ~1 inch) shows
 
 # --- sampling methods (tests/test_methods.py) ---
-MARGINAL_VS_DENSE_RTOL = 1e-10  # log p(y|phi) ~ -3e3 by arrow-form Cholesky vs scipy's dense one: float64 rounding,
-# ~1e-10 relative (seen: 4e-11, i.e. 1.2e-7 absolute, with this machine's LAPACK; an absolute 1e-7 was too tight)
+MARGINAL_VS_DENSE_RTOL = 1e-9  # log p(y|phi) ~ -3e3 by arrow-form Cholesky vs scipy dense Cholesky of an n x n covariance: float64 rounding grows with n and the conditioning (measured 4e-11 relative = 1.2e-7 absolute on a fresh machine); an absolute 1e-7 was flaky
 CONDITIONAL_VS_DENSE_RTOL = 1e-8  # A^-1 b by Schur complement vs numpy.linalg.solve on the dense A; condition ~1e6, rounding only
 EXACT_DRAW_MEAN_Z = 4.5  # 4000 exact draws: each mean within 4.5 standard errors (per-parameter false alarm ~7e-6)
 METHOD_MEAN_IN_SD = 0.1  # issue 6: methods' means within 0.1 posterior sd; MC error of a difference with ESS ~2000 each ~0.03 sd
@@ -119,3 +118,20 @@ LOO_VS_ARVIZ_RTOL = 1e-9  # delta elpd and its se vs arviz.compare on the same p
 PSIS_VS_REFIT_SHIFT_ATOL = 0.45  # baseline sds; MC error of a 2x200-draw mean ~ sd/sqrt(ESS ~ 100) = 0.1 sd for the refit and more for importance weights (k <= 0.7): difference se ~ 0.15, 3 sigma
 PREDICTIVE_FLAG_P = 0.01  # a predictive p-value below 1% flags a galaxy (common practice for posterior predictive checks)
 PREDICTIVE_PASS_P = 0.005  # 200 replicates resolve p to 0.005; posterior predictive p-values of a correct model concentrate near 0.5 (they use the data twice), so none of 12 falls below 0.005 by chance for a correct model
+# --- covariance tables (tests/test_covariance.py) ---
+COV_CONDITIONAL_RTOL = 1e-8  # A^-1 b with whitened dense rows and a joint solve vs numpy inverses of the dense C; condition ~1e6, rounding only
+COV_MARGINAL_ATOL = 1e-7  # log p(y|phi) ~ -1e3, whitened blocks vs scipy's dense multivariate normal: rounding ~1e-10 relative
+COV_DIAGONAL_RTOL = 1e-10  # a diagonal table through the dense path vs the same variances on the independent path; rounding only
+COV_GLS_MEAN_IN_SD = 0.1  # 6000 exact draws: MC error of a mean is sd/77 = 0.013 sd; 0.1 sd is ~7.7 standard errors
+COV_GLS_SD_RTOL = 0.06  # 6000 exact draws: relative MC error of an sd is 1/sqrt(2 x 6000) = 0.9%; 0.06 is ~6.5 standard errors
+
+# --- calibration by simulation (tests/test_calibrate.py) ---
+CALIBRATION_SIM_KS_P = 1e-3  # KS p-value floor for standardised residuals of a simulated catalogue at its truth; false alarm 1e-3 per check
+
+# --- one-sided blend component and per-band terms (tests/test_outliers.py, tests/test_bands.py) ---
+BLEND_VS_SCIPY_RTOL = 1e-9  # same closed form as scipy.stats.exponnorm (erfc vs log_ndtr); rounding only, where the density is not tiny
+BLEND_VS_SCIPY_ATOL = 1e-9  # log densities of O(1-100); differences are float64 rounding (exp/log of ~1e-40 in the far tail)
+BLEND_QUAD_ATOL = 1e-7  # log of a QUADPACK integral with epsabs 1e-14 of a density of O(1); quadrature error ~1e-9 relative
+FRACTION_RTOL = 1e-12  # logit-normal fraction vs scipy.special.expit: the same closed form, float64 rounding only
+JOINT_CHI2_P_PASS = 1e-3  # host moduli vs truth, chi-square with the posterior covariance: a calibrated posterior fails 1 in 1000
+JOINT_CHI2_P_BIASED = 1e-3  # the simpler model on data with the effect: its chi-square must be as unlikely as that to count as biased
