@@ -33,7 +33,8 @@ def replicate_stars(key, parts, settings, params: dict):
     import jax
 
     n, k = parts.lin.y0.shape
-    k1, k2, k3, k4, k5 = jax.random.split(key, 5)
+    k1, k2, k3, k4 = jax.random.split(key, 4)
+    k1, k5 = jax.random.split(k1)
     noise = {"uniform": jax.random.uniform(k1, (n,)), "offset": jax.random.normal(k2, (n,)),
              "error": jax.random.normal(k3, (n, k)), "exponential": jax.random.exponential(k4, (n,)),
              "blend": jax.random.exponential(k5, (n,))}
