@@ -210,6 +210,7 @@ class ModelSettings:
     outlier_component: str = "broad"  # "broad" (symmetric, extra sd outlier_width) | "blend" (brighter, mean width)
     metallicity_per_band: bool = False  # [model] metallicity = "per_band" (multiband: one gamma per band)
     scatter_bands: bool = False  # multiband: an independent per-band intrinsic scatter besides the common offset
+    metallicity_errors: bool = True  # [model] metallicity_errors: use the cepheids' oh_err column when it is there
     clip_sigma: float = 3.0
     photometric_bias: bool = False
     pl_break: bool = False
@@ -255,6 +256,8 @@ class ModelSettings:
             d["outlier_component"] = self.outlier_component
         if self.scatter_bands:
             d["scatter_bands"] = True
+        if not self.metallicity_errors:
+            d["metallicity_errors"] = False
         if self.multiband:
             d["bands"] = list(self.bands)
         if self.wesenheit:
@@ -615,7 +618,8 @@ def _parse_bands(sec: _Section | None) -> tuple[tuple[str, float], ...]:
 
 _MODEL_KEYS = {"band", "bands", "metallicity", "solar_oh", "wesenheit", "priors", "extinction", "scatter", "outliers",
                "outlier_width", "clip_sigma", "photometric_bias", "pl_break", "pl_break_period", "reddening",
-               "parallax", "supernovae", "outlier_fraction", "outlier_component", "scatter_bands"}
+               "parallax", "supernovae", "outlier_fraction", "outlier_component", "scatter_bands",
+               "metallicity_errors"}
 
 
 def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
@@ -688,6 +692,7 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
         metallicity=bool(metallicity),
         metallicity_per_band=metallicity == "per_band",
         scatter_bands=scatter_bands,
+        metallicity_errors=sec.get("metallicity_errors", bool, True),
         outlier_fraction_model=fraction_model,
         outlier_component=component,
         solar_oh=sec.float_("solar_oh", SOLAR_OH_ASPLUND09, lo=5.0, hi=11.0),

@@ -32,7 +32,7 @@ __all__ = ["apply_selection", "selection_report"]
 #: LadderData fields with one entry per galaxy (everything else with one entry per star is per star).
 _HOST_FIELDS = ("host_names", "host_roles", "mu_geo", "mu_geo_err", "host_oh", "host_bias", "host_bias_err")
 _STAR_FIELDS = ("star_names", "star_host", "log_period", "mag", "mag_err", "oh", "star_rows", "parallax",
-                "parallax_err")
+                "parallax_err", "oh_err")
 
 
 def _check_names(names, data: LadderData, sel: DataSelection, key: str) -> None:

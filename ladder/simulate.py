@@ -75,6 +75,9 @@ With every switch on, star :math:`k` of galaxy :math:`g` has
   kinematic distance of :mod:`ladder.cosmography` (Visser 2004, CQG 21, 2603), and reported
   redshift :math:`z_\mathrm{obs} = z + v/c`, :math:`v \sim N(0, \sigma_v)` (peculiar velocity
   added to :math:`cz`, to first order).
+* **O/H errors** (``oh_err`` :math:`\sigma_{\mathrm{oh}}`): the magnitudes follow each star's true
+  :math:`\mathrm{oh}_k + N(0, \sigma_\mathrm{oh})`, the catalogue reports :math:`\mathrm{oh}_k` and
+  ``oh_err`` = :math:`\sigma_\mathrm{oh}` (the error of the catalogued value as an estimate of the star's).
 * **Shared systematics** (``anchor_systematic`` :math:`\sigma_a`, ``sn_systematic`` :math:`\sigma_s`): one
   offset :math:`\delta_a \sim N(0, \sigma_a)` added to every anchor's reported ``mu_geo`` (a zero-point error
   common to the geometric distances), and one :math:`\delta_s \sim N(0, \sigma_s)` added to every calibrator
@@ -118,7 +121,8 @@ WESENHEIT_BANDS = ("H", "V", "I")
 
 #: One child random stream per ingredient, in this order (append new ones at the end only).
 _STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise",
-            "parallax", "outliers", "host_scatter", "bias", "supernovae", "systematics")
+            "parallax", "outliers", "host_scatter", "bias", "supernovae", "systematics",
+            "oh_errors")
 
 _SPEED_OF_LIGHT_KMS = 299792.458  # exact (SI); same value as ladder.cosmography, which imports JAX
 
@@ -240,6 +244,11 @@ class MockSettings:
         mu_geo, with ``anchor_covariance`` (every anchor pair: anchor_systematic^2). ``sn_systematic``
         (0.0 mag, needs supernovae): one offset added to every calibrator's magnitude, with
         ``supernova_covariance`` (every calibrator pair: sn_systematic^2).
+
+    O/H errors
+        ``oh_err`` (0.0 dex): each star's true 12 + log(O/H) scatters about the catalogued ``oh`` by
+        N(0, oh_err) (the catalogue's value is an estimate for the star, e.g. read from its galaxy's abundance
+        gradient); the magnitudes follow the true value, and the cepheids table gets an ``oh_err`` column.
     """
 
     # --- sample -----------------------------------------------------------------------------
@@ -322,6 +331,8 @@ class MockSettings:
     # shared systematics (covariance tables)
     anchor_systematic: float = 0.0
     sn_systematic: float = 0.0
+    # O/H errors
+    oh_err: float = 0.0
 
     def __post_init__(self) -> None:
         for name in ("n_hosts", "n_anchors", "n_cepheids", "min_cepheids"):
@@ -413,7 +424,8 @@ class MockSettings:
         _range("outlier_shift", self.outlier_shift)
         if self.outlier_shift[0] < 0:
             raise ValueError("outlier_shift must be >= 0 (blends are brighter by that many mag)")
-        for name in ("scatter_spread", "bias_sd", "sn_scatter", "sigma_v", "anchor_systematic", "sn_systematic"):
+        for name in ("scatter_spread", "bias_sd", "sn_scatter", "sigma_v", "anchor_systematic", "sn_systematic",
+                     "oh_err"):
             if finite(name, getattr(self, name)) < 0:
                 raise ValueError(f"{name} must be >= 0, got {getattr(self, name)!r}")
         if not finite("bias_err", self.bias_err) > 0:
@@ -776,12 +788,16 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         extra -= shift
         any_extra = True
 
+    oh_true = oh
+    if s.oh_err > 0:  # the star's true O/H about the catalogued one (module docstring, "O/H errors")
+        oh_sd = np.full(n_star_all, s.oh_err)
+        oh_true = oh + oh_sd * rng["oh_errors"].standard_normal(n_star_all)
     pl = s.band_pl
     ratio = dict(zip(BANDS, s.band_extinction_ratios))
     mag = np.empty((n_star_all, len(BANDS)))
     for j, b in enumerate(BANDS):
         zp, slope = pl[b]
-        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + s.metallicity_coef * (oh - s.solar_oh)
+        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + s.metallicity_coef * (oh_true - s.solar_oh)
                      + offset + ratio[b] * a_v + noise[:, j])
         if any_extra:
             mag[:, j] += extra
@@ -800,6 +816,8 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     cep["host"] = Column(hosts_col, dtype=str)
     cep["period"] = Column(10.0**log_p, unit=u.day)
     cep["oh"] = Column(oh, unit=u.dex)
+    if s.oh_err > 0:
+        cep["oh_err"] = Column(oh_sd, unit=u.dex)
     for j, b in enumerate(BANDS):
         cep[f"mag_{b}"] = Column(mag[:, j], unit=u.mag)
         cep[f"mag_{b}_err"] = Column(err[:, j], unit=u.mag)
@@ -832,6 +850,8 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     if plx is not None:
         latent["distance_pc"] = Column(np.concatenate([np.full(n, np.nan), plx["distance_pc"]]), unit=u.pc)
         latent["mu"] = Column(np.concatenate([np.full(n, np.nan), plx["mu"]]), unit=u.mag)
+    if s.oh_err > 0:
+        latent["oh_true"] = Column(oh_true, unit=u.dex)
     if blend is not None:
         latent["outlier"] = Column(blend)
         latent["outlier_shift"] = Column(shift, unit=u.mag)
@@ -902,6 +922,8 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
             sn_cov = _shared_covariance([str(x) for x in np.asarray(sn["sn"])[cal]], s.sn_systematic,
                                         ("sn_a", "sn_b"), "calibrator supernovae's magnitudes", seed)
             truth.update(sn_systematic=float(s.sn_systematic), sn_offset=delta_s)
+    if s.oh_err > 0:
+        truth["oh_err"] = float(s.oh_err)
     truth["seed"] = seed
     truth["settings"] = dataclasses.asdict(s)
     return Mock(settings=s, seed=seed, cepheids=cep, hosts=hosts, truth=truth, latent=latent,

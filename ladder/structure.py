@@ -65,7 +65,7 @@ import numpy as np
 
 from .config import ModelSettings
 
-__all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal",
+__all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal", "star_offset_var",
            "conditional_mean", "conditional_draw", "residuals", "unpack", "pack", "LINEAR_PARAMETERS",
            "HUBBLE_TILT"]
 
@@ -98,6 +98,11 @@ class Structure:
     anchor_dense: bool = False
     sn_dense: bool = False
     dense_slots: tuple[int, ...] = ()
+    # O/H errors (oh_err): each star's offset variance gains gamma^2 oh_err^2, so gamma is a hyperparameter
+    # (``gamma_sampled``; its term moves to the data side like a parallax star's modulus) unless it is fixed
+    oh_errors: bool = False
+    gamma_sampled: bool = False
+    gamma_fixed: float = 0.0
 
     @property
     def dense(self) -> bool:
@@ -149,6 +154,9 @@ class LinearArrays(NamedTuple):
     # design of the rows with a dense covariance over (the local columns of dense_slots, the globals): (n, q)
     anchor_z: np.ndarray = np.zeros((0, 0))
     sn_z: np.ndarray = np.zeros((0, 0))
+    # O/H errors ((0,) without): the metallicity regressor [O/H]_j - [O/H]_sun and oh_err_j^2 of every star
+    oh_x: np.ndarray = np.zeros(0)
+    oh_var: np.ndarray = np.zeros(0)
 
 
 def _linear_prior(spec):
@@ -186,8 +194,11 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     band_shaped = settings.multiband
     nb = len(bands) if band_shaped else 1
     has_sn, has_flow = layout.has_sn, layout.has_flow
+    oh_var = np.asarray(getattr(arrays, "oh_var", np.zeros(0)), float)
+    oh_errors = bool(settings.metallicity and oh_var.size and np.any(oh_var > 0))
+    gamma_sampled = oh_errors and settings.prior("metallicity_coef").dist != "fixed"
     wanted = {"pl_zero_point": True, "pl_slope": True, "pl_slope_long": settings.pl_break,
-              "metallicity_coef": settings.metallicity, "sn_abs_mag": has_sn, "h0": has_flow}
+              "metallicity_coef": settings.metallicity and not gamma_sampled, "sn_abs_mag": has_sn, "h0": has_flow}
     columns, fixed, bounds = [], [], []
     for name in LINEAR_PARAMETERS:
         if not wanted[name]:
@@ -213,7 +224,9 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
         touched |= {int(x) for x in np.asarray(arrays.sn_slot) if x >= 0}
     structure = Structure(tuple(columns), tuple(fixed), n_local, layout.n_mu, tuple(bands), band_shaped,
                           tuple(bounds), bool(np.all(np.diff(slot0) >= 0)), anchor_dense, sn_dense,
-                          tuple(sorted(touched)))
+                          tuple(sorted(touched)), oh_errors, gamma_sampled,
+                          float(settings.prior("metallicity_coef").get("value")) if oh_errors and not gamma_sampled
+                          else 0.0)
 
     # The regressors are the model terms themselves (linear in their parameters), evaluated at unit parameter
     # values: M(P) of ladder.terms.pl and the offset of ladder.terms.metallicity.
@@ -327,6 +340,8 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
                 if g < G:
                     zs[k, pos[int(g)] * n_local] = 1.0
             dense.update(sn_cov=sn_cov, sn_z=zs)
+    if oh_errors:
+        dense.update(oh_x=np.asarray(oh, float), oh_var=oh_var)
     lin = LinearArrays(
         **dense,
         y0=y0, var=var, mask=mask, seen=seen, design=design, local=local, slot=slot.astype(np.int64),
@@ -360,13 +375,39 @@ def with_mask(lin: LinearArrays, mask) -> LinearArrays:
     return lin._replace(mask=jnp.asarray(mask), **{k: jnp.asarray(v) for k, v in stats.items()})
 
 
-def _star_y(lin: LinearArrays, mu_par):
-    """(N, k) data of the linear block: parallax stars' own moduli moved to the data side (0 where unseen)."""
+def star_offset_var(structure: Structure, lin: LinearArrays, offset_var, gamma=None):
+    r"""Each star's variance common to all its bands: the intrinsic :math:`s_j^2` plus, with O/H errors,
+    :math:`\gamma^2\sigma_{[\mathrm{O/H}],j}^2` (the metallicity term is linear in O/H, so an O/H error of
+    :math:`\sigma` moves every band of the star by :math:`\gamma\sigma`; the first-order propagation of the
+    error, exact for a term linear in O/H). ``gamma`` is the sampled coefficient (its fixed value otherwise)."""
+    if not structure.oh_errors:
+        return offset_var
+    g = gamma if structure.gamma_sampled else structure.gamma_fixed
+    return offset_var + g**2 * lin.oh_var
+
+
+def _star_shift(structure: Structure, lin: LinearArrays, mu_par, gamma):
+    """(N,) per-star offsets moved to the data side (common to all bands): a parallax star's own modulus and, with
+    a sampled metallicity coefficient, gamma ([O/H]_j - [O/H]_sun); None when there is none."""
+    import jax.numpy as jnp
+
+    m = None
+    if lin.par_star.shape[0]:
+        m = jnp.zeros(lin.sw.shape).at[lin.par_star].set(mu_par)
+    if structure.gamma_sampled:
+        m = gamma * lin.oh_x if m is None else m + gamma * lin.oh_x
+    return m
+
+
+def _star_y(structure: Structure, lin: LinearArrays, mu_par, gamma=None):
+    """(N, k) data of the linear block: parallax stars' own moduli (and a sampled metallicity term) moved to the
+    data side (0 where unseen)."""
     import jax.numpy as jnp
 
     y = jnp.asarray(lin.y0)
-    if lin.par_star.shape[0]:
-        y = y.at[lin.par_star].add(-mu_par[:, None])
+    m = _star_shift(structure, lin, mu_par, gamma)
+    if m is not None:
+        y = y - m[:, None]
     return jnp.where(lin.seen, y, 0.0)
 
 
@@ -384,12 +425,13 @@ class NormalEquations(NamedTuple):
 
 
 def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
-                     include_prior: bool = True) -> NormalEquations:
+                     include_prior: bool = True, gamma=None) -> NormalEquations:
     r"""Accumulate :math:`A = X^T\Sigma^{-1}X\ [+ P_0]` and :math:`b = X^T\Sigma^{-1}y\ [+ P_0 m_0 + \tau]`
     in arrow form, plus :math:`y^T\Sigma^{-1}y` and :math:`\ln|\Sigma|`.
 
     ``offset_var`` (N,) is each star's :math:`s_j^2`; ``mu_par`` (n_par,) the parallax stars' moduli;
-    ``sn_extra_var`` the SN intrinsic variance :math:`\sigma_\mathrm{SN}^2`. JAX; differentiable.
+    ``sn_extra_var`` the SN intrinsic variance :math:`\sigma_\mathrm{SN}^2`; ``gamma`` the metallicity
+    coefficient when it is a hyperparameter (O/H errors, :func:`star_offset_var`). JAX; differentiable.
     """
     import jax
     import jax.numpy as jnp
@@ -400,10 +442,11 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
     # Per star: C_j^-1 = W - c_j w w^T (Sherman-Morrison), so every inner product is a constant statistic
     # minus c_j times products of the constants sw, g, t; parallax stars' moduli m_j shift their data.
     sw, g = lin.sw, lin.g
+    offset_var = star_offset_var(structure, lin, offset_var, gamma)
     c = offset_factor(offset_var, sw)
     d = 1.0 / (1.0 + offset_var * sw)  # = 1 - c sw
-    if lin.par_star.shape[0]:
-        m = jnp.zeros(sw.shape).at[lin.par_star].set(mu_par)
+    m = _star_shift(structure, lin, mu_par, gamma)
+    if m is not None:
         t = lin.t0 - sw * m
         b_raw = lin.b0 - g.T @ m
         yy_raw = lin.yy0 - 2.0 * jnp.dot(m, lin.t0) + jnp.dot(m * m, sw)
@@ -597,11 +640,11 @@ def _split_dense(structure: Structure, sol: _Solved, ext):
     return loc, h
 
 
-def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
+def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0, gamma=None):
     r""":math:`\ln p(y \mid \phi)` with the linear block integrated out exactly (see the module docstring)."""
     import jax.numpy as jnp
 
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, gamma=gamma)
     sol = _solve(eq, structure.dense_slots)
     proper_l = lin.prior_prec_local > 0
     proper = lin.prior_prec > 0
@@ -614,12 +657,12 @@ def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=Non
 
 
 def conditional_mean(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
-                     include_prior: bool = True):
+                     include_prior: bool = True, gamma=None):
     r""":math:`E[\theta \mid y, \phi] = A^{-1} b`: ``(theta_local (G, L), theta_global (p,))``.
 
     With ``include_prior=False`` (and no tilt) this is the weighted least-squares solution (Aitken 1935,
     Proc. R. Soc. Edinburgh 55, 42)."""
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, include_prior)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, include_prior, gamma)
     if not include_prior:  # keep empty bias columns inert
         import jax.numpy as jnp
 
@@ -629,7 +672,8 @@ def conditional_mean(structure: Structure, lin: LinearArrays, offset_var, mu_par
     return _split_dense(structure, sol, sol.mean_h)
 
 
-def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
+def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
+                     gamma=None):
     r"""One exact draw of :math:`\theta \sim \mathcal N(A^{-1}b, A^{-1})`: ``(theta_local, theta_global)``.
 
     Globals first, :math:`\theta_\mathrm{glob} = \hat\theta + L_S^{-T} z` with :math:`S = L_S L_S^T`, then each
@@ -639,7 +683,7 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
     import jax.numpy as jnp
     from jax.scipy.linalg import solve_triangular
 
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, gamma=gamma)
     sol = _solve(eq, structure.dense_slots)
     k1, k2 = jax.random.split(key)
     p = sol.mean_h.shape[0]
@@ -654,12 +698,12 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
     return loc, h
 
 
-def residuals(structure: Structure, lin: LinearArrays, theta_local, theta_global, mu_par=None):
+def residuals(structure: Structure, lin: LinearArrays, theta_local, theta_global, mu_par=None, gamma=None):
     r"""(N, k) residuals :math:`y_{jB} - e_j^T\theta_{\mathrm{loc},i} - G_{jB}^T\theta_\mathrm{glob}` of every
     Cepheid (observed minus predicted; 0 where not observed). The one prediction every consumer uses."""
     import jax.numpy as jnp
 
-    y = _star_y(lin, mu_par)
+    y = _star_y(structure, lin, mu_par, gamma)
     loc = jnp.concatenate([theta_local, jnp.zeros((1, structure.n_local))], axis=0)[lin.slot]  # (N, L)
     pred = jnp.sum(lin.local * loc, axis=1)[:, None] + jnp.einsum("nkp,p->nk", lin.design, theta_global)
     return jnp.where(lin.seen, y - pred, 0.0)

@@ -35,6 +35,8 @@ MODES = {
     "multiband, uncertain R_V": ({"extinction": "multiband", "rv_err": 0.3}, {}),
     "multiband + mixture": ({"extinction": "multiband", "outliers": "mixture"}, {}),
     "covariance tables": ({}, {"n_hubble_flow": 15, "anchor_systematic": 0.05, "sn_systematic": 0.04}),
+    "metallicity errors": ({}, {"oh_err": 0.2}),
+    "metallicity errors, multiband": ({"extinction": "multiband"}, {"oh_err": 0.2}),
     "per-galaxy mixture": ({"outliers": "mixture", "outlier_fraction_model": "per_galaxy"}, {}),
     "blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_width": 0.5}, {}),
     "per-galaxy blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_fraction_model": "per_galaxy"},
@@ -153,6 +155,8 @@ def _reference(v, data, settings, layout):
         seen = np.isfinite(mag[j])
         y = (mag[j] - pred0[j] - star_mu[j])[seen]
         s2 = scatter[data.star_host[j]] ** 2
+        if data.oh_err is not None and settings.metallicity_errors:  # O/H error: gamma^2 oh_err^2 on the offset
+            s2 = s2 + v["metallicity_coef"] ** 2 * data.oh_err[j] ** 2
 
         def dens(extra):
             cov = np.diag(err[j][seen] ** 2) + (s2 + extra) * np.ones((seen.sum(), seen.sum()))
@@ -213,6 +217,8 @@ def test_full_model_log_density_matches_reference(tmp_path_factory, mode):
     data, settings, arrays, layout, parts = _setup(tmp_path_factory, mode)
     if mode == "covariance tables":  # the mock's run file names both tables: the dense blocks are in the model
         assert parts.structure.anchor_dense and parts.structure.sn_dense
+    if mode.startswith("metallicity errors"):  # the coefficient is a hyperparameter of the structure
+        assert parts.structure.gamma_sampled and "metallicity_coef" not in dict(parts.structure.columns)
     rng = np.random.default_rng(len(mode))
     for _ in range(3):
         v = _random_point(rng, data, settings, layout)

@@ -118,7 +118,8 @@ def _band_model(result, arrays=None, means=None):
     n, k = obs.shape
     tl, tg = theta_from_params(parts, p)
     mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
-    pred = np.asarray(parts.observed) - np.asarray(residuals(parts.structure, parts.lin, tl, tg, mu_par))
+    gamma_h = p["metallicity_coef"] if parts.structure.gamma_sampled else None  # a hyperparameter with oh_err
+    pred = np.asarray(parts.observed) - np.asarray(residuals(parts.structure, parts.lin, tl, tg, mu_par, gamma_h))
     absolute = np.asarray(data.is_parallax_group)[data.star_host]
     own = np.zeros(n)
     if mu_par is not None:
