@@ -79,6 +79,7 @@ class ModelArrays(NamedTuple):
     sn_mag: np.ndarray
     sn_err: np.ndarray
     sn_z: np.ndarray  # 1 for calibrators (unused)
+    sn_z_hel: np.ndarray = np.zeros(0)  # heliocentric redshift (= sn_z where not given; 1 for calibrators)
     anchor_cov: np.ndarray = np.zeros((0, 0))  # (n_anchors, n_anchors) covariance table, mag^2; (0, 0): none
     oh_var: np.ndarray = np.zeros(0)  # (n_stars,) oh_err^2, dex^2, when the metallicity term uses it; (0,): none
     sn_cov: np.ndarray = np.zeros((0, 0))  # (n_sn, n_sn) covariance table, mag^2; (0, 0): none
@@ -237,6 +238,8 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         sn_cov=np.asarray(sne.cov[np.ix_(sn_keep, sn_keep)], float) if sne is not None and sne.cov is not None
         else np.zeros((0, 0)),
         oh_var=oh_var,
+        sn_z_hel=(np.where(sn_slot < 0, sne.z_hel[sn_keep] if sne.z_hel is not None else sne.z[sn_keep], 1.0)
+                  if sne is not None else np.zeros(0)),
     )
     layout = Layout(
         galaxies=tuple(data.host_names),

@@ -75,6 +75,8 @@ def _subset(data: LadderData, keep_hosts: np.ndarray, keep_stars: np.ndarray) ->
                       "z": sne.z[k], "host_index": np.where(flow[k], HUBBLE_FLOW, new_index[np.where(flow, 0, sne.host_index)][k])}
         if sne.host_names:
             sn_changes["host_names"] = changes["host_names"]
+        if sne.z_hel is not None:
+            sn_changes["z_hel"] = sne.z_hel[k]
         if sne.cov is not None:  # the marginal of a Gaussian over the kept rows: drop the others' rows and columns
             sn_changes["cov"] = sne.cov[np.ix_(k, k)]
         changes["supernovae"] = dataclasses.replace(sne, **sn_changes)

@@ -122,7 +122,7 @@ WESENHEIT_BANDS = ("H", "V", "I")
 #: One child random stream per ingredient, in this order (append new ones at the end only).
 _STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise",
             "parallax", "outliers", "host_scatter", "bias", "supernovae", "systematics",
-            "oh_errors")
+            "oh_errors", "heliocentric")
 
 _SPEED_OF_LIGHT_KMS = 299792.458  # exact (SI); same value as ladder.cosmography, which imports JAX
 
@@ -249,6 +249,12 @@ class MockSettings:
         ``oh_err`` (0.0 dex): each star's true 12 + log(O/H) scatters about the catalogued ``oh`` by
         N(0, oh_err) (the catalogue's value is an estimate for the star, e.g. read from its galaxy's abundance
         gradient); the magnitudes follow the true value, and the cepheids table gets an ``oh_err`` column.
+
+    Heliocentric redshifts
+        ``sn_heliocentric_kms`` (0.0: none, no ``z_hel`` column): the observer's speed relative to the CMB
+        frame (about 370 km/s for the Sun, from memory); each Hubble-flow SN is seen in a random direction, its
+        heliocentric redshift 1 + z_hel = (1 + z_obs)(1 + v cos(theta) / c), and its luminosity distance
+        (1 + z_hel) d_C(z) (Davis et al. 2011, ApJ 741, 67). The supernovae table gets a ``z_hel`` column.
     """
 
     # --- sample -----------------------------------------------------------------------------
@@ -333,6 +339,8 @@ class MockSettings:
     sn_systematic: float = 0.0
     # O/H errors
     oh_err: float = 0.0
+    # heliocentric redshifts of the Hubble flow (the Sun's speed relative to the CMB frame, km/s)
+    sn_heliocentric_kms: float = 0.0
 
     def __post_init__(self) -> None:
         for name in ("n_hosts", "n_anchors", "n_cepheids", "min_cepheids"):
@@ -425,7 +433,7 @@ class MockSettings:
         if self.outlier_shift[0] < 0:
             raise ValueError("outlier_shift must be >= 0 (blends are brighter by that many mag)")
         for name in ("scatter_spread", "bias_sd", "sn_scatter", "sigma_v", "anchor_systematic", "sn_systematic",
-                     "oh_err"):
+                     "oh_err", "sn_heliocentric_kms"):
             if finite(name, getattr(self, name)) < 0:
                 raise ValueError(f"{name} must be >= 0, got {getattr(self, name)!r}")
         if not finite("bias_err", self.bias_err) > 0:
@@ -610,7 +618,7 @@ def _parallax_group(s: MockSettings, rng: np.random.Generator) -> dict[str, np.n
 
 
 def _supernovae(s: MockSettings, rng: np.random.Generator, names: list[str], mu: np.ndarray,
-                is_host: np.ndarray):
+                is_host: np.ndarray, rng_hel: np.random.Generator | None = None):
     """Supernovae table and its latent table (module docstring, "Supernovae")."""
     import astropy.units as u
     from astropy.table import Column, MaskedColumn, Table
@@ -634,6 +642,11 @@ def _supernovae(s: MockSettings, rng: np.random.Generator, names: list[str], mu:
     mu_cal = mu[cal]
     mu_flow = np.asarray(distance_modulus(z, s.h0, s.q0, s.j0), dtype=float)
     z_obs = z + v_pec / SPEED_OF_LIGHT_KMS
+    z_hel = None
+    if s.sn_heliocentric_kms > 0:  # d_L = (1 + z_hel) d_C(z) = (1 + z_hel) / (1 + z) d_L(z)
+        cos = 2.0 * rng_hel.random(n_flow) - 1.0
+        z_hel = (1.0 + z_obs) * (1.0 + s.sn_heliocentric_kms * cos / SPEED_OF_LIGHT_KMS) - 1.0
+        mu_flow = mu_flow + 5.0 * np.log10((1.0 + z_hel) / (1.0 + z))
 
     width = max(4, len(str(n_flow)))
     sn_names = [f"{names[g]}-sn1" for g in cal] + [f"flow-sn{k + 1:0{width}d}" for k in range(n_flow)]
@@ -647,6 +660,8 @@ def _supernovae(s: MockSettings, rng: np.random.Generator, names: list[str], mu:
     table["mag_err"] = Column(np.concatenate([cal_err, flow_err]), unit=u.mag)
     table["z"] = MaskedColumn(np.concatenate([np.zeros(n_cal), z_obs]),
                               mask=np.arange(n_cal + n_flow) < n_cal)
+    if z_hel is not None:
+        table["z_hel"] = MaskedColumn(np.concatenate([np.zeros(n_cal), z_hel]), mask=np.arange(n_cal + n_flow) < n_cal)
     latent = Table()
     latent["sn"] = Column(sn_names, dtype=str)
     latent["mu"] = Column(mu_all, unit=u.mag)
@@ -902,7 +917,7 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         truth["bias_sd"] = float(s.bias_sd)
     sn = sn_latent = None
     if s.n_hubble_flow:
-        sn, sn_latent = _supernovae(s, rng["supernovae"], names, mu, is_host_gal[:n_gal])
+        sn, sn_latent = _supernovae(s, rng["supernovae"], names, mu, is_host_gal[:n_gal], rng["heliocentric"])
         sn.meta["description"] += f" seed {seed}"
         truth.update(h0=float(s.h0), sn_abs_mag=float(s.sn_abs_mag), sn_scatter=float(s.sn_scatter),
                      sigma_v=float(s.sigma_v), q0=float(s.q0), j0=float(s.j0))

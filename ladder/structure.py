@@ -187,7 +187,7 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     """The static :class:`Structure` and the :class:`LinearArrays` for fitted data ``obs``, ``err``, ``mask``
     ((N, k): a band, the Wesenheit index at fixed R, or every band). ``arrays``/``layout`` from
     :func:`ladder.model.model_arrays`."""
-    from .cosmography import distance_modulus, peculiar_velocity_mag
+    from .cosmography import distance_modulus, heliocentric_correction_mag, peculiar_velocity_mag
 
     n, k = obs.shape
     bands = layout.bands
@@ -309,6 +309,9 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
         z = np.asarray(arrays.sn_z, float)
         s = settings.supernovae
         mu1 = np.asarray(distance_modulus(np.where(flow, z, 1.0), 1.0, s.q0, s.j0), float)
+        z_hel = np.asarray(getattr(arrays, "sn_z_hel", z), float)
+        if z_hel.shape == z.shape:  # d_L = (1 + z_hel) d_C(z_cmb) (ladder.cosmography.heliocentric_correction_mag)
+            mu1 = mu1 + np.asarray(heliocentric_correction_mag(np.where(flow, z_hel, 1.0), np.where(flow, z, 1.0)))
         sn_y = np.where(flow, sn_y - mu1, sn_y)
         sn_var = sn_var + np.where(flow, np.asarray(peculiar_velocity_mag(np.where(flow, z, 1.0), s.sigma_v)) ** 2,
                                    0.0)

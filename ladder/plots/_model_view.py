@@ -241,7 +241,8 @@ def _sn_points(result) -> _SNPoints:
         if h >= 0:
             expected[k] = float(calibrator_magnitude(mu_mean[cols[h]], m_sn))
         elif np.isfinite(h0):
-            expected[k] = float(hubble_flow_magnitude(z[k], h0, m_sn, s.q0, s.j0))
+            z_hel = None if sne.z_hel is None else sne.z_hel[k]
+            expected[k] = float(hubble_flow_magnitude(z[k], h0, m_sn, s.q0, s.j0, z_hel))
     return _SNPoints(names=tuple(sne.sn_names), mag=np.asarray(sne.mag, float), err=np.asarray(sne.mag_err, float),
                      z=z, flow=flow, fitted=np.array([nm in fitted_names for nm in sne.sn_names]),
                      host=tuple(hosts), model=expected)
