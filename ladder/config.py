@@ -181,6 +181,18 @@ class SupernovaSettings:
     #   Lambda-CDM with the same q0, j0 (measured 5.1e-5 at z = 0.15 in tests/test_cosmography.py).
     z_min: float = 0.025
     z_max: float = 0.15
+    # q0 and j0 free (hyperparameters) with these priors; None: fixed at q0, j0 above (q0, j0 are then the priors'
+    # centres, the point about which the model expands)
+    q0_prior: PriorSpec | None = None
+    j0_prior: PriorSpec | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        d = {k: v for k, v in dataclasses.asdict(self).items() if not k.endswith("_prior")}
+        for k in ("q0", "j0"):
+            spec = getattr(self, f"{k}_prior")
+            if spec is not None:
+                d[k] = spec.to_dict()
+        return d
 
 
 EXTINCTION_MODES = ("none", "multiband")
@@ -266,7 +278,7 @@ class ModelSettings:
                 {"bands": list(w.bands), "r": w.r, "r_err": w.r_err}
         d["reddening"] = dataclasses.asdict(self.reddening)
         d["parallax"] = dataclasses.asdict(self.parallax)
-        d["supernovae"] = dataclasses.asdict(self.supernovae)
+        d["supernovae"] = self.supernovae.to_dict()
         d["priors"] = {k: v.to_dict() for k, v in self.priors}
         return {"model": d, "bands": {b: {"wavelength_um": w} for b, w in self.wavelengths}}
 
@@ -593,8 +605,20 @@ def _parse_supernovae(sec: _Section | None) -> SupernovaSettings:
     d = SupernovaSettings()
     if sec is None:
         return d
-    sec.check_keys({f.name for f in dataclasses.fields(SupernovaSettings)})
-    out = SupernovaSettings(q0=sec.float_("q0", d.q0), j0=sec.float_("j0", d.j0),
+    sec.check_keys({"q0", "j0", "sigma_v", "z_min", "z_max"})
+    free = {}
+    for k in ("q0", "j0"):  # a number (fixed, as before) or a prior as in [model.priors]
+        if isinstance(sec.raw.get(k), dict):
+            spec = PriorSpec.parse(sec.raw[k], file=sec.file, key=sec._key(k))
+            if spec.dist not in ("normal", "uniform", "fixed"):
+                raise InputError(f"a {spec.dist} prior on {k}: use normal, uniform or fixed", file=sec.file,
+                                 key=sec._key(k))
+            centre = {"normal": lambda: spec.get("loc"), "fixed": lambda: spec.get("value"),
+                      "uniform": lambda: 0.5 * (spec.get("low") + spec.get("high"))}[spec.dist]()
+            free[k] = (centre, None if spec.dist == "fixed" else spec)
+    out = SupernovaSettings(q0=free["q0"][0] if "q0" in free else sec.float_("q0", d.q0),
+                            j0=free["j0"][0] if "j0" in free else sec.float_("j0", d.j0),
+                            q0_prior=free.get("q0", (0, None))[1], j0_prior=free.get("j0", (0, None))[1],
                             sigma_v=sec.float_("sigma_v", d.sigma_v, lo=0.0),
                             z_min=sec.float_("z_min", d.z_min, lo=0.0),
                             z_max=sec.float_("z_max", d.z_max, lo=0.0, open_lo=True))

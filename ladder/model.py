@@ -49,7 +49,7 @@ __all__ = ["ModelArrays", "Layout", "model_arrays", "ModelParts", "model_parts",
 #: Global parameters in output order (vector-valued ones get one row per band).
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
                      "band_scatter", "wesenheit_r", "r_v", "outlier_fraction", "outlier_fraction_spread",
-                     "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag", "sn_scatter")
+                     "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag", "sn_scatter", "q0", "j0")
 #: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
 DERIVED_PER_STAR = ("outlier_prob", "ebv")
 
@@ -273,12 +273,15 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
         "outlier_fraction_spread": settings.outliers == "mixture" and settings.outlier_fraction_model == "per_galaxy",
         "parallax_offset": par, "parallax_length_scale": par and settings.parallax.length_scale_pc is None,
         "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
+        "q0": flow and settings.supernovae.q0_prior is not None,  # [model.supernovae] q0 = { dist = ... }
+        "j0": flow and settings.supernovae.j0_prior is not None,
     }
     names = []
     for name in GLOBAL_PARAMETERS:
         if not wanted[name]:
             continue
-        if name in ("wesenheit_r", "r_v", "parallax_length_scale") or settings.prior(name).dist != "fixed":
+        if name in ("wesenheit_r", "r_v", "parallax_length_scale", "q0", "j0") or \
+                settings.prior(name).dist != "fixed":
             names.append(name)
     return names
 
@@ -469,6 +472,28 @@ def _metallicity_site(parts: ModelParts, settings: ModelSettings):
     return sample_parameter("metallicity_coef", settings.prior("metallicity_coef"))
 
 
+def _cosmology_sites(parts: ModelParts, settings: ModelSettings):
+    """q0, j0 as hyperparameters when the run file gives them a prior ([model.supernovae] q0 = { dist = ... }):
+    ``(q0, j0)`` for :func:`ladder.structure.sn_rows_y`, else None."""
+    st = parts.structure
+    if not (st.q0_sampled or st.j0_sampled):
+        return None
+    from .priors import sample_parameter
+
+    s = settings.supernovae
+    q0 = sample_parameter("q0", s.q0_prior) if st.q0_sampled else s.q0
+    j0 = sample_parameter("j0", s.j0_prior) if st.j0_sampled else s.j0
+    return (q0, j0)
+
+
+def cosmo_from_params(parts: ModelParts, params: dict):
+    """``(q0, j0)`` for :func:`ladder.structure.sn_rows_y` from output-named ``params`` (None when both fixed)."""
+    st = parts.structure
+    if not (st.q0_sampled or st.j0_sampled):
+        return None
+    return (params["q0"] if st.q0_sampled else st.q0_ref, params["j0"] if st.j0_sampled else st.j0_ref)
+
+
 def gamma_from_params(parts: ModelParts, params: dict):
     """The metallicity coefficient the structure's functions take as ``gamma`` (None unless it is sampled as a
     hyperparameter)."""
@@ -499,7 +524,9 @@ def marginal_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     sn_var = 0.0
     if layout.has_sn:
         sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
-    numpyro.factor("linear_marginal", log_marginal(parts.structure, parts.lin, offset_var, mu_par, sn_var, gamma))
+    cosmo = _cosmology_sites(parts, settings)
+    numpyro.factor("linear_marginal", log_marginal(parts.structure, parts.lin, offset_var, mu_par, sn_var, gamma,
+                                                   cosmo))
 
 
 # ----------------------------------------------------------------------------- the full model (NUTS)
@@ -604,12 +631,14 @@ def _rows_logpdf(y, loc, var, table, dense: bool):
     return norm.logpdf(z) - jnp.log(jnp.diagonal(chol))
 
 
-def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0):
+def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0, cosmo=None):
     """Pointwise log densities of the anchors' geometric moduli and of the supernovae at these parameters:
     ``(anchors (n_anchor,), supernovae (n_sn,))``; the rows of :mod:`ladder.structure`. With a covariance table
     (``[data] anchor_covariance`` / ``supernova_covariance``) each row's value is its density given the rows
     before it (:func:`_rows_logpdf`), so the sum is the multivariate normal density of the block."""
     import jax.numpy as jnp
+
+    from .structure import sn_rows_y
 
     st, lin, G = parts.structure, parts.lin, parts.structure.n_galaxies
     a = _rows_logpdf(lin.anchor_y, theta_local[lin.anchor_slot, 0], lin.anchor_var, lin.anchor_cov,
@@ -617,7 +646,7 @@ def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0)
     if lin.sn_slot.shape[0]:
         mu = jnp.concatenate([theta_local[:, 0], jnp.zeros(1)])[lin.sn_slot]
         loc = jnp.where(lin.sn_slot < G, mu, 0.0) + lin.sn_design @ theta_global
-        sn = _rows_logpdf(lin.sn_y, loc, lin.sn_var + sn_extra_var, lin.sn_cov, st.sn_dense)
+        sn = _rows_logpdf(sn_rows_y(st, lin, cosmo), loc, lin.sn_var + sn_extra_var, lin.sn_cov, st.sn_dense)
     else:
         sn = jnp.zeros(0)
     return a, sn
@@ -730,7 +759,7 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     sn_var = 0.0
     if layout.has_sn:
         sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
-    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var)
+    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var, _cosmology_sites(parts, settings))
     numpyro.factor("anchors_and_supernovae", jnp.sum(a_ll) + jnp.sum(sn_ll))
 
 
@@ -779,7 +808,7 @@ def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
     q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction)
     sn_var = params["sn_scatter"] ** 2 if "sn_scatter" in params else \
         (jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2 if parts.lin.sn_slot.shape[0] else 0.0)
-    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var)
+    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var, cosmo_from_params(parts, params))
     clean = resid if extinction is None else resid - ebv[:, None] * extinction[0][None, :]
     w = jnp.where(parts.lin.seen, 1.0 / parts.lin.var, 0.0)
     star_resid = jnp.sum(w * clean, axis=1) / jnp.sum(w, axis=1)

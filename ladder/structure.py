@@ -66,6 +66,7 @@ import numpy as np
 from .config import ModelSettings
 
 __all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal", "star_offset_var",
+           "sn_rows_y",
            "conditional_mean", "conditional_draw", "residuals", "unpack", "pack", "LINEAR_PARAMETERS",
            "HUBBLE_TILT"]
 
@@ -103,6 +104,12 @@ class Structure:
     oh_errors: bool = False
     gamma_sampled: bool = False
     gamma_fixed: float = 0.0
+    # q0, j0 with a prior (hyperparameters): the Hubble-flow data are shifted from the expansion about
+    # (q0_ref, j0_ref) to the sampled values (:func:`sn_rows_y`)
+    q0_sampled: bool = False
+    j0_sampled: bool = False
+    q0_ref: float = -0.55
+    j0_ref: float = 1.0
 
     @property
     def dense(self) -> bool:
@@ -157,6 +164,9 @@ class LinearArrays(NamedTuple):
     # O/H errors ((0,) without): the metallicity regressor [O/H]_j - [O/H]_sun and oh_err_j^2 of every star
     oh_x: np.ndarray = np.zeros(0)
     oh_var: np.ndarray = np.zeros(0)
+    # free q0/j0 ((0,) without): each SN's CMB-frame redshift (1 for calibrators) and whether it is in the flow
+    sn_zf: np.ndarray = np.zeros(0)
+    sn_flow: np.ndarray = np.zeros(0, bool)
 
 
 def _linear_prior(spec):
@@ -226,7 +236,9 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
                           tuple(bounds), bool(np.all(np.diff(slot0) >= 0)), anchor_dense, sn_dense,
                           tuple(sorted(touched)), oh_errors, gamma_sampled,
                           float(settings.prior("metallicity_coef").get("value")) if oh_errors and not gamma_sampled
-                          else 0.0)
+                          else 0.0, bool(has_flow and settings.supernovae.q0_prior is not None),
+                          bool(has_flow and settings.supernovae.j0_prior is not None), float(settings.supernovae.q0),
+                          float(settings.supernovae.j0))
 
     # The regressors are the model terms themselves (linear in their parameters), evaluated at unit parameter
     # values: M(P) of ladder.terms.pl and the offset of ladder.terms.metallicity.
@@ -345,6 +357,9 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
             dense.update(sn_cov=sn_cov, sn_z=zs)
     if oh_errors:
         dense.update(oh_x=np.asarray(oh, float), oh_var=oh_var)
+    if structure.q0_sampled or structure.j0_sampled:
+        flow_rows = np.asarray(arrays.sn_slot) < 0
+        dense.update(sn_zf=np.where(flow_rows, np.asarray(arrays.sn_z, float), 1.0), sn_flow=flow_rows)
     lin = LinearArrays(
         **dense,
         y0=y0, var=var, mask=mask, seen=seen, design=design, local=local, slot=slot.astype(np.int64),
@@ -376,6 +391,23 @@ def with_mask(lin: LinearArrays, mask) -> LinearArrays:
     mask = np.asarray(mask, bool)
     stats = _statistics(mask, np.asarray(lin.var), np.asarray(lin.y0), np.asarray(lin.design))
     return lin._replace(mask=jnp.asarray(mask), **{k: jnp.asarray(v) for k, v in stats.items()})
+
+
+def sn_rows_y(structure: Structure, lin: LinearArrays, cosmo=None):
+    r"""The supernova rows' data: ``lin.sn_y`` (Hubble flow: :math:`m - \mu(z; H_0{=}1, q_0, j_0)` at the run's
+    q0, j0), moved to the sampled ``cosmo = (q0, j0)`` when they are hyperparameters:
+    :math:`+\,\mu(z; 1, q_{0,\mathrm{ref}}, j_{0,\mathrm{ref}}) - \mu(z; 1, q_0, j_0)` on the flow rows."""
+    import jax.numpy as jnp
+
+    if not (structure.q0_sampled or structure.j0_sampled) or cosmo is None:
+        return lin.sn_y
+    from .cosmography import distance_modulus
+
+    q0 = cosmo[0] if structure.q0_sampled else structure.q0_ref
+    j0 = cosmo[1] if structure.j0_sampled else structure.j0_ref
+    shift = distance_modulus(lin.sn_zf, 1.0, structure.q0_ref, structure.j0_ref) - \
+        distance_modulus(lin.sn_zf, 1.0, q0, j0)
+    return lin.sn_y + jnp.where(lin.sn_flow, shift, 0.0)
 
 
 def star_offset_var(structure: Structure, lin: LinearArrays, offset_var, gamma=None):
@@ -428,7 +460,7 @@ class NormalEquations(NamedTuple):
 
 
 def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
-                     include_prior: bool = True, gamma=None) -> NormalEquations:
+                     include_prior: bool = True, gamma=None, cosmo=None) -> NormalEquations:
     r"""Accumulate :math:`A = X^T\Sigma^{-1}X\ [+ P_0]` and :math:`b = X^T\Sigma^{-1}y\ [+ P_0 m_0 + \tau]`
     in arrow form, plus :math:`y^T\Sigma^{-1}y` and :math:`\ln|\Sigma|`.
 
@@ -490,7 +522,8 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
         n_obs = n_obs + lin.anchor_slot.shape[0]
     # supernovae: calibrators mu + M_SN, flow M_SN - a
     if lin.sn_slot.shape[0] and structure.sn_dense:
-        zz, zy, qq, ld = whitened_rows(lin.sn_z, lin.sn_y, lin.sn_var + sn_extra_var, lin.sn_cov)
+        zz, zy, qq, ld = whitened_rows(lin.sn_z, sn_rows_y(structure, lin, cosmo), lin.sn_var + sn_extra_var,
+                                       lin.sn_cov)
         dd, db, yy, logdet = dd + zz, db + zy, yy + qq, logdet + ld
         n_obs = n_obs + lin.sn_slot.shape[0]
     elif lin.sn_slot.shape[0]:
@@ -500,12 +533,13 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
         cal = lin.sn_slot < G
         slot = jnp.minimum(lin.sn_slot, G - 1) if G else lin.sn_slot
         hh = hh + jnp.einsum("n,np,nq->pq", sw_, X, X)
-        bh = bh + jnp.einsum("n,np->p", sw_ * lin.sn_y, X)
+        sn_y = sn_rows_y(structure, lin, cosmo)
+        bh = bh + jnp.einsum("n,np->p", sw_ * sn_y, X)
         if G:
             ll = ll.at[slot, 0, 0].add(jnp.where(cal, sw_, 0.0))
             lh = lh.at[slot, 0, :].add(jnp.where(cal, sw_, 0.0)[:, None] * X)
-            bl = bl.at[slot, 0].add(jnp.where(cal, sw_ * lin.sn_y, 0.0))
-        yy = yy + jnp.sum(sw_ * lin.sn_y**2)
+            bl = bl.at[slot, 0].add(jnp.where(cal, sw_ * sn_y, 0.0))
+        yy = yy + jnp.sum(sw_ * sn_y**2)
         logdet = logdet + jnp.sum(jnp.log(v))
         n_obs = n_obs + lin.sn_slot.shape[0]
     if include_prior:
@@ -643,11 +677,12 @@ def _split_dense(structure: Structure, sol: _Solved, ext):
     return loc, h
 
 
-def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0, gamma=None):
+def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0, gamma=None,
+                 cosmo=None):
     r""":math:`\ln p(y \mid \phi)` with the linear block integrated out exactly (see the module docstring)."""
     import jax.numpy as jnp
 
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, gamma=gamma)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, gamma=gamma, cosmo=cosmo)
     sol = _solve(eq, structure.dense_slots)
     proper_l = lin.prior_prec_local > 0
     proper = lin.prior_prec > 0
@@ -660,12 +695,12 @@ def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=Non
 
 
 def conditional_mean(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
-                     include_prior: bool = True, gamma=None):
+                     include_prior: bool = True, gamma=None, cosmo=None):
     r""":math:`E[\theta \mid y, \phi] = A^{-1} b`: ``(theta_local (G, L), theta_global (p,))``.
 
     With ``include_prior=False`` (and no tilt) this is the weighted least-squares solution (Aitken 1935,
     Proc. R. Soc. Edinburgh 55, 42)."""
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, include_prior, gamma)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, include_prior, gamma, cosmo)
     if not include_prior:  # keep empty bias columns inert
         import jax.numpy as jnp
 
@@ -676,7 +711,7 @@ def conditional_mean(structure: Structure, lin: LinearArrays, offset_var, mu_par
 
 
 def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
-                     gamma=None):
+                     gamma=None, cosmo=None):
     r"""One exact draw of :math:`\theta \sim \mathcal N(A^{-1}b, A^{-1})`: ``(theta_local, theta_global)``.
 
     Globals first, :math:`\theta_\mathrm{glob} = \hat\theta + L_S^{-T} z` with :math:`S = L_S L_S^T`, then each
@@ -686,7 +721,7 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
     import jax.numpy as jnp
     from jax.scipy.linalg import solve_triangular
 
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, gamma=gamma)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, gamma=gamma, cosmo=cosmo)
     sol = _solve(eq, structure.dense_slots)
     k1, k2 = jax.random.split(key)
     p = sol.mean_h.shape[0]

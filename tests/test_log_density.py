@@ -36,6 +36,7 @@ MODES = {
     "multiband + mixture": ({"extinction": "multiband", "outliers": "mixture"}, {}),
     "covariance tables": ({}, {"n_hubble_flow": 15, "anchor_systematic": 0.05, "sn_systematic": 0.04}),
     "metallicity errors": ({}, {"oh_err": 0.2}),
+    "free q0 and j0": ({"free_cosmology": True}, {"n_hubble_flow": 15}),
     "metallicity errors, multiband": ({"extinction": "multiband"}, {"oh_err": 0.2}),
     "per-galaxy mixture": ({"outliers": "mixture", "outlier_fraction_model": "per_galaxy"}, {}),
     "blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_width": 0.5}, {}),
@@ -56,6 +57,12 @@ def _setup(tmp_path_factory, mode):
         change.update(band="W", wesenheit=None, bands=("V", "I", "H"),
                       wavelengths=(("V", 0.55), ("I", 0.80), ("H", 1.60)),
                       reddening=dataclasses.replace(cfg.model.reddening, law="fitzpatrick99", rv_err=rv_err))
+    if change.pop("free_cosmology", False):  # q0 ~ N(-0.55, 0.3), j0 ~ U(0, 2): hyperparameters
+        from ladder.config import PriorSpec
+
+        change["supernovae"] = dataclasses.replace(
+            cfg.model.supernovae, q0_prior=PriorSpec("normal", (("loc", -0.55), ("scale", 0.3))),
+            j0_prior=PriorSpec("uniform", (("low", 0.0), ("high", 2.0))))
     settings = dataclasses.replace(cfg.model, **change)
     data = ladder.load_data(dataclasses.replace(cfg, model=settings))
     arrays, layout = model_arrays(data, settings)
@@ -87,6 +94,8 @@ def _random_point(rng, data, settings, layout):
         v["parallax_log_length_scale"] = rng.uniform(6.0, 8.0)
     if layout.has_sn:
         v["sn_abs_mag"], v["sn_scatter"], v["h0"] = rng.normal(-19.2, 0.1), rng.uniform(0.05, 0.2), rng.uniform(60, 80)
+        if settings.supernovae.q0_prior is not None:
+            v["q0"], v["j0"] = rng.normal(-0.55, 0.3), rng.uniform(0.2, 1.8)
     return v
 
 
@@ -191,12 +200,14 @@ def _reference(v, data, settings, layout):
     if layout.has_sn:
         sne, s = data.supernovae, settings.supernovae
         lp += N(v["sn_abs_mag"], -19.3, 1.0) + H(v["sn_scatter"], scale=0.3) + stats.uniform.logpdf(v["h0"], 20, 130)
+        if "q0" in v:
+            lp += N(v["q0"], -0.55, 0.3) + stats.uniform.logpdf(v["j0"], 0.0, 2.0)
         used, locs, variances = [], [], []
         for k, name in enumerate(sne.sn_names):
             if name not in layout.supernovae:
                 continue
             if sne.is_flow[k]:
-                z, q0, j0 = sne.z[k], s.q0, s.j0
+                z, q0, j0 = sne.z[k], v.get("q0", s.q0), v.get("j0", s.j0)
                 dl = C_KMS * z / v["h0"] * (1 + (1 - q0) / 2 * z - (1 - q0 - 3 * q0**2 + j0) / 6 * z**2)
                 loc = v["sn_abs_mag"] + 5 * np.log10(dl) + 25
                 pv = 5 / np.log(10) * s.sigma_v / (C_KMS * z)

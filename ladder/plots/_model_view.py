@@ -242,7 +242,10 @@ def _sn_points(result) -> _SNPoints:
             expected[k] = float(calibrator_magnitude(mu_mean[cols[h]], m_sn))
         elif np.isfinite(h0):
             z_hel = None if sne.z_hel is None else sne.z_hel[k]
-            expected[k] = float(hubble_flow_magnitude(z[k], h0, m_sn, s.q0, s.j0, z_hel))
+            post = result.idata.posterior  # q0, j0: posterior means when they have a prior
+            q0 = float(np.asarray(post["q0"]).mean()) if "q0" in post else s.q0
+            j0 = float(np.asarray(post["j0"]).mean()) if "j0" in post else s.j0
+            expected[k] = float(hubble_flow_magnitude(z[k], h0, m_sn, q0, j0, z_hel))
     return _SNPoints(names=tuple(sne.sn_names), mag=np.asarray(sne.mag, float), err=np.asarray(sne.mag_err, float),
                      z=z, flow=flow, fitted=np.array([nm in fitted_names for nm in sne.sn_names]),
                      host=tuple(hosts), model=expected)
