@@ -33,10 +33,21 @@ def _tiny_run(root: Path, extra: str = "") -> Path:
 @pytest.fixture(scope="module")
 def calibrated(tmp_path_factory):
     """One tiny calibration through the CLI on a one-worker Dask cluster (~25 s, most of it the first
-    replication's compilation; the others load it from the calibration's compilation cache)."""
+    replication's compilation; the others load it from the compilation cache). The cache is the session's
+    (helpers.compile_cache, given to the worker through JAX_COMPILATION_CACHE_DIR as a user's own setting would
+    be), shared with tests/test_recovery.py's ensemble of mocks of the same structure."""
+    import os
+
+    from helpers import compile_cache
+
     root = tmp_path_factory.mktemp("calibrate")
     run = _tiny_run(root / "mock")
-    code = main(["calibrate", str(run), "--replications", str(N_REP), "--out", str(root / "cal"), "--workers", "1"])
+    os.environ["JAX_COMPILATION_CACHE_DIR"] = str(compile_cache(tmp_path_factory))  # the worker inherits it
+    try:
+        code = main(["calibrate", str(run), "--replications", str(N_REP), "--out", str(root / "cal"),
+                     "--workers", "1"])
+    finally:
+        del os.environ["JAX_COMPILATION_CACHE_DIR"]
     return run, root / "cal", code
 
 

@@ -121,3 +121,8 @@ PREDICTIVE_PASS_P = 0.005  # 200 replicates resolve p to 0.005; posterior predic
 
 # --- calibration by simulation (tests/test_calibrate.py) ---
 CALIBRATION_SIM_KS_P = 1e-3  # KS p-value floor for standardised residuals of a simulated catalogue at its truth; false alarm 1e-3 per check
+
+# --- recovery over seeds (tests/helpers.py::assert_recovers) ---
+HOSTS_CHI2_P = 2e-3  # joint chi-square of the true moduli under the posterior covariance: two-sided false alarm 2e-3 per fit
+ENSEMBLE_MEAN_PULL_Z = 3.5  # mean pull over K seeds within 3.5 / sqrt(K) of 0 (its standard error if calibrated); false alarm ~5e-4 per parameter
+ENSEMBLE_CHI2_P = 2e-3  # sum of squared pulls over K seeds ~ chi-square(K): two-sided false alarm 2e-3 per parameter
