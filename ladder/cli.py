@@ -52,8 +52,9 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("run", metavar="RUN.toml", help="run file")
     c.add_argument("--strict", action="store_true", help="refuse implausible input (exit 2) instead of warning")
 
-    r = sub.add_parser("report", help="write DIR/report.html from a fit's output directory (one self-contained file)")
-    r.add_argument("dir", metavar="DIR", help="output directory of `ladder fit`")
+    r = sub.add_parser("report", help="write DIR/report.html from a fit's output directory, a sweep or a calibration "
+                                      "directory (one self-contained file)")
+    r.add_argument("dir", metavar="DIR", help="output directory of `ladder fit`, `ladder sweep` or `ladder calibrate`")
 
     s = sub.add_parser("simulate", help="write a mock universe (catalogues, run file, truth)")
     s.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")

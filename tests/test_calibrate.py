@@ -190,3 +190,20 @@ def test_tables_flag_a_miscalibrated_posterior():
     assert abs(c68["narrow"]["empirical"] - 0.38) < 4 * c68["narrow"]["binomial_sd"]
     assert not c68["narrow"]["within_2sd"]
     assert abs(c68["good"]["z"]) < 4
+
+
+def test_report_of_a_calibration_directory(calibrated, tmp_path):
+    """`ladder report` on a calibration directory: the coverage table (the numbers of coverage.ecsv), the
+    uniformity p-values and the rank histograms, one self-contained file."""
+    import shutil
+
+    _, out, _ = calibrated
+    copy = tmp_path / "cal"
+    shutil.copytree(out, copy)
+    assert main(["report", str(copy)]) == 0
+    text = (copy / "report.html").read_text(encoding="utf-8")
+    assert "calibration report" in text and "<script" not in text and "data:image/png;base64," in text
+    cov = Table.read(copy / "coverage.ecsv")
+    for r in cov:
+        assert f"{r['empirical']:.3f} &plusmn; {r['binomial_sd']:.3f}" in text
+    assert f"{N_REP} of {N_REP} replications used" in text
