@@ -119,6 +119,7 @@ def plan_sweep(run_file: str | Path) -> SweepPlan:
 # ----------------------------------------------------------------------------- one variant
 def _canonical_run(run: dict[str, Any]) -> dict[str, Any]:
     run = json.loads(json.dumps(run, default=str))
+    run.get("sampler", {}).pop("strict", None)  # the gate's exit code, not the fit: no reason to refit
     for k in ("cepheids", "hosts", "supernovae"):
         if k in run.get("data", {}):
             run["data"][k] = str(Path(run["data"][k]).resolve())

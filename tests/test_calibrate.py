@@ -103,6 +103,12 @@ def test_strict_marks_failed_gate_and_exits_3(calibrated, tmp_path, capsys):
     assert "1 replication failed the sampler diagnostics" in capsys.readouterr().err
     assert main(["calibrate", str(run), "--replications", str(N_REP), "--out", str(copy), "--no-plots",
                  "--strict"]) == 3
+    strict_run = tmp_path / "strict.toml"  # [sampler] strict = true: the same exit without the option, and the
+    strict_run.write_text(run.read_text().replace("[sampler]", "[sampler]\nstrict = true").replace(  # same records
+        '"cepheids.ecsv"', json.dumps(str(run.parent / "cepheids.ecsv"))).replace(
+        '"hosts.ecsv"', json.dumps(str(run.parent / "hosts.ecsv"))))
+    assert main(["calibrate", str(strict_run), "--replications", str(N_REP), "--out", str(copy), "--no-plots"]) == 3
+    assert f"{N_REP} already done, 0 to run" in capsys.readouterr().err
     ranks = Table.read(copy / "ranks.ecsv")
     failed = ranks[ranks["replication"] == 1]
     assert len(failed) and not np.any(failed["passed"]) and all("bulk ESS" in e for e in failed["error"])
