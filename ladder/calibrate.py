@@ -477,7 +477,7 @@ def run_calibration(run_file, out_dir, replications: int, *, workers: int | None
         rate = (time.perf_counter() - started) / max(1, len(records) - (replications - len(todo)))
         say(f"calibrate: replication {res['replication']} {what} in {res['seconds']:.1f} s | done {done} "
             f"(diagnostics failed {gate}) / failed {failed} / left {left} of {replications}"
-            + (f"; ~{left * rate / max(1, running or 1) / 60:.0f} min to go" if left else ""))
+            + (f"; ~{left * rate / 60:.0f} min to go" if left else ""))
 
     args = {i: (i, plan.cfg, str(out.resolve()), plan.seed, plan.key, plan.n_ranks) for i in todo}
     if in_process:
@@ -486,14 +486,15 @@ def run_calibration(run_file, out_dir, replications: int, *, workers: int | None
     elif todo:
         run_tasks(run_replication, {f"replication-{i}": args[i] for i in todo}, workers=workers,
                   scheduler=scheduler, report=report, say=say, label="calibrate",
-                  failed=lambda name, exc: {**_failed(int(name.rsplit("-", 1)[1]), plan.key, exc)})
+                  failed=lambda name, exc: _failed(int(name.rsplit("-", 1)[1]), plan, exc))
     tables = calibration_tables([records[i] for i in sorted(records)], plan)
     _write_summary(out, plan, tables, plots, argv)
     return tables
 
 
-def _failed(index: int, key: str, exc: BaseException) -> dict:
-    return {"replication": index, "key": key, "n_ranks": N_RANKS, "status": "failed",
+def _failed(index: int, plan: CalibrationPlan, exc: BaseException) -> dict:
+    """The record of a replication whose worker died (not written: it is run again on resume)."""
+    return {"replication": index, "key": plan.key, "n_ranks": plan.n_ranks, "status": "failed",
             "error": f"{type(exc).__name__}: {exc}", "passed": False, "problems": [], "method": "",
             "ess_min": math.nan, "seconds": 0.0, "quantities": {}}
 
