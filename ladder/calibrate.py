@@ -505,10 +505,11 @@ def binomial_sd(level: float, n: int) -> float:
     return math.sqrt(level * (1.0 - level) / n) if n else math.nan
 
 
-def _bins(n_values: int, n_used: int) -> int:
-    """Equal bins of the rank values with at least ~5 expected per bin (chi-square rule of thumb, common practice)."""
+def _bins(n_values: int, n_used: int, per_bin: float = 5.0) -> int:
+    """Equal bins of the rank values with at least ``per_bin`` expected per bin (5 for the chi-square test: rule
+    of thumb, common practice; 10 for the figure, so that a bin's count is not mostly noise)."""
     for b in (50, 25, 20, 10, 5, 4, 2):
-        if n_values % b == 0 and n_used / b >= 5:
+        if n_values % b == 0 and n_used / b >= per_bin:
             return b
     return 1
 
@@ -610,14 +611,16 @@ def sbc_figure(ranks, n_ranks: int = N_RANKS, max_panels: int = 30):
     for ax, label in zip(axes.ravel(), shown):
         r = np.asarray(ok["rank"][ok["parameter"] == label], int)
         n = r.size
-        b = _bins(n_ranks + 1, n) if n >= 10 else 1
+        b = _bins(n_ranks + 1, n, per_bin=10.0)
         b = max(b, 2) if (n_ranks + 1) % 2 == 0 else b
         counts = np.bincount(r * b // (n_ranks + 1), minlength=b)
         lo, hi = stats.binom.ppf([0.005, 0.995], n, 1.0 / b)
         edges = np.linspace(0, n_ranks + 1, b + 1)
         ax.axhspan(lo, hi, color="0.85", lw=0)
         ax.axhline(n / b, color="0.5", lw=0.8)
-        ax.stairs(counts, edges, fill=True, color=ROLE_COLORS["host"], alpha=0.75)
+        ax.stairs(counts, edges, fill=True, color=ROLE_COLORS["host"], alpha=0.6)
+        for y in (lo, hi):  # the band's edges on top of the bars: a bar below the band shows too
+            ax.axhline(y, color="0.35", lw=0.7, ls=":")
         ax.set_xlim(0, n_ranks + 1)
         ax.set_title(label, fontsize=8)
         ax.tick_params(labelsize=7)
