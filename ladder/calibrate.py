@@ -117,7 +117,8 @@ def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
     """Every parameter drawn from its prior, as the model defines it (:func:`ladder.model.full_model`).
 
     Returns output-named numpy values: the structure's linear columns, ``mu`` (n_mu,), ``photometric_bias``,
-    ``scatter`` (and ``scatter_spread``, ``host_scatter``), ``r_v``, ``ebv_mean``, ``outlier_fraction``,
+    ``scatter`` (and ``scatter_spread``, ``host_scatter``), ``r_v``, ``ebv_mean``, ``outlier_fraction`` (and
+    ``outlier_fraction_spread``, ``host_outlier_fraction``),
     ``parallax_offset``, ``parallax_length_scale``, ``log_distance_pc``, ``sn_scatter``.
     """
     st = parts.structure
@@ -146,6 +147,13 @@ def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
         t["ebv_mean"] = _draw(model.prior("ebv_mean"), rng, (len(layout.galaxies),))
     if model.outliers == "mixture" and model.prior("outlier_fraction").dist != "fixed":
         t["outlier_fraction"] = _draw(model.prior("outlier_fraction"), rng)
+    if model.outliers == "mixture" and model.outlier_fraction_model == "per_galaxy":  # logit-normal, as the model
+        from .terms.outliers import per_galaxy_fraction
+
+        t["outlier_fraction_spread"] = _draw(model.prior("outlier_fraction_spread"), rng)
+        median = t.get("outlier_fraction", _draw(model.prior("outlier_fraction"), rng))
+        z = rng.standard_normal(len(layout.galaxies))
+        t["host_outlier_fraction"] = np.asarray(per_galaxy_fraction(median, t["outlier_fraction_spread"], z))
     n_par = parts.parallax.shape[0]
     if n_par:
         length = model.parallax.length_scale_pc

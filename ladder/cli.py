@@ -71,6 +71,10 @@ def _parser() -> argparse.ArgumentParser:
     for flag, metavar, help_ in (
         ("--parallax", "N", "Cepheids with parallaxes in the invented home galaxy Nearfold (default 0: none)"),
         ("--outlier-fraction", "F", "fraction of host Cepheids that are blends (default 0)"),
+        ("--outlier-fraction-far", "F", "blend fraction in the hosts beyond the middle of the host distance range "
+                                        "(default: --outlier-fraction everywhere)"),
+        ("--outlier-shift-scale", "W", "blends brighter by an exponential shift of this mean in mag (default: "
+                                       "uniform in 0.3-1.5 mag)"),
         ("--pl-break-period", "P", "period of a PL break in days (default: no break)"),
         ("--pl-slope-long", "B", "W slope above the break (required with --pl-break-period)"),
         ("--scatter-spread", "S", "spread of the per-galaxy intrinsic scatter, log scale (default 0)"),
@@ -245,6 +249,7 @@ def _simulate(args) -> int:
                                  ("n_cepheids", args.cepheids)) if v is not None}
     fields = {  # option dest -> (MockSettings field, type)
         "parallax": ("n_parallax", int), "outlier_fraction": ("outlier_fraction", float),
+        "outlier_fraction_far": ("outlier_fraction_far", float), "outlier_shift_scale": ("outlier_shift_scale", float),
         "pl_break_period": ("pl_break_period", float), "pl_slope_long": ("pl_slope_long", float),
         "scatter_spread": ("scatter_spread", float), "bias_sd": ("bias_sd", float),
         "hubble_flow": ("n_hubble_flow", int), "h0": ("h0", float), "reddening_law": ("reddening_law", str),

@@ -115,11 +115,14 @@ DEFAULT_PRIORS: dict[str, PriorSpec] = {
     "ebv_mean": _p("halfnormal", scale=0.3),
     "parallax_offset": _p("normal", loc=0.0, scale=0.05),
     "outlier_fraction": _p("uniform", low=0.0, high=0.5),
+    "outlier_fraction_spread": _p("halfnormal", scale=1.0),
+    "band_scatter": _p("halfnormal", scale=0.2),
     "h0": _p("uniform", low=20.0, high=150.0),
     "sn_abs_mag": _p("normal", loc=-19.3, scale=1.0),
     "sn_scatter": _p("halfnormal", scale=0.3),
 }
-_POSITIVE = {"scatter", "scatter_spread", "ebv_mean", "sn_scatter", "outlier_fraction", "h0"}
+_POSITIVE = {"scatter", "scatter_spread", "ebv_mean", "sn_scatter", "outlier_fraction", "outlier_fraction_spread", "h0",
+             "band_scatter"}
 #: Priors set elsewhere in the run file (not in [model.priors]): name -> where.
 _NOT_IN_PRIORS = {"r_v": "[model.reddening] rv and rv_err (prior N(rv, rv_err) when rv_err > 0)"}
 
@@ -183,6 +186,10 @@ class SupernovaSettings:
 EXTINCTION_MODES = ("none", "multiband")
 SCATTER_MODES = ("global", "per_host")
 OUTLIER_MODES = ("none", "mixture", "clip")
+#: [model] outlier_fraction: one fraction for every galaxy, or one per galaxy under a logit-normal prior.
+OUTLIER_FRACTION_MODES = ("global", "per_galaxy")
+#: [model] outlier_component: the symmetric broad Normal, or the one-sided blend (only brighter).
+OUTLIER_COMPONENTS = ("broad", "blend")
 
 
 @dataclass(frozen=True)
@@ -199,6 +206,10 @@ class ModelSettings:
     scatter_model: str = "global"
     outliers: str = "none"
     outlier_width: float = 1.0
+    outlier_fraction_model: str = "global"  # [model] outlier_fraction = "global" | "per_galaxy"
+    outlier_component: str = "broad"  # "broad" (symmetric, extra sd outlier_width) | "blend" (brighter, mean width)
+    metallicity_per_band: bool = False  # [model] metallicity = "per_band" (multiband: one gamma per band)
+    scatter_bands: bool = False  # multiband: an independent per-band intrinsic scatter besides the common offset
     clip_sigma: float = 3.0
     photometric_bias: bool = False
     pl_break: bool = False
@@ -235,6 +246,15 @@ class ModelSettings:
                              "outlier_width": self.outlier_width, "clip_sigma": self.clip_sigma,
                              "photometric_bias": self.photometric_bias, "pl_break": self.pl_break,
                              "pl_break_period": self.pl_break_period}
+        # keys added later appear only when not at their default, so older run files resolve as before
+        if self.metallicity_per_band:
+            d["metallicity"] = "per_band"
+        if self.outlier_fraction_model != "global":
+            d["outlier_fraction"] = self.outlier_fraction_model
+        if self.outlier_component != "broad":
+            d["outlier_component"] = self.outlier_component
+        if self.scatter_bands:
+            d["scatter_bands"] = True
         if self.multiband:
             d["bands"] = list(self.bands)
         if self.wesenheit:
@@ -593,7 +613,7 @@ def _parse_bands(sec: _Section | None) -> tuple[tuple[str, float], ...]:
 
 _MODEL_KEYS = {"band", "bands", "metallicity", "solar_oh", "wesenheit", "priors", "extinction", "scatter", "outliers",
                "outlier_width", "clip_sigma", "photometric_bias", "pl_break", "pl_break_period", "reddening",
-               "parallax", "supernovae"}
+               "parallax", "supernovae", "outlier_fraction", "outlier_component", "scatter_bands"}
 
 
 def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
@@ -636,16 +656,45 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
         if len(bands) < 2 or not all(isinstance(b, str) and b for b in bands) or len(set(bands)) != len(bands):
             raise InputError("multiband extinction needs at least two distinct bands (model.bands or [bands.<B>])",
                              file=sec.file, key="model.bands")
+    metallicity = sec.get("metallicity", (bool, str), True)
+    if isinstance(metallicity, str) and metallicity != "per_band":
+        raise InputError(f"must be true or false, or \"per_band\", got {metallicity!r}", file=sec.file,
+                         key="model.metallicity")
+    if metallicity == "per_band" and extinction != "multiband":
+        raise InputError("metallicity = \"per_band\" gives one coefficient per fitted band: it needs "
+                         "extinction = \"multiband\" (with one fitted magnitude use metallicity = true)",
+                         file=sec.file, key="model.metallicity")
+    scatter_bands = sec.get("scatter_bands", bool, False)
+    if scatter_bands and extinction != "multiband":
+        raise InputError("scatter_bands = true adds a per-band intrinsic scatter to the fit of several bands: it "
+                         "needs extinction = \"multiband\"", file=sec.file, key="model.scatter_bands")
+    outliers = _choice(sec, "outliers", OUTLIER_MODES)
+    fraction_model = _choice(sec, "outlier_fraction", OUTLIER_FRACTION_MODES)
+    component = _choice(sec, "outlier_component", OUTLIER_COMPONENTS)
+    for key, value, default in (("outlier_fraction", fraction_model, "global"),
+                                ("outlier_component", component, "broad")):
+        if value != default and outliers != "mixture":
+            raise InputError(f"{key} = {value!r} is a setting of the outlier mixture: it needs outliers = "
+                             f"\"mixture\" (outliers is {outliers!r})", file=sec.file, key=f"model.{key}")
+    if component == "blend" and extinction == "multiband":
+        raise InputError("outlier_component = \"blend\" is for one fitted magnitude (a band or a Wesenheit index): "
+                         "with extinction = \"multiband\" each star would have two one-sided latents (its "
+                         "reddening and its blend), which ladder does not integrate; use \"broad\" there",
+                         file=sec.file, key="model.outlier_component")
     out = ModelSettings(
         band=band if not wes else "W",
-        metallicity=sec.get("metallicity", bool, True),
+        metallicity=bool(metallicity),
+        metallicity_per_band=metallicity == "per_band",
+        scatter_bands=scatter_bands,
+        outlier_fraction_model=fraction_model,
+        outlier_component=component,
         solar_oh=sec.float_("solar_oh", SOLAR_OH_ASPLUND09, lo=5.0, hi=11.0),
         wesenheit=wes,
         priors=tuple(priors.items()),
         extinction=extinction,
         bands=tuple(bands or ()),
         scatter_model=_choice(sec, "scatter", SCATTER_MODES),
-        outliers=_choice(sec, "outliers", OUTLIER_MODES),
+        outliers=outliers,
         outlier_width=sec.float_("outlier_width", d.outlier_width, lo=0.0, open_lo=True),
         clip_sigma=sec.float_("clip_sigma", d.clip_sigma, lo=1.0),
         photometric_bias=sec.get("photometric_bias", bool, False),

@@ -20,9 +20,10 @@ stars) and :math:`M_B(P)` the PL relation (optionally broken). Each piece is a t
 
 Symbols ↔ output names: :math:`\mu_i` ``mu`` (dim ``host``), :math:`M_B` ``pl_zero_point``, :math:`b` ``pl_slope``,
 :math:`b_\mathrm{long}` ``pl_slope_long``, :math:`\gamma` ``metallicity_coef``, :math:`\sigma_\mathrm{int}`
-``scatter`` (per galaxy: ``host_scatter``, spread ``scatter_spread``), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
+``scatter`` (per galaxy: ``host_scatter``, spread ``scatter_spread``), :math:`\tau_B` ``band_scatter``
+(``scatter_bands``: an independent per-band part of the intrinsic scatter), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
 :math:`E(B-V)_j` ``ebv`` (galaxy mean ``ebv_mean``), :math:`\beta_i` ``photometric_bias``, :math:`f`
-``outlier_fraction``, :math:`\varpi_0` ``parallax_offset``, :math:`H_0` ``h0``, :math:`M_\mathrm{SN}` ``sn_abs_mag``,
+``outlier_fraction`` (per galaxy ``host_outlier_fraction``, logit spread ``outlier_fraction_spread``), :math:`\varpi_0` ``parallax_offset``, :math:`H_0` ``h0``, :math:`M_\mathrm{SN}` ``sn_abs_mag``,
 :math:`\sigma_\mathrm{SN}` ``sn_scatter``.
 
 The linear part of the model (moduli, PL, metallicity, SN and H0 terms, biases) is defined once in
@@ -47,8 +48,8 @@ __all__ = ["ModelArrays", "Layout", "model_arrays", "ModelParts", "model_parts",
 
 #: Global parameters in output order (vector-valued ones get one row per band).
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
-                     "wesenheit_r", "r_v", "outlier_fraction", "parallax_offset", "parallax_length_scale", "h0",
-                     "sn_abs_mag", "sn_scatter")
+                     "band_scatter", "wesenheit_r", "r_v", "outlier_fraction", "outlier_fraction_spread",
+                     "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag", "sn_scatter")
 #: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
 DERIVED_PER_STAR = ("outlier_prob", "ebv")
 
@@ -244,9 +245,11 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
         "pl_zero_point": True, "pl_slope": True, "pl_slope_long": settings.pl_break,
         "metallicity_coef": settings.metallicity, "scatter": True,
         "scatter_spread": settings.scatter_model == "per_host",
+        "band_scatter": settings.scatter_bands,
         "wesenheit_r": False,  # R is fixed in every model (an uncertain R is refused by the run-file parser)
         "r_v": settings.needs_law and settings.reddening.free,
         "outlier_fraction": settings.outliers == "mixture",
+        "outlier_fraction_spread": settings.outliers == "mixture" and settings.outlier_fraction_model == "per_galaxy",
         "parallax_offset": par, "parallax_length_scale": par and settings.parallax.length_scale_pc is None,
         "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
     }
@@ -462,16 +465,14 @@ def _photometric_modulus(resid0, var, mask, a=None):
     return jnp.where(ok, (s2 * t0 - s1 * t1) / safe, plain), jnp.where(ok, s2 / safe, plain_var)
 
 
-def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None):
-    r"""(N,) log density of each Cepheid's magnitudes given its residuals (N, k): the common-offset Normal
-    (:func:`ladder.terms.noise.common_offset_normal_logpdf`), with E(B-V) integrated out when ``extinction``
-    = ``(a, rate)`` (:func:`ladder.terms.noise.reddened_star_logpdf`), and the outlier mixture
-    (:func:`ladder.terms.outliers.mixture_logpdf`) when ``fraction`` is given. Clipped stars give 0."""
+def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, outliers=True):
+    """(N,) log densities of every star under the core and (with ``outliers``) the outlier component: the
+    broad Normal (offset variance + outlier_width^2) or the one-sided blend
+    (:func:`ladder.terms.outliers.blend_logpdf`). ``(core, other or None)``."""
     import jax
-    import jax.numpy as jnp
 
     from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf
-    from .terms.outliers import mixture_logpdf
+    from .terms.outliers import blend_logpdf
 
     var, mask = parts.lin.var, parts.lin.mask
     if extinction is None:
@@ -481,19 +482,40 @@ def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, e
         dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
             resid, var, mask, s2, a, rate)
     core = dens(offset_var)
+    if not outliers:
+        return core, None
+    if settings.outlier_component == "blend":  # one fitted magnitude only (the run-file parser refuses multiband)
+        other = jax.vmap(blend_logpdf, in_axes=(0, 0, 0, 0, None))(resid, var, mask, offset_var,
+                                                                   settings.outlier_width)
+    else:
+        other = dens(offset_var + settings.outlier_width**2)
+    return core, other
+
+
+def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None):
+    r"""(N,) log density of each Cepheid's magnitudes given its residuals (N, k): the common-offset Normal
+    (:func:`ladder.terms.noise.common_offset_normal_logpdf`), with E(B-V) integrated out when ``extinction``
+    = ``(a, rate)`` (:func:`ladder.terms.noise.reddened_star_logpdf`), and the outlier mixture
+    (:func:`ladder.terms.outliers.mixture_logpdf`; outlier component broad or blend) when ``fraction`` (a scalar
+    or one per star) is given. Clipped stars give 0."""
+    import jax.numpy as jnp
+
+    from .terms.outliers import mixture_logpdf
+
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction, fraction is not None)
     if fraction is not None:
-        core = mixture_logpdf(core, dens(offset_var + settings.outlier_width**2), fraction)
-    return jnp.where(jnp.any(mask, axis=1), core, 0.0)
+        core = mixture_logpdf(core, other, fraction)
+    return jnp.where(jnp.any(parts.lin.mask, axis=1), core, 0.0)
 
 
 def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None,
                     fraction=None):
-    """(N,) conditional probability of the broad (outlier) component, and (N,) posterior-mean E(B-V)
+    """(N,) conditional probability of the outlier component (broad or blend), and (N,) posterior-mean E(B-V)
     (zeros without extinction), at these parameters."""
     import jax
     import jax.numpy as jnp
 
-    from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf, reddening_posterior_mean
+    from .terms.noise import reddening_posterior_mean
     from .terms.outliers import membership_probability
 
     var, mask = parts.lin.var, parts.lin.mask
@@ -504,13 +526,8 @@ def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_va
         ebv = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(resid, var, mask, offset_var, a, rate)
     if fraction is None:
         return jnp.zeros(n), ebv
-    if extinction is None:
-        dens = lambda s2: jax.vmap(common_offset_normal_logpdf)(resid, var, mask, s2)  # noqa: E731
-    else:
-        dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
-            resid, var, mask, s2, a, rate)
-    q = membership_probability(dens(offset_var), dens(offset_var + settings.outlier_width**2), fraction)
-    return q, ebv
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction)
+    return membership_probability(core, other, fraction), ebv
 
 
 def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0):
@@ -547,9 +564,35 @@ def nonlinear_inputs(parts: ModelParts, settings: ModelSettings, params: dict):
             rate = jnp.full(parts.star_galaxy.shape, 1.0 / settings.prior("ebv_mean").get("value"))
         extinction = (extinction_ratio(rd.law, jnp.asarray(parts.wavelength), r_v) * r_v, rate)
     if settings.outliers == "mixture":
-        fraction = params["outlier_fraction"] if "outlier_fraction" in params else \
-            jnp.asarray(settings.prior("outlier_fraction").get("value"))
+        if settings.outlier_fraction_model == "per_galaxy":
+            fraction = params["host_outlier_fraction"][parts.star_galaxy]
+        else:
+            fraction = params["outlier_fraction"] if "outlier_fraction" in params else \
+                jnp.asarray(settings.prior("outlier_fraction").get("value"))
     return extinction, fraction
+
+
+def _outlier_sites(settings: ModelSettings, n_gal: int) -> dict:
+    """The outlier mixture's fraction: global (``outlier_fraction``), or per galaxy under a non-centred
+    logit-normal prior around it (:func:`ladder.terms.outliers.per_galaxy_fraction`)."""
+    import jax.numpy as jnp
+    import numpyro
+    import numpyro.distributions as dist
+
+    from .priors import sample_parameter
+    from .terms.outliers import per_galaxy_fraction
+
+    params = {}
+    spec = settings.prior("outlier_fraction")
+    if spec.dist != "fixed":
+        params["outlier_fraction"] = sample_parameter("outlier_fraction", spec)
+    if settings.outlier_fraction_model == "per_galaxy":
+        median = params.get("outlier_fraction", jnp.asarray(spec.get("value")) if spec.dist == "fixed" else None)
+        spread = sample_parameter("outlier_fraction_spread", settings.prior("outlier_fraction_spread"))
+        z = numpyro.sample("host_outlier_fraction_z", dist.Normal(0.0, 1.0).expand((n_gal,)))
+        params["host_outlier_fraction"] = numpyro.deterministic("host_outlier_fraction",
+                                                                per_galaxy_fraction(median, spread, z))
+    return params
 
 
 def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
@@ -592,8 +635,8 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
         params["r_v"] = numpyro.sample("r_v", dist.TruncatedNormal(rd.rv, rd.rv_err, low=1.0))
     if settings.multiband and settings.prior("ebv_mean").dist != "fixed":
         params["ebv_mean"] = sample_parameter("ebv_mean", settings.prior("ebv_mean"), (n_gal,))
-    if settings.outliers == "mixture" and settings.prior("outlier_fraction").dist != "fixed":
-        params["outlier_fraction"] = sample_parameter("outlier_fraction", settings.prior("outlier_fraction"))
+    if settings.outliers == "mixture":
+        params.update(_outlier_sites(settings, n_gal))
     extinction, fraction = nonlinear_inputs(parts, settings, params)
 
     mu_par = None

@@ -8,10 +8,13 @@ For Cepheid *j* (fitted columns *B*) at parameters :math:`\theta, \phi`:
     \epsilon_{jB} \sim \mathcal N(0, \sigma_{jB}^2),\quad
     s_j \sim \mathcal N(0, \sigma_{\mathrm{int},i}^2)\ \text{or, with probability } f,\ \mathcal N(0, \sigma_{\mathrm{int},i}^2 + w^2),
 
+    \text{(blend component: with probability } f \text{ the star is brighter by } o_j \sim \mathrm{Exponential}(\text{mean } w)
+    \text{ in every band)},
+
     E_j \sim \mathrm{Exponential}(\text{mean } \bar E_i) \ (\text{multiband extinction}),
 
 with :math:`\hat m` the model's prediction (:func:`ladder.structure.residuals`: observed minus residual) and
-the per-galaxy scatter, outlier fraction and extinction exactly as in :func:`ladder.model.star_logpdf`. Anchors,
+the per-galaxy scatter, outlier fraction (global or per galaxy) and extinction exactly as in :func:`ladder.model.star_logpdf`. Anchors,
 supernovae and parallaxes are replicated from their Gaussian likelihoods. Used for posterior predictive checks
 (Gelman, Meng & Stern 1996, Statistica Sinica 6, 733) and for ``--predictive``.
 """
@@ -40,12 +43,17 @@ def replicate_stars(key, parts, settings, params: dict):
     n, k = pred.shape
     k1, k2, k3, k4 = jax.random.split(key, 4)
     var_s = offset_var
+    shift = jnp.zeros(n)
     if fraction is not None:
-        broad = jax.random.uniform(k1, (n,)) < fraction
-        var_s = jnp.where(broad, offset_var + settings.outlier_width**2, offset_var)
+        k1, k5 = jax.random.split(k1)
+        member = jax.random.uniform(k1, (n,)) < fraction
+        if settings.outlier_component == "blend":  # brighter by an exponential shift of mean outlier_width
+            shift = jnp.where(member, -settings.outlier_width * jax.random.exponential(k5, (n,)), 0.0)
+        else:
+            var_s = jnp.where(member, offset_var + settings.outlier_width**2, offset_var)
     s = jnp.sqrt(var_s) * jax.random.normal(k2, (n,))
     eps = jnp.sqrt(lin.var) * jax.random.normal(k3, (n, k))
-    rep = pred + s[:, None] + eps
+    rep = pred + (s + shift)[:, None] + eps
     if extinction is not None:
         a, rate = extinction
         e = jax.random.exponential(k4, (n,)) / rate

@@ -36,12 +36,16 @@ DIMS = {
     "host_scatter": "galaxy", "host_scatter_z": "galaxy", "ebv_mean": "galaxy",
     "log_distance_pc": "parallax_star", "parallax_star_u": "parallax_star", "parallax_star_w": "parallax_star",
     "photometric_bias": "bias_galaxy", "photometric_bias_z": "bias_galaxy",
+    "host_outlier_fraction": "galaxy", "host_outlier_fraction_z": "galaxy",
+    "metallicity_coef": "band", "band_scatter": "band",  # vectors only in per-band modes
 }
 #: Sampler coordinates that are not model parameters: kept in the ``sampler_aux`` group, out of ``posterior``.
-AUX_SITES = ("host_scatter_z", "photometric_bias_z", "parallax_star_u", "parallax_star_w", "parallax_log_length_scale")
+AUX_SITES = ("host_scatter_z", "photometric_bias_z", "parallax_star_u", "parallax_star_w", "parallax_log_length_scale",
+             "host_outlier_fraction_z")
 #: Per-star and per-galaxy latent vectors: many, nearly independent, standardised; a dense mass matrix over
 #: them cannot be estimated in a short warm-up, so they get a diagonal one.
-_DIAGONAL_SITES = ("parallax_star_u", "parallax_star_w", "host_scatter_z", "photometric_bias_z", "ebv_mean")
+_DIAGONAL_SITES = ("parallax_star_u", "parallax_star_w", "host_scatter_z", "photometric_bias_z", "ebv_mean",
+                   "host_outlier_fraction_z")
 #: ``log_likelihood = "auto"`` keeps per-star values up to this many (stars x draws).
 AUTO_STAR_LIMIT = 20_000_000
 
@@ -189,6 +193,9 @@ def initial_values(parts: ModelParts, layout: Layout, settings: ModelSettings, m
             init["ebv_mean"] = np.full(len(layout.galaxies), 0.1)
         if settings.outliers == "mixture":
             init["outlier_fraction"] = 0.05
+            if settings.outlier_fraction_model == "per_galaxy":
+                init["outlier_fraction_spread"] = 0.5
+                init["host_outlier_fraction_z"] = np.zeros(len(layout.galaxies))
     for name, spec in settings.priors:
         if name in init:
             if spec.dist == "fixed":

@@ -64,7 +64,10 @@ With every switch on, star :math:`k` of galaxy :math:`g` has
   fainter), as in docs/data-contract.md; the model adds ``bias`` to its prediction.
 * **Outliers** (``outlier_fraction`` :math:`f`): a star of a ``host`` galaxy is blended with
   probability :math:`f`; a blend is brighter in all bands by :math:`o_k` uniform in
-  ``outlier_shift`` (and so is its W).
+  ``outlier_shift`` (and so is its W), or, with ``outlier_shift_scale`` :math:`w`, exponential
+  with mean :math:`w` (the blend component of :mod:`ladder.terms.outliers`). With
+  ``outlier_fraction_far`` :math:`f_\mathrm{far}` the hosts beyond the middle of ``host_mu``
+  have :math:`f_\mathrm{far}` and the nearer ones :math:`f` (crowding grows with distance).
 * **Supernovae** (``n_hubble_flow``): one SN Ia in a share ``sn_calibrator_fraction`` of the
   ``host`` galaxies, :math:`m = \mu_g + M_\mathrm{SN} + N(0, \sigma_\mathrm{SN}) + N(0, e)`;
   Hubble-flow SNe at cosmological redshift :math:`z` uniform in ``sn_z``,
@@ -202,7 +205,10 @@ class MockSettings:
 
     Outliers
         ``outlier_fraction`` (0.0) of the stars of role-"host" galaxies are blends, brighter in
-        all bands by a shift uniform in ``outlier_shift`` (0.3, 1.5) mag.
+        all bands by a shift uniform in ``outlier_shift`` (0.3, 1.5) mag, or exponential with
+        mean ``outlier_shift_scale`` (None: uniform) mag. ``outlier_fraction_far`` (None: off):
+        the fraction in the hosts whose true mu is above the middle of ``host_mu``, the nearer
+        hosts keeping ``outlier_fraction`` (truth ``host_outlier_fraction`` per galaxy).
 
     Host scatter
         ``scatter_spread`` (0.0): sigma_int of galaxy g = scatter * exp(spread * u_g),
@@ -282,6 +288,9 @@ class MockSettings:
     # outliers (blends)
     outlier_fraction: float = 0.0
     outlier_shift: tuple[float, float] = (0.3, 1.5)
+    # blends concentrated in the distant hosts; exponential blend shifts
+    outlier_fraction_far: float | None = None
+    outlier_shift_scale: float | None = None
     # per-galaxy intrinsic scatter
     scatter_spread: float = 0.0
     # photometric bias
@@ -381,6 +390,11 @@ class MockSettings:
                 raise ValueError("pl_slope_long needs pl_break_period")
         if not 0.0 <= finite("outlier_fraction", self.outlier_fraction) <= 1.0:
             raise ValueError(f"outlier_fraction must be in [0, 1], got {self.outlier_fraction!r}")
+        if self.outlier_fraction_far is not None and not 0.0 <= finite("outlier_fraction_far",
+                                                                       self.outlier_fraction_far) <= 1.0:
+            raise ValueError(f"outlier_fraction_far must be in [0, 1], got {self.outlier_fraction_far!r}")
+        if self.outlier_shift_scale is not None and not finite("outlier_shift_scale", self.outlier_shift_scale) > 0:
+            raise ValueError(f"outlier_shift_scale must be > 0 (mag), got {self.outlier_shift_scale!r}")
         _range("outlier_shift", self.outlier_shift)
         if self.outlier_shift[0] < 0:
             raise ValueError("outlier_shift must be >= 0 (blends are brighter by that many mag)")
@@ -726,14 +740,20 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         bias_meas = np.append(bias_meas, np.zeros(n_all - n_gal))
         extra += np.where(is_host_star, bias_true[g_of], 0.0)
         any_extra = True
-    blend = None
-    if s.outlier_fraction > 0:
+    blend = gal_fraction = None
+    if s.outlier_fraction > 0 or (s.outlier_fraction_far or 0.0) > 0:
         u_blend = rng["outliers"].random(n)
         u_shift = rng["outliers"].random(n)
+        gal_fraction = np.where(is_host_gal, s.outlier_fraction, 0.0)
+        if s.outlier_fraction_far is not None:
+            far = np.append(mu > 0.5 * (s.host_mu[0] + s.host_mu[1]), np.zeros(n_all - n_gal, bool))
+            gal_fraction = np.where(is_host_gal & far, s.outlier_fraction_far, gal_fraction)
         blend = np.zeros(n_star_all, dtype=bool)
-        blend[:n] = (u_blend < s.outlier_fraction) & is_host_star[:n]
+        blend[:n] = (u_blend < gal_fraction[g_of[:n]]) & is_host_star[:n]
         shift = np.zeros(n_star_all)
-        shift[:n] = np.where(blend[:n], _uniform_in(u_shift, *s.outlier_shift), 0.0)
+        size = (-s.outlier_shift_scale * np.log1p(-u_shift) if s.outlier_shift_scale is not None
+                else _uniform_in(u_shift, *s.outlier_shift))
+        shift[:n] = np.where(blend[:n], size, 0.0)
         extra -= shift
         any_extra = True
 
@@ -830,6 +850,11 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     if blend is not None:
         truth["outlier_fraction"] = float(s.outlier_fraction)
         truth["n_outliers"] = int(blend.sum())
+        if s.outlier_fraction_far is not None:
+            truth["outlier_fraction_far"] = float(s.outlier_fraction_far)
+            truth["host_outlier_fraction"] = {all_names[g]: float(gal_fraction[g]) for g in range(n_all)}
+        if s.outlier_shift_scale is not None:
+            truth["outlier_shift_scale"] = float(s.outlier_shift_scale)
     if host_sigma is not None:
         truth["host_scatter"] = {all_names[g]: float(host_sigma[g]) for g in range(n_all)}
         truth["scatter_spread"] = float(s.scatter_spread)

@@ -15,7 +15,8 @@ QUANTILES = (0.05, 0.16, 0.50, 0.84, 0.95)
 #: UnitsWarning about its two slashes, kept as written for readers).
 UNITS = {"pl_zero_point": "mag", "pl_slope": "mag/dex", "pl_slope_long": "mag/dex", "metallicity_coef": "mag/dex",
          "scatter": "mag", "scatter_spread": "", "wesenheit_r": "", "r_v": "", "outlier_fraction": "",
-         "parallax_offset": "mas", "parallax_length_scale": "pc", "h0": "km/s/Mpc", "sn_abs_mag": "mag", "sn_scatter": "mag"}
+         "outlier_fraction_spread": "", "band_scatter": "mag", "parallax_offset": "mas", "parallax_length_scale": "pc",
+         "h0": "km/s/Mpc", "sn_abs_mag": "mag", "sn_scatter": "mag"}
 
 
 def _flat(x) -> np.ndarray:
@@ -55,7 +56,7 @@ def distances_table(idata, data: LadderData):
 
 
 #: Units of the per-galaxy parameters (posterior variables with one value per galaxy) in the distances table.
-PER_GALAXY_UNITS = {"host_scatter": "mag", "ebv_mean": "mag", "photometric_bias": "mag"}
+PER_GALAXY_UNITS = {"host_scatter": "mag", "ebv_mean": "mag", "photometric_bias": "mag", "host_outlier_fraction": ""}
 #: Posterior variables that are not reported per galaxy: the moduli themselves (columns mu_*) and the sampler's
 #: standardised auxiliaries (``<name>_z``: the parameter divided by its scale, no meaning of its own).
 _NOT_PER_GALAXY = ("mu",)

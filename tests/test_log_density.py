@@ -1,7 +1,7 @@
 """The NUTS model's total log density against an independent implementation, for every model mode.
 
 The reference is written here with scipy.stats (normal, half-normal, uniform, truncated normal, multivariate
-normal), scipy.integrate.quad for the extinction integral, the `extinction` package for the reddening law
+normal, exponentially modified normal for the blend component), scipy.special (logit, expit), scipy.integrate.quad for the extinction integral, the `extinction` package for the reddening law
 (Fitzpatrick 1999) and the kinematic luminosity distance of Visser (2004, Class. Quantum Grav. 21, 2603,
 eq. for d_L to third order) -- none of ladder's own term code. It is evaluated at random parameter points and
 compared with numpyro's log joint of :func:`ladder.model.full_model` over the same sampler coordinates.
@@ -16,7 +16,7 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 from numpyro.infer.util import log_density
-from scipy import integrate, stats
+from scipy import integrate, special, stats
 
 import ladder
 from ladder.model import full_model, model_arrays, model_parts
@@ -34,6 +34,12 @@ MODES = {
     "multiband": ({"extinction": "multiband"}, {}),
     "multiband, uncertain R_V": ({"extinction": "multiband", "rv_err": 0.3}, {}),
     "multiband + mixture": ({"extinction": "multiband", "outliers": "mixture"}, {}),
+    "per-galaxy mixture": ({"outliers": "mixture", "outlier_fraction_model": "per_galaxy"}, {}),
+    "blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_width": 0.5}, {}),
+    "per-galaxy blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_fraction_model": "per_galaxy"},
+                         {}),
+    "multiband + per-galaxy mixture": ({"extinction": "multiband", "outliers": "mixture",
+                                        "outlier_fraction_model": "per_galaxy"}, {}),
 }
 
 
@@ -64,6 +70,8 @@ def _random_point(rng, data, settings, layout):
         v["scatter_spread"], v["host_scatter_z"] = rng.uniform(0.1, 0.5), rng.normal(0, 1, n_gal)
     if settings.outliers == "mixture":
         v["outlier_fraction"] = rng.uniform(0.02, 0.3)
+        if settings.outlier_fraction_model == "per_galaxy":
+            v["outlier_fraction_spread"], v["host_outlier_fraction_z"] = rng.uniform(0.2, 1.5), rng.normal(0, 1, n_gal)
     if settings.multiband:
         v["ebv_mean"] = rng.uniform(0.05, 0.3, n_gal)
         if settings.reddening.free:
@@ -102,8 +110,11 @@ def _reference(v, data, settings, layout):
             bias[i] = data.host_bias[i] + data.host_bias_err[i] * z
     f = None
     if "outlier_fraction" in v:
-        f = v["outlier_fraction"]
-        lp += stats.uniform.logpdf(f, 0.0, 0.5)
+        f = np.full(n_gal, v["outlier_fraction"])
+        lp += stats.uniform.logpdf(v["outlier_fraction"], 0.0, 0.5)
+    if "host_outlier_fraction_z" in v:  # logit-normal around the median (scipy.special.logit / expit)
+        lp += H(v["outlier_fraction_spread"], scale=1.0) + N(v["host_outlier_fraction_z"], 0, 1).sum()
+        f = special.expit(special.logit(v["outlier_fraction"]) + v["outlier_fraction_spread"] * v["host_outlier_fraction_z"])
     rv = settings.reddening.rv
     if "r_v" in v:
         rv = v["r_v"]
@@ -157,7 +168,13 @@ def _reference(v, data, settings, layout):
 
         core = dens(0.0)
         if f is not None:
-            core = np.logaddexp(np.log1p(-f) + core, np.log(f) + dens(settings.outlier_width**2))
+            fj = f[data.star_host[j]]
+            if settings.outlier_component == "blend":  # one magnitude, brighter by Exp(mean w): x = -r is
+                sd = np.sqrt(err[j][seen][0] ** 2 + s2)  # exponnorm(K = w / sd, scale = sd) (Grushka 1972)
+                other = stats.exponnorm.logpdf(-y[0], settings.outlier_width / sd, loc=0.0, scale=sd)
+            else:
+                other = dens(settings.outlier_width**2)
+            core = np.logaddexp(np.log1p(-fj) + core, np.log(fj) + other)
         lp += core
     for g, i in zip(layout.anchors, np.flatnonzero(data.is_anchor)):
         lp += N(data.mu_geo[i], mu_of[g], data.mu_geo_err[i])

@@ -243,3 +243,57 @@ def test_clip_rejects_bad_arguments():
     y3[1] -= 100.0  # the extra column fits their mean; both residuals stay 100 sd
     with pytest.raises(ValueError, match="determine"):
         _clip(X3, y3, sd)
+
+
+# ---------------------------------------------------------------- one-sided blend component, per-galaxy fraction
+BLEND = [(0.1, 0.5), (0.05, 1.0), (0.3, 0.2), (0.1, 0.02)]  # (total sd of one magnitude, mean brightening w)
+
+
+@pytest.mark.parametrize("s,w", BLEND)
+def test_blend_is_the_exponentially_modified_normal(s, w):
+    # Source: scipy.stats.exponnorm (reference library), the exponentially modified Gaussian (Grushka 1972,
+    # Anal. Chem. 44, 1733) of x = -r with K = w / s, scale s. One magnitude: var = s^2 split as error + offset.
+    from ladder.terms.outliers import blend_logpdf
+
+    r = np.linspace(-8 * w - 6 * s, 6 * s, 201)
+    f = jax.jit(jax.vmap(lambda x: blend_logpdf(jnp.array([x]), jnp.array([0.6 * s**2]), jnp.array([True]),
+                                                0.4 * s**2, w)))
+    np.testing.assert_allclose(np.asarray(f(r)), stats.exponnorm.logpdf(-r, w / s, scale=s),
+                               rtol=tol.BLEND_VS_SCIPY_RTOL, atol=tol.BLEND_VS_SCIPY_ATOL)
+
+
+@pytest.mark.parametrize("s,w", BLEND)
+def test_blend_density_integrates_to_one(s, w):
+    # Source: scipy.integrate.quad (QUADPACK); the blend component is a proper density in r.
+    from ladder.terms.outliers import blend_logpdf
+
+    dens = jax.jit(lambda r: jnp.exp(blend_logpdf(jnp.array([r]), jnp.array([s**2]), jnp.array([True]), 0.0, w)))
+    total = sum(integrate.quad(lambda r: float(dens(r)), a, b, limit=200)[0] for a, b in ((-np.inf, 0.0), (0.0, np.inf)))
+    assert abs(total - 1.0) < tol.OUTLIER_NORM_ATOL
+
+
+def test_blend_in_several_bands_is_the_integral_over_the_shift():
+    # Source: scipy.stats.multivariate_normal and scipy.integrate.quad: the defining integral
+    # int_0^inf N(r + o 1 | 0, D + s^2 11^T) exp(-o / w) / w do, for two of three bands observed.
+    from ladder.terms.outliers import blend_logpdf
+
+    var, mask, s2, w = np.array([0.01, 0.04, 0.02]), np.array([True, False, True]), 0.07**2, 0.6
+    cov = np.diag(var[mask]) + s2
+    for r in (np.array([-0.5, 9.0, -0.7]), np.array([0.1, 0.0, -0.05]), np.array([-2.0, 0.0, -1.6])):
+        mvn = stats.multivariate_normal(np.zeros(2), cov)
+        ref = integrate.quad(lambda o: mvn.pdf(r[mask] + o) * np.exp(-o / w) / w, 0, np.inf, epsabs=1e-14, limit=200)[0]
+        got = float(blend_logpdf(jnp.asarray(r), jnp.asarray(var), jnp.asarray(mask), s2, w))
+        np.testing.assert_allclose(got, np.log(ref), rtol=0, atol=tol.BLEND_QUAD_ATOL)
+
+
+def test_per_galaxy_fraction_is_logit_normal():
+    # Source: scipy.special.expit / logit (reference library).
+    from scipy import special
+
+    from ladder.terms.outliers import per_galaxy_fraction
+
+    z = np.linspace(-3, 3, 13)
+    for median, spread in ((0.05, 1.0), (0.3, 0.2), (0.5, 0.0)):
+        got = np.asarray(per_galaxy_fraction(median, spread, jnp.asarray(z)))
+        np.testing.assert_allclose(got, special.expit(special.logit(median) + spread * z), rtol=tol.FRACTION_RTOL)
+    assert float(per_galaxy_fraction(0.2, 0.7, 0.0)) == pytest.approx(0.2, rel=tol.FRACTION_RTOL)  # z = 0: the median

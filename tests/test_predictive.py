@@ -1,6 +1,7 @@
 """Replicated data at fixed parameters follow the model's own density, in every model mode.
 
-For each mode (one band; per-galaxy scatter; outlier mixture; multiband extinction; multiband + mixture) we draw
+For each mode (one band; per-galaxy scatter; outlier mixture, global or per galaxy, broad or one-sided blend;
+multiband extinction; multiband + mixture) we draw
 20,000 replicates of the Cepheids with :func:`ladder.predictive.replicate_stars` and check, for one star:
 
 * each band's replicates against that band's marginal density from the model's own likelihood
@@ -33,6 +34,10 @@ MODES = {
     "mixture": {"outliers": "mixture"},
     "multiband": {"extinction": "multiband"},
     "multiband + mixture": {"extinction": "multiband", "outliers": "mixture"},
+    "per-galaxy mixture": {"outliers": "mixture", "outlier_fraction_model": "per_galaxy"},
+    "blend": {"outliers": "mixture", "outlier_component": "blend", "outlier_width": 0.4},
+    "multiband + per-galaxy mixture": {"extinction": "multiband", "outliers": "mixture",
+                                       "outlier_fraction_model": "per_galaxy"},
 }
 
 
@@ -64,6 +69,8 @@ def _params(parts, layout, settings, truth):
         p["host_scatter"] = jnp.linspace(0.05, 0.15, n_gal)
     if settings.outliers == "mixture":
         p["outlier_fraction"] = jnp.asarray(0.2)
+        if settings.outlier_fraction_model == "per_galaxy":
+            p["host_outlier_fraction"] = jnp.linspace(0.05, 0.4, n_gal)
     if settings.multiband:
         p["ebv_mean"] = jnp.linspace(0.1, 0.3, n_gal)
     return p
@@ -90,7 +97,8 @@ def test_replicates_follow_the_model_density(mock_run, mode):
     for b in range(k):
         # the model's marginal density of band b for star j, on a grid, from star_logpdf with only band b seen
         sd = float(np.sqrt(parts.lin.var[j, b] + ov[j] + (settings.outlier_width**2 if frac is not None else 0)))
-        lo, hi = pred[b] - 12 * sd, pred[b] + 12 * sd + (3.0 if ext is not None else 0.0)
+        blend = 12 * settings.outlier_width if settings.outlier_component == "blend" else 0.0  # only brighter
+        lo, hi = pred[b] - 12 * sd - blend, pred[b] + 12 * sd + (3.0 if ext is not None else 0.0)
         grid = np.linspace(lo, hi, 6001)
         only_b = parts.lin.mask & (jnp.arange(k) == b)[None, :]
         parts_b = parts._replace(lin=parts.lin._replace(mask=only_b, seen=only_b))
@@ -108,7 +116,8 @@ def test_replicates_follow_the_model_density(mock_run, mode):
     if k > 1:
         a, rate = ext
         a = np.asarray(a)
-        e_s2 = float(ov[j]) + (float(frac) * settings.outlier_width**2 if frac is not None else 0.0)
+        f_j = None if frac is None else float(np.asarray(frac)[j] if np.ndim(frac) else frac)
+        e_s2 = float(ov[j]) + (f_j * settings.outlier_width**2 if frac is not None else 0.0)
         var_e = float(1.0 / rate[j]) ** 2
         cov = np.diag(np.asarray(parts.lin.var[j])) + e_s2 + var_e * np.outer(a, a)
         np.testing.assert_allclose(np.cov(rep.T), cov, rtol=PREDICTIVE_COV_RTOL)

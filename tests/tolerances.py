@@ -126,3 +126,11 @@ CALIBRATION_SIM_KS_P = 1e-3  # KS p-value floor for standardised residuals of a 
 HOSTS_CHI2_P = 2e-3  # joint chi-square of the true moduli under the posterior covariance: two-sided false alarm 2e-3 per fit
 ENSEMBLE_MEAN_PULL_Z = 3.5  # mean pull over K seeds within 3.5 / sqrt(K) of 0 (its standard error if calibrated); false alarm ~5e-4 per parameter
 ENSEMBLE_CHI2_P = 2e-3  # sum of squared pulls over K seeds ~ chi-square(K): two-sided false alarm 2e-3 per parameter
+
+# --- one-sided blend component and per-band terms (tests/test_outliers.py, tests/test_bands.py) ---
+BLEND_VS_SCIPY_RTOL = 1e-9  # same closed form as scipy.stats.exponnorm (erfc vs log_ndtr); rounding only, where the density is not tiny
+BLEND_VS_SCIPY_ATOL = 1e-9  # log densities of O(1-100); differences are float64 rounding (exp/log of ~1e-40 in the far tail)
+BLEND_QUAD_ATOL = 1e-7  # log of a QUADPACK integral with epsabs 1e-14 of a density of O(1); quadrature error ~1e-9 relative
+FRACTION_RTOL = 1e-12  # logit-normal fraction vs scipy.special.expit: the same closed form, float64 rounding only
+JOINT_CHI2_P_PASS = 1e-3  # host moduli vs truth, chi-square with the posterior covariance: a calibrated posterior fails 1 in 1000
+JOINT_CHI2_P_BIASED = 1e-3  # the simpler model on data with the effect: its chi-square must be as unlikely as that to count as biased

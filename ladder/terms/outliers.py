@@ -20,6 +20,23 @@ symbol              argument               output name
 :math:`q`           (returned)             ``outlier_prob`` (column of ``stars.ecsv``)
 ==================  =====================  =================================================
 
+**The one-sided blend component** (``[model] outlier_component = "blend"``, :func:`blend_logpdf`): a blend
+adds a companion's flux, so a blended star is only ever *brighter*, by :math:`o \ge 0` magnitudes in every band.
+With :math:`o \sim \mathrm{Exponential}` of mean :math:`w` and the star's Gaussian error (photometric and
+intrinsic, total sd :math:`\sigma` for one magnitude) the residual :math:`r = -o + \epsilon` has
+:math:`x = -r` distributed as an *exponentially modified Gaussian* (Grushka 1972, Anal. Chem. 44, 1733;
+``scipy.stats.exponnorm`` with :math:`K = w/\sigma`, scale :math:`\sigma`):
+
+.. math:: p(x) = \frac1w \exp\!\left(\frac{\sigma^2}{2w^2} - \frac xw\right)
+          \Phi\!\left(\frac x\sigma - \frac\sigma w\right).
+
+The mixture is then :math:`(1-f)\,\mathcal N(r \mid 0, \sigma) + f\,p_\mathrm{blend}(r)`.
+
+**Per-galaxy fractions** (``[model] outlier_fraction = "per_galaxy"``): :math:`f_i = \mathrm{logit}^{-1}
+(\mathrm{logit} f + s_f z_i)`, :math:`z_i \sim \mathcal N(0, 1)` (a logit-normal population of fractions,
+non-centred; output ``host_outlier_fraction``, median ``outlier_fraction``, spread ``outlier_fraction_spread``);
+:func:`per_galaxy_fraction`.
+
 Both functions take scalars for one star (like every term; :mod:`ladder.model` applies ``jax.vmap``),
 are pure ``jax.numpy`` and safe under ``jax.jit`` and ``jax.grad``. They work in log space with
 ``logaddexp`` so that a residual of tens of :math:`\sigma` neither underflows to ``-inf`` nor yields NaN.
@@ -28,7 +45,8 @@ are pure ``jax.numpy`` and safe under ``jax.jit`` and ``jax.grad``. They work in
 import jax.numpy as jnp
 from jax.nn import sigmoid
 
-__all__ = ["mixture_logpdf", "membership_probability", "mixture_log_likelihood", "outlier_probability"]
+__all__ = ["mixture_logpdf", "membership_probability", "mixture_log_likelihood", "outlier_probability", "blend_logpdf",
+           "per_galaxy_fraction"]
 
 _HALF_LOG_2PI = 0.5 * 1.8378770664093453  # 0.5 * log(2 pi)
 
@@ -111,3 +129,43 @@ def outlier_probability(resid, sd_core, width, fraction):
     Parameters are those of :func:`mixture_log_likelihood`; returns :math:`q \in [0, 1]`.
     """
     return membership_probability(*_component_logs(resid, sd_core, width), fraction)
+
+
+def blend_logpdf(resid, var, mask, offset_var, width):
+    r"""Log density of one star's residuals when it is blended: brighter by :math:`o \ge 0` in every band.
+
+    The residuals :math:`r_b` (observed minus predicted) of the bands observed (``mask``) are
+    :math:`r = -o\,\mathbf 1 + \epsilon`, :math:`\epsilon \sim \mathcal N(0, C)`,
+    :math:`C = D + s^2 \mathbf 1 \mathbf 1^T` (:func:`ladder.terms.noise.common_offset_normal_logpdf`),
+    with :math:`o` exponential of mean :math:`w` (``width``, run-file ``outlier_width``). :math:`o` is
+    integrated out exactly over the half line, the same Gaussian integral as a star's reddening
+    (:func:`ladder.terms.noise.reddened_star_logpdf` with extinction vector :math:`-\mathbf 1` and rate
+    :math:`1/w`). For one magnitude this is the exponentially modified Gaussian of the module docstring
+    (Grushka 1972, Anal. Chem. 44, 1733) in :math:`x = -r`, with :math:`\sigma^2 = \sigma_b^2 + s^2`.
+
+    Parameters
+    ----------
+    resid, var : arrays (k,)
+        Residuals (mag) and photometric variances (mag^2).
+    mask : array (k,) of bool
+        Bands observed.
+    offset_var : float
+        :math:`s^2`, the star's intrinsic-offset variance, mag^2.
+    width : float
+        :math:`w > 0`, mean brightening of a blend, mag.
+    """
+    from .noise import reddened_star_logpdf
+
+    return reddened_star_logpdf(resid, var, mask, offset_var, -jnp.ones(jnp.shape(resid)), 1.0 / width)
+
+
+def per_galaxy_fraction(median, spread, z):
+    r"""One galaxy's outlier fraction, :math:`f_i = \mathrm{logit}^{-1}(\mathrm{logit}\,f + s_f z_i)`.
+
+    ``median`` :math:`f \in (0, 1)` (output ``outlier_fraction``: the population median), ``spread``
+    :math:`s_f \ge 0` (``outlier_fraction_spread``, on the logit scale), ``z`` :math:`z_i` the standardised
+    coordinate (``host_outlier_fraction_z``, prior :math:`\mathcal N(0, 1)`): a non-centred logit-normal
+    hierarchical prior (e.g. Gelman et al. 2013, *Bayesian Data Analysis*, 3rd ed., Sect. 5.3 and 16.1 for the
+    logistic link).
+    """
+    return sigmoid(jnp.log(median) - jnp.log1p(-median) + spread * z)
