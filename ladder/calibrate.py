@@ -99,72 +99,40 @@ def check_proper(cfg, layout) -> None:
                      f"proper: {fixes}", file=str(cfg.path) if cfg.path else None, key=bad[0][1])
 
 
-def _draw(spec, rng: np.random.Generator, shape=()) -> np.ndarray:
-    """One draw of a proper :class:`~ladder.config.PriorSpec` (numpy)."""
-    size = shape or None
-    if spec.dist == "normal":
-        return np.asarray(rng.normal(spec.get("loc"), spec.get("scale"), size))
-    if spec.dist == "halfnormal":
-        return np.abs(np.asarray(rng.normal(0.0, spec.get("scale"), size)))
-    if spec.dist == "uniform":
-        return np.asarray(rng.uniform(spec.get("low"), spec.get("high"), size))
-    if spec.dist == "fixed":
-        return np.full(shape, spec.get("value")) if shape else np.asarray(spec.get("value"))
-    raise ValueError(f"cannot draw from a {spec.dist} prior")
-
-
 def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
-    """Every parameter drawn from its prior, as the model defines it (:func:`ladder.model.full_model`).
+    """Every parameter drawn from its prior, by running the model itself (:func:`ladder.model.full_model`, every
+    parameter a sample site) forward with its likelihood factors ignored, so that a new term's parameters are
+    drawn as the model defines them. The parallax stars' distances, whose prior the model writes as a factor on a
+    flat coordinate, are drawn here from the EDSD prior, p(d) ~ d^2 exp(-d/L) = Gamma(shape 3, scale L)
+    (Bailer-Jones 2015, PASP 127, 994), at the drawn (or fixed) length scale L.
 
-    Returns output-named numpy values: the structure's linear columns, ``mu`` (n_mu,), ``photometric_bias``,
-    ``scatter`` (and ``scatter_spread``, ``host_scatter``), ``r_v``, ``ebv_mean``, ``outlier_fraction`` (and
-    ``outlier_fraction_spread``, ``host_outlier_fraction``),
-    ``parallax_offset``, ``parallax_length_scale``, ``log_distance_pc``, ``sn_scatter``.
+    Returns output-named numpy values (sample and deterministic sites: ``mu``, the structure's linear columns
+    with ``h0`` in km/s/Mpc, ``photometric_bias``, ``scatter``, ``host_scatter``, ``r_v``, ``ebv_mean``,
+    outlier fractions, ``parallax_offset``, ``log_distance_pc``, ``sn_scatter``, ...).
     """
-    st = parts.structure
-    band_shape = (len(layout.bands),) if model.multiband else ()
-    t: dict = {"mu": _draw(model.prior("mu"), rng, (layout.n_mu,))}
-    for name in dict.fromkeys(n for n, _ in st.columns):
-        t[name] = _draw(model.prior(name), rng, band_shape if name.startswith("pl_") else ())
-    n_b = parts.bias_slots.shape[0]
-    if st.n_local == 2 and n_b:  # the hosts table's estimate is the bias's prior: N(bias, bias_err)
-        lin = parts.lin
-        mean = np.asarray(lin.prior_mean_local)[parts.bias_slots, 1]
-        sd = 1.0 / np.sqrt(np.asarray(lin.prior_prec_local)[parts.bias_slots, 1])
-        t["photometric_bias"] = mean + sd * rng.standard_normal(n_b)
-    t["scatter"] = _draw(model.prior("scatter"), rng)
-    if model.scatter_model == "per_host":
-        t["scatter_spread"] = _draw(model.prior("scatter_spread"), rng)
-        t["host_scatter"] = t["scatter"] * np.exp(t["scatter_spread"] * rng.standard_normal(len(layout.galaxies)))
-    if model.needs_law and model.reddening.free:  # TruncatedNormal(rv, rv_err, low=1), as in the model
-        rd = model.reddening
-        while True:
-            v = rng.normal(rd.rv, rd.rv_err)
-            if v > 1.0:
-                break
-        t["r_v"] = np.asarray(v)
-    if model.multiband and model.prior("ebv_mean").dist != "fixed":
-        t["ebv_mean"] = _draw(model.prior("ebv_mean"), rng, (len(layout.galaxies),))
-    if model.outliers == "mixture" and model.prior("outlier_fraction").dist != "fixed":
-        t["outlier_fraction"] = _draw(model.prior("outlier_fraction"), rng)
-    if model.outliers == "mixture" and model.outlier_fraction_model == "per_galaxy":  # logit-normal, as the model
-        from .terms.outliers import per_galaxy_fraction
+    import jax
+    from numpyro import handlers
 
-        t["outlier_fraction_spread"] = _draw(model.prior("outlier_fraction_spread"), rng)
-        median = t.get("outlier_fraction", _draw(model.prior("outlier_fraction"), rng))
-        z = rng.standard_normal(len(layout.galaxies))
-        t["host_outlier_fraction"] = np.asarray(per_galaxy_fraction(median, t["outlier_fraction_spread"], z))
+    from .model import full_model, split_static, with_structure
+
     n_par = parts.parallax.shape[0]
+    fixed = {"parallax_star_u": np.zeros(n_par)} if n_par else {}
+    st, array_parts = split_static(parts)
+
+    def forward(key, ap):  # the data as a traced argument: one compiled program per structure (see _compile_cache)
+        trace = handlers.trace(handlers.seed(handlers.substitute(full_model, data=fixed), key)).get_trace(
+            with_structure(st, ap), model, layout)
+        return {name: site["value"] for name, site in trace.items()
+                if site["type"] in ("sample", "deterministic") and not site.get("is_observed", False)}
+
+    key = jax.random.PRNGKey(int(rng.integers(0, 2**31 - 1)))
+    t = {k: np.asarray(v, float) for k, v in jax.jit(forward)(key, array_parts).items()}
     if n_par:
         length = model.parallax.length_scale_pc
-        if length is None:  # log-uniform on 100 pc - 100 kpc, as the model's parallax_log_length_scale
-            length = float(np.exp(rng.uniform(np.log(100.0), np.log(1e5))))
-            t["parallax_length_scale"] = np.asarray(length)
-        # EDSD prior p(d) ~ d^2 exp(-d/L) is Gamma(shape 3, scale L) (Bailer-Jones 2015, PASP 127, 994)
+        if length is None:
+            length = float(np.asarray(t["parallax_length_scale"]))
         t["log_distance_pc"] = np.log(rng.gamma(3.0, length, n_par))
-        t["parallax_offset"] = _draw(model.prior("parallax_offset"), rng)
-    if layout.has_sn:
-        t["sn_scatter"] = _draw(model.prior("sn_scatter"), rng)
+        t.pop("parallax_star_u", None)
     return t
 
 
@@ -242,19 +210,27 @@ def simulate_like(data, model, truth: dict, seed: int):
 
 # ----------------------------------------------------------------------------- one replication
 def _quantities(layout, model, data) -> list[tuple[str, str, int | None]]:
-    """(label, posterior variable, index) of every ranked quantity: globals (per band), then each galaxy's modulus."""
+    """(label, posterior variable, index) of every ranked quantity: globals (one per band where the parameter
+    has the band dimension of :data:`ladder.sampling.DIMS`), then each galaxy's modulus."""
     from .model import global_parameters
+    from .sampling import DIMS
 
+    banded = model.multiband or getattr(model, "scatter_bands", False)
     out = []
     for n in global_parameters(model, layout):
-        if n in ("wesenheit_r",) or (n == "r_v" and not (model.needs_law and model.reddening.free)):
+        if n == "wesenheit_r" or (n == "r_v" and not (model.needs_law and model.reddening.free)):
             continue
-        if model.multiband and n.startswith("pl_"):
+        if banded and DIMS.get(n) == "band" and (n != "metallicity_coef" or _banded_metallicity(model)):
             out += [(f"{n}[{b}]", n, i) for i, b in enumerate(layout.bands)]
         else:
             out.append((n, n, None))
     out += [(f"mu[{g}]", "mu", i) for i, g in enumerate(layout.distance_galaxies)]
     return out
+
+
+def _banded_metallicity(model) -> bool:
+    """True when the metallicity term has one coefficient per band (a per-band model mode)."""
+    return bool(getattr(model, "metallicity_per_band", False))
 
 
 def _host_slots(layout, data) -> list[int]:
@@ -270,7 +246,9 @@ def _flat_draws(post, var: str, index) -> np.ndarray:
 
 def _truth_value(truth: dict, var: str, index):
     v = np.asarray(truth[var], float)
-    return float(v if index is None else v[index])
+    if index is None and v.size != 1:
+        raise ValueError(f"{var} has {v.size} values; the calibration does not know its dimension")
+    return float(v.reshape(()) if index is None else v[index])
 
 
 def _rank(draws: np.ndarray, value: float, n_ranks: int, rng) -> tuple[int, float]:
@@ -436,7 +414,7 @@ def plan_calibration(run_file, replications: int, seed: int | None = None, n_ran
     n_hosts = len(_host_slots(layout, data))
     if n_hosts:
         labels.append(HOSTS_CHI2)
-    text = json.dumps({"input": input_key(cfg), "seed": seed, "n_ranks": n_ranks, "format": 1}, sort_keys=True)
+    text = json.dumps({"input": input_key(cfg), "seed": seed, "n_ranks": n_ranks, "format": 2}, sort_keys=True)
     return CalibrationPlan(cfg, replications, seed, n_ranks, hashlib.sha256(text.encode()).hexdigest(),
                            tuple(labels), n_hosts)
 
