@@ -616,7 +616,7 @@ def sbc_figure(ranks, n_ranks: int = N_RANKS, max_panels: int = 30):
         ax.set_ylabel("replications", fontsize=7)
     more = f"; {len(labels) - len(shown)} more in ranks.ecsv" if len(labels) > len(shown) else ""
     fig.suptitle(f"Rank histograms of {int(np.unique(np.asarray(ok['replication'])).size)} replications "
-                 f"(grey: 99% band of a uniform rank{more})", fontsize=9)
+                 f"(grey: 99% band of one bin's count for uniform ranks, so ~1 bin in 100 falls outside by chance{more})", fontsize=9)
     fig.tight_layout()
     return fig
 
