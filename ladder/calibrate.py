@@ -180,7 +180,11 @@ def simulate_like(data, model, truth: dict, seed: int):
     slot[data.has_distance] = np.arange(int(data.has_distance.sum()))
     mu_geo = np.array(data.mu_geo, float, copy=True)
     anchors = np.flatnonzero(data.is_anchor)
-    mu_geo[anchors] = mu[slot[anchors]] + data.mu_geo_err[anchors] * rng.standard_normal(anchors.size)
+    # geometric errors, with the [data] anchor_covariance table added when the run has one (as the likelihood)
+    cov = np.diag(np.asarray(data.mu_geo_err[anchors], float) ** 2)
+    if np.asarray(arrays.anchor_cov).size:
+        cov = cov + np.asarray(arrays.anchor_cov, float)
+    mu_geo[anchors] = mu[slot[anchors]] + _correlated_normal(rng, cov)
     changes = {"mag": mag, "mu_geo": mu_geo}
     if parts.parallax.shape[0]:
         par = np.array(data.parallax, float, copy=True)
@@ -200,12 +204,21 @@ def simulate_like(data, model, truth: dict, seed: int):
         G = parts.structure.n_galaxies
         mu_sn = np.concatenate([np.asarray(theta_local)[:, 0], np.zeros(1)])[np.asarray(lin.sn_slot)]
         loc = np.where(np.asarray(lin.sn_slot) < G, mu_sn, 0.0) + np.asarray(lin.sn_design) @ np.asarray(theta_global)
-        sd = np.sqrt(np.asarray(lin.sn_var) + float(truth["sn_scatter"]) ** 2)
+        cov = np.diag(np.asarray(lin.sn_var, float) + float(truth["sn_scatter"]) ** 2)
+        if np.asarray(arrays.sn_cov).size:  # [data] supernova_covariance, over the supernovae fitted
+            cov = cov + np.asarray(arrays.sn_cov, float)
         m = np.array(sne.mag, float, copy=True)
         # lin.sn_y is the magnitude minus its fixed part (the kinematic modulus at H0 = 1, fixed parameters)
-        m[keep] = (sne.mag[keep] - np.asarray(lin.sn_y)) + loc + sd * rng.standard_normal(keep.size)
+        m[keep] = (sne.mag[keep] - np.asarray(lin.sn_y)) + loc + _correlated_normal(rng, cov)
         changes["supernovae"] = replace(sne, mag=m)
     return replace(data, **changes)
+
+
+def _correlated_normal(rng: np.random.Generator, cov: np.ndarray) -> np.ndarray:
+    """One draw of N(0, cov) (Cholesky; diagonal covariances cost nothing more)."""
+    if cov.size == 0:
+        return np.zeros(0)
+    return np.linalg.cholesky(cov) @ rng.standard_normal(cov.shape[0])
 
 
 # ----------------------------------------------------------------------------- one replication
@@ -631,6 +644,7 @@ def _write_summary(out: Path, plan: CalibrationPlan, tables, plots: bool, argv) 
     from . import __version__
     from .outputs import _SignalsHeld
     from .provenance import sha256_file
+    from .sweep import _TABLES
 
     ranks, coverage, uniformity = tables
     tmp = Path(tempfile.mkdtemp(prefix=".summary.partial-", dir=out))
@@ -640,8 +654,7 @@ def _write_summary(out: Path, plan: CalibrationPlan, tables, plots: bool, argv) 
         uniformity.write(tmp / "uniformity.ecsv", format="ascii.ecsv")
         cfg = plan.cfg
         inputs = {k: {"path": str(Path(p).resolve()), "sha256": sha256_file(p)} for k, p in
-                  (("run", cfg.path), ("cepheids", cfg.cepheids), ("hosts", cfg.hosts),
-                   ("supernovae", cfg.supernovae)) if p is not None}
+                  [("run", cfg.path)] + [(k, getattr(cfg, k, None)) for k in _TABLES] if p is not None}
         meta = {"kind": "calibration", "replications": plan.replications, "seed": plan.seed,
                 "n_ranks": plan.n_ranks, "levels": list(LEVELS), "key": plan.key,
                 "done": int(ranks.meta["done"]), "failed_diagnostics": int(ranks.meta["failed_diagnostics"]),

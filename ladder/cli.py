@@ -83,6 +83,10 @@ def _parser() -> argparse.ArgumentParser:
         ("--h0", "H", "true Hubble constant in km/s/Mpc (default 68.5, invented)"),
         ("--reddening-law", "LAW", "extinction ratios from ccm89 or fitzpatrick99 (default none: fixed ratios)"),
         ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
+        ("--anchor-systematic", "S", "sd in mag of one offset shared by every anchor's mu_geo (default 0); writes "
+         "anchor_covariance.ecsv"),
+        ("--sn-systematic", "S", "sd in mag of one offset shared by every calibrator supernova (default 0; needs "
+         "--hubble-flow); writes supernova_covariance.ecsv"),
     ):
         s.add_argument(flag, default=None, metavar=metavar, help=help_)
     _add_verify_parser(sub)
@@ -253,7 +257,8 @@ def _simulate(args) -> int:
         "pl_break_period": ("pl_break_period", float), "pl_slope_long": ("pl_slope_long", float),
         "scatter_spread": ("scatter_spread", float), "bias_sd": ("bias_sd", float),
         "hubble_flow": ("n_hubble_flow", int), "h0": ("h0", float), "reddening_law": ("reddening_law", str),
-        "r_v": ("r_v", float),
+        "r_v": ("r_v", float), "anchor_systematic": ("anchor_systematic", float),
+        "sn_systematic": ("sn_systematic", float),
     }
     for dest, (key, kind) in fields.items():
         text = getattr(args, dest)
