@@ -218,8 +218,8 @@ def test_report_of_a_calibration_directory(calibrated, tmp_path):
     assert f"{N_REP} of {N_REP} replications used" in text
 
 
-@pytest.mark.parametrize("sig, code", [pytest.param(2, 130, marks=pytest.mark.slow), (15, 143)],
-                         ids=["SIGINT", "SIGTERM"])
+@pytest.mark.slow  # ~15 s each (a subprocess and its Dask cluster); the fit's own interrupt tests are in the default suite
+@pytest.mark.parametrize("sig, code", [(2, 130), (15, 143)], ids=["SIGINT", "SIGTERM"])
 def test_signal_mid_calibration_keeps_the_earlier_summary(calibrated, tmp_path, sig, code):
     """A real `python -m ladder calibrate` process, signalled while its Dask worker runs new replications:
     the summary files of the earlier calibration stay byte for byte, no partial summary is left, the finished
