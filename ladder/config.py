@@ -309,6 +309,7 @@ class SamplerSettings:
     progress: bool = True
     method: str = "auto"
     max_draws: int | None = None  # None: 4 x draws
+    strict: bool = False  # as --strict for the gate: fit, sweep and calibrate exit 3 when a fit fails its diagnostics
 
     @property
     def draw_limit(self) -> int:
@@ -317,6 +318,8 @@ class SamplerSettings:
     def to_dict(self) -> dict[str, Any]:
         d = dataclasses.asdict(self)
         d["max_draws"] = self.draw_limit
+        if not self.strict:  # only when set: run files without it resolve (and resume) as before
+            d.pop("strict")
         return d
 
 
@@ -788,6 +791,7 @@ def _parse_sampler(sec: _Section | None) -> SamplerSettings:
         dense_mass=sec.get("dense_mass", bool, d.dense_mass),
         chain_method=method,
         progress=sec.get("progress", bool, d.progress),
+        strict=sec.get("strict", bool, d.strict),
     )
 
 

@@ -128,6 +128,11 @@ COV_GLS_SD_RTOL = 0.06  # 6000 exact draws: relative MC error of an sd is 1/sqrt
 # --- calibration by simulation (tests/test_calibrate.py) ---
 CALIBRATION_SIM_KS_P = 1e-3  # KS p-value floor for standardised residuals of a simulated catalogue at its truth; false alarm 1e-3 per check
 
+# --- recovery over seeds (tests/helpers.py::assert_recovers) ---
+HOSTS_CHI2_P = 2e-3  # joint chi-square of the true moduli under the posterior covariance: two-sided false alarm 2e-3 per fit
+ENSEMBLE_MEAN_PULL_Z = 3.5  # mean pull over K seeds within 3.5 / sqrt(K) of 0 (its standard error if calibrated); false alarm ~5e-4 per parameter
+ENSEMBLE_CHI2_P = 2e-3  # sum of squared pulls over K seeds ~ chi-square(K): two-sided false alarm 2e-3 per parameter
+
 # --- one-sided blend component and per-band terms (tests/test_outliers.py, tests/test_bands.py) ---
 BLEND_VS_SCIPY_RTOL = 1e-9  # same closed form as scipy.stats.exponnorm (erfc vs log_ndtr); rounding only, where the density is not tiny
 BLEND_VS_SCIPY_ATOL = 1e-9  # log densities of O(1-100); differences are float64 rounding (exp/log of ~1e-40 in the far tail)
