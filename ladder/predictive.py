@@ -61,14 +61,15 @@ def replicate_stars_given(noise: dict, parts, settings, params: dict):
     extinction). JAX."""
     import jax.numpy as jnp
 
-    from .model import mu_parallax, nonlinear_inputs, offset_var_from_params, theta_from_params
-    from .structure import residuals
+    from .model import gamma_from_params, mu_parallax, nonlinear_inputs, offset_var_from_params, theta_from_params
+    from .structure import residuals, star_offset_var
 
     lin = parts.lin
     theta_local, theta_global = theta_from_params(parts, params)
     mu_par = mu_parallax(params) if parts.parallax.shape[0] else None
-    pred = jnp.asarray(parts.observed) - residuals(parts.structure, lin, theta_local, theta_global, mu_par)
-    offset_var = offset_var_from_params(parts, settings, params)
+    gamma = gamma_from_params(parts, params)
+    pred = jnp.asarray(parts.observed) - residuals(parts.structure, lin, theta_local, theta_global, mu_par, gamma)
+    offset_var = star_offset_var(parts.structure, lin, offset_var_from_params(parts, settings, params), gamma)
     extinction, fraction = nonlinear_inputs(parts, settings, params)
     var_s = offset_var
     shift = jnp.zeros(pred.shape[0])

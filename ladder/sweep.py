@@ -123,6 +123,7 @@ _TABLES = ("cepheids", "hosts", "supernovae", "supernova_covariance", "anchor_co
 
 def _canonical_run(run: dict[str, Any]) -> dict[str, Any]:
     run = json.loads(json.dumps(run, default=str))
+    run.get("sampler", {}).pop("strict", None)  # the gate's exit code, not the fit: no reason to refit
     for k in _TABLES:
         if k in run.get("data", {}):
             run["data"][k] = str(Path(run["data"][k]).resolve())

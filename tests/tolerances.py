@@ -128,6 +128,11 @@ COV_GLS_SD_RTOL = 0.06  # 6000 exact draws: relative MC error of an sd is 1/sqrt
 # --- calibration by simulation (tests/test_calibrate.py) ---
 CALIBRATION_SIM_KS_P = 1e-3  # KS p-value floor for standardised residuals of a simulated catalogue at its truth; false alarm 1e-3 per check
 
+# --- recovery over seeds (tests/helpers.py::assert_recovers) ---
+HOSTS_CHI2_P = 2e-3  # joint chi-square of the true moduli under the posterior covariance: two-sided false alarm 2e-3 per fit
+ENSEMBLE_MEAN_PULL_Z = 3.5  # mean pull over K seeds within 3.5 / sqrt(K) of 0 (its standard error if calibrated); false alarm ~5e-4 per parameter
+ENSEMBLE_CHI2_P = 2e-3  # sum of squared pulls over K seeds ~ chi-square(K): two-sided false alarm 2e-3 per parameter
+
 # --- one-sided blend component and per-band terms (tests/test_outliers.py, tests/test_bands.py) ---
 BLEND_VS_SCIPY_RTOL = 1e-9  # same closed form as scipy.stats.exponnorm (erfc vs log_ndtr); rounding only, where the density is not tiny
 BLEND_VS_SCIPY_ATOL = 1e-9  # log densities of O(1-100); differences are float64 rounding (exp/log of ~1e-40 in the far tail)
@@ -135,3 +140,7 @@ BLEND_QUAD_ATOL = 1e-7  # log of a QUADPACK integral with epsabs 1e-14 of a dens
 FRACTION_RTOL = 1e-12  # logit-normal fraction vs scipy.special.expit: the same closed form, float64 rounding only
 JOINT_CHI2_P_PASS = 1e-3  # host moduli vs truth, chi-square with the posterior covariance: a calibrated posterior fails 1 in 1000
 JOINT_CHI2_P_BIASED = 1e-3  # the simpler model on data with the effect: its chi-square must be as unlikely as that to count as biased
+# --- O/H errors (tests/test_metallicity_errors.py) ---
+OH_ERR_MARGINAL_ATOL = 1e-7  # log p(y | gamma) sums terms of O(1e3) (quadratic form, log-determinants): rounding ~1e-12 of those, measured 9e-9
+OH_ERR_GRID_RTOL = 0.08  # a sampled sd (2 x 1500 draws, ESS >= 400 required) vs the grid's: relative MC error <= 1/sqrt(2 x 400) = 3.5%, about 2.3 of them
+OH_ERR_FISHER_RTOL = 0.15  # posterior sd of gamma vs the Fisher expectation: Gaussian without O/H errors (measured 2.4%); with them the posterior follows a ridge of gamma^2 oh_err^2 + scatter^2 cut by scatter >= 0, not Gaussian (measured 10% at the posterior means)
