@@ -220,7 +220,13 @@ def timed(cmd: list[str], env: dict | None = None) -> dict:
             "stderr": err}
 
 
+#: The machine's 1-minute load average, sampled before every case (printed with the results: on a shared machine
+#: the absolute times grow with it; the side-by-side ratios much less).
+LOAD: list[float] = []
+
+
 def run_case(kind: str, run: Path, npz: Path, tmp: Path, env: dict | None = None) -> dict:
+    LOAD.append(os.getloadavg()[0])
     res = tmp / f"{kind}.json"
     if res.exists():
         res.unlink()
@@ -264,6 +270,7 @@ def main(argv=None) -> int:
     tmp = Path(tempfile.mkdtemp(prefix="ladder-bench-"))
     rows, scale_rows = [], []
     earlier = earlier_rows(Path(a.out), [k for k in a.earlier.split(",") if k])
+    LOAD.append(os.getloadavg()[0])
     for label, n_sn, n_par in (("3,500 Cepheids, 40 galaxies, 2 anchors", 0, 0),
                                ("the same + 300 SNe + 60 parallax stars", 300, 60)):
         run = make_mock(tmp / f"mock-{n_sn}", 3500, 40, n_sn, n_par)
@@ -335,7 +342,11 @@ def write_report(out: Path, rows, scale_rows, full=None) -> None:
     names = NAMES
     lines = ["# Performance", "", "Written by `python examples/benchmark.py` (not a test); every figure is a whole "
              "process (start-up, compilation, sampling, writing), measured side by side in one run.", "",
-             f"Machine: {_machine()}.", "", f"Each sampler: {CHAINS} chains x ({WARMUP} warm-up + {DRAWS} draws) "
+             f"Machine: {_machine()}.", "",
+             f"Load during the run (1-minute load average before each case, {os.cpu_count()} cores): "
+             f"{min(LOAD, default=float('nan')):.1f} to {max(LOAD, default=float('nan')):.1f}"
+             + (" -- a shared, busy machine: absolute times are inflated; compare within a table." if LOAD and
+                max(LOAD) > 1.5 * (os.cpu_count() or 1) else "."), "", f"Each sampler: {CHAINS} chains x ({WARMUP} warm-up + {DRAWS} draws) "
              "(emcee: 4 x n_dim walkers for a fixed 120 s budget, second half kept). Min bulk ESS over the global "
              "parameters and every galaxy's modulus.", ""]
     for label, results in rows:
