@@ -125,7 +125,7 @@ def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
     band_shape = (len(layout.bands),) if model.multiband else ()
     t: dict = {"mu": _draw(model.prior("mu"), rng, (layout.n_mu,))}
     for name in dict.fromkeys(n for n, _ in st.columns):
-        t[name] = _draw(model.prior(name), rng, band_shape if name.startswith("pl_") else ())
+        t[name] = _draw(model.prior(name), rng, band_shape if name in model.band_parameters else ())
     n_b = parts.bias_slots.shape[0]
     if st.n_local == 2 and n_b:  # the hosts table's estimate is the bias's prior: N(bias, bias_err)
         lin = parts.lin
@@ -136,6 +136,8 @@ def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
     if model.scatter_model == "per_host":
         t["scatter_spread"] = _draw(model.prior("scatter_spread"), rng)
         t["host_scatter"] = t["scatter"] * np.exp(t["scatter_spread"] * rng.standard_normal(len(layout.galaxies)))
+    if model.scatter_bands:
+        t["band_scatter"] = _draw(model.prior("band_scatter"), rng, band_shape)
     if model.needs_law and model.reddening.free:  # TruncatedNormal(rv, rv_err, low=1), as in the model
         rd = model.reddening
         while True:
@@ -249,7 +251,7 @@ def _quantities(layout, model, data) -> list[tuple[str, str, int | None]]:
     for n in global_parameters(model, layout):
         if n in ("wesenheit_r",) or (n == "r_v" and not (model.needs_law and model.reddening.free)):
             continue
-        if model.multiband and n.startswith("pl_"):
+        if n in model.band_parameters:
             out += [(f"{n}[{b}]", n, i) for i, b in enumerate(layout.bands)]
         else:
             out.append((n, n, None))

@@ -234,6 +234,15 @@ class ModelSettings:
         return self.multiband or (self.wesenheit is not None and self.wesenheit.from_law)
 
     @property
+    def band_parameters(self) -> tuple[str, ...]:
+        """Linear parameters with one value per fitted band: the PL parameters in a multiband fit, and the
+        metallicity coefficient with ``metallicity = "per_band"``. The one rule every consumer uses."""
+        if not self.multiband:
+            return ()
+        return ("pl_zero_point", "pl_slope", "pl_slope_long") + (("metallicity_coef",) if self.metallicity_per_band
+                                                                  else ())
+
+    @property
     def fitted_bands(self) -> tuple[str, ...]:
         """Bands whose magnitudes the model reads."""
         if self.multiband:

@@ -43,7 +43,7 @@ from .config import ModelSettings, PriorSpec
 from .errors import InputError
 
 __all__ = ["ModelArrays", "Layout", "model_arrays", "ModelParts", "model_parts", "fitted_data", "marginal_model",
-           "full_model", "star_logpdf", "pointwise", "theta_from_params", "GLOBAL_PARAMETERS", "global_parameters",
+           "star_variances", "band_scatter_from_params", "full_model", "star_logpdf", "pointwise", "theta_from_params", "GLOBAL_PARAMETERS", "global_parameters",
            "DERIVED_PER_STAR", "star_residuals", "wesenheit_ratio_value"]
 
 #: Global parameters in output order (vector-valued ones get one row per band).
@@ -465,7 +465,16 @@ def _photometric_modulus(resid0, var, mask, a=None):
     return jnp.where(ok, (s2 * t0 - s1 * t1) / safe, plain), jnp.where(ok, s2 / safe, plain_var)
 
 
-def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, outliers=True):
+def star_variances(parts: ModelParts, band_scatter=None):
+    """(N, k) variances of the fitted magnitudes: photometric, plus the per-band intrinsic part with
+    ``scatter_bands`` (:func:`ladder.terms.noise.band_variances`)."""
+    from .terms.noise import band_variances
+
+    return parts.lin.var if band_scatter is None else band_variances(parts.lin.var, band_scatter[None, :])
+
+
+def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, outliers=True,
+                    band_scatter=None):
     """(N,) log densities of every star under the core and (with ``outliers``) the outlier component: the
     broad Normal (offset variance + outlier_width^2) or the one-sided blend
     (:func:`ladder.terms.outliers.blend_logpdf`). ``(core, other or None)``."""
@@ -474,7 +483,7 @@ def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_va
     from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf
     from .terms.outliers import blend_logpdf
 
-    var, mask = parts.lin.var, parts.lin.mask
+    var, mask = star_variances(parts, band_scatter), parts.lin.mask
     if extinction is None:
         dens = lambda s2: jax.vmap(common_offset_normal_logpdf)(resid, var, mask, s2)  # noqa: E731
     else:
@@ -492,24 +501,26 @@ def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_va
     return core, other
 
 
-def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None):
+def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None,
+                band_scatter=None):
     r"""(N,) log density of each Cepheid's magnitudes given its residuals (N, k): the common-offset Normal
     (:func:`ladder.terms.noise.common_offset_normal_logpdf`), with E(B-V) integrated out when ``extinction``
     = ``(a, rate)`` (:func:`ladder.terms.noise.reddened_star_logpdf`), and the outlier mixture
     (:func:`ladder.terms.outliers.mixture_logpdf`; outlier component broad or blend) when ``fraction`` (a scalar
-    or one per star) is given. Clipped stars give 0."""
+    or one per star) is given; ``band_scatter`` (k,) the per-band intrinsic widths (``scatter_bands``).
+    Clipped stars give 0."""
     import jax.numpy as jnp
 
     from .terms.outliers import mixture_logpdf
 
-    core, other = _component_logs(parts, settings, resid, offset_var, extinction, fraction is not None)
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction, fraction is not None, band_scatter)
     if fraction is not None:
         core = mixture_logpdf(core, other, fraction)
     return jnp.where(jnp.any(parts.lin.mask, axis=1), core, 0.0)
 
 
 def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None,
-                    fraction=None):
+                    fraction=None, band_scatter=None):
     """(N,) conditional probability of the outlier component (broad or blend), and (N,) posterior-mean E(B-V)
     (zeros without extinction), at these parameters."""
     import jax
@@ -518,7 +529,7 @@ def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_va
     from .terms.noise import reddening_posterior_mean
     from .terms.outliers import membership_probability
 
-    var, mask = parts.lin.var, parts.lin.mask
+    var, mask = star_variances(parts, band_scatter), parts.lin.mask
     n = resid.shape[0]
     ebv = jnp.zeros(n)
     if extinction is not None:
@@ -526,7 +537,7 @@ def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_va
         ebv = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(resid, var, mask, offset_var, a, rate)
     if fraction is None:
         return jnp.zeros(n), ebv
-    core, other = _component_logs(parts, settings, resid, offset_var, extinction)
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction, band_scatter=band_scatter)
     return membership_probability(core, other, fraction), ebv
 
 
@@ -613,7 +624,7 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     mu = sample_parameter("mu", settings.prior("mu"), (layout.n_mu,))
     values = {}
     for name in dict.fromkeys(n for n, _ in st.columns):
-        shape = band_shape if name.startswith("pl_") else ()
+        shape = band_shape if name in settings.band_parameters else ()
         values[name] = sample_parameter(name, settings.prior(name), shape)
     theta_global = pack(st, values)
     local = [mu]
@@ -628,6 +639,8 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
         local.append(bias)
     theta_local = jnp.stack(local, axis=1)
     offset_var = _scatter_sites(parts, settings, n_gal)
+    band_scatter = sample_parameter("band_scatter", settings.prior("band_scatter"), band_shape) \
+        if settings.scatter_bands else None
 
     params = {}
     if settings.needs_law and settings.reddening.free:
@@ -650,7 +663,8 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
                                               None if extinction is None else extinction[0])
         mu_par = _parallax_sites(parts, settings, base, jnp.sqrt(var_base + offset_var[lin.par_star]))
     resid = residuals(st, lin, theta_local, theta_global, mu_par)
-    numpyro.factor("cepheids", jnp.sum(star_logpdf(parts, settings, resid, offset_var, extinction, fraction)))
+    numpyro.factor("cepheids", jnp.sum(star_logpdf(parts, settings, resid, offset_var, extinction, fraction,
+                                                   band_scatter)))
     sn_var = 0.0
     if layout.has_sn:
         sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
@@ -686,6 +700,17 @@ def offset_var_from_params(parts: ModelParts, settings: ModelSettings, params: d
     return jnp.broadcast_to(s**2, parts.star_galaxy.shape)
 
 
+def band_scatter_from_params(parts: ModelParts, settings: ModelSettings, params: dict):
+    """The per-band intrinsic widths (k,) at ``params`` (``scatter_bands``), or None."""
+    import jax.numpy as jnp
+
+    if not settings.scatter_bands:
+        return None
+    if "band_scatter" in params:
+        return jnp.asarray(params["band_scatter"])
+    return jnp.full(parts.lin.var.shape[1], settings.prior("band_scatter").get("value"))
+
+
 def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
     """At one posterior draw (output-named ``params``): per-star log densities (N,), residuals (N, k), the
     outlier membership (N,), E(B-V) (N,), and the anchors' and supernovae's log densities."""
@@ -698,13 +723,14 @@ def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
     mu_par = mu_parallax(params) if parts.parallax.shape[0] else None
     resid = residuals(parts.structure, parts.lin, theta_local, theta_global, mu_par)
     extinction, fraction = nonlinear_inputs(parts, settings, params)
-    logp = star_logpdf(parts, settings, resid, offset_var, extinction, fraction)
-    q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction)
+    band_scatter = band_scatter_from_params(parts, settings, params)
+    logp = star_logpdf(parts, settings, resid, offset_var, extinction, fraction, band_scatter)
+    q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction, band_scatter)
     sn_var = params["sn_scatter"] ** 2 if "sn_scatter" in params else \
         (jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2 if parts.lin.sn_slot.shape[0] else 0.0)
     a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var)
     clean = resid if extinction is None else resid - ebv[:, None] * extinction[0][None, :]
-    w = jnp.where(parts.lin.seen, 1.0 / parts.lin.var, 0.0)
+    w = jnp.where(parts.lin.seen, 1.0 / star_variances(parts, band_scatter), 0.0)
     star_resid = jnp.sum(w * clean, axis=1) / jnp.sum(w, axis=1)
     return {"cepheids": logp, "resid": resid, "star_resid": star_resid, "outlier_prob": q, "ebv": ebv,
             "anchors": a_ll, "supernovae": sn_ll}

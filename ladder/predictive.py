@@ -12,6 +12,7 @@ For Cepheid *j* (fitted columns *B*) at parameters :math:`\theta, \phi`:
     \text{ in every band)},
 
     E_j \sim \mathrm{Exponential}(\text{mean } \bar E_i) \ (\text{multiband extinction}),
+    \quad \sigma_{jB}^2 \to \sigma_{jB}^2 + \tau_B^2 \ (\texttt{scatter\_bands}),
 
 with :math:`\hat m` the model's prediction (:func:`ladder.structure.residuals`: observed minus residual) and
 the per-galaxy scatter, outlier fraction (global or per galaxy) and extinction exactly as in :func:`ladder.model.star_logpdf`. Anchors,
@@ -31,7 +32,8 @@ def replicate_stars(key, parts, settings, params: dict):
     import jax
     import jax.numpy as jnp
 
-    from .model import mu_parallax, nonlinear_inputs, offset_var_from_params, theta_from_params
+    from .model import (band_scatter_from_params, mu_parallax, nonlinear_inputs, offset_var_from_params,
+                        star_variances, theta_from_params)
     from .structure import residuals
 
     lin = parts.lin
@@ -52,7 +54,8 @@ def replicate_stars(key, parts, settings, params: dict):
         else:
             var_s = jnp.where(member, offset_var + settings.outlier_width**2, offset_var)
     s = jnp.sqrt(var_s) * jax.random.normal(k2, (n,))
-    eps = jnp.sqrt(lin.var) * jax.random.normal(k3, (n, k))
+    eps = jnp.sqrt(star_variances(parts, band_scatter_from_params(parts, settings, params))) * \
+        jax.random.normal(k3, (n, k))  # photometric and, with scatter_bands, the per-band intrinsic part
     rep = pred + (s + shift)[:, None] + eps
     if extinction is not None:
         a, rate = extinction

@@ -191,6 +191,8 @@ def initial_values(parts: ModelParts, layout: Layout, settings: ModelSettings, m
             init["r_v"] = settings.reddening.rv
         if settings.multiband:
             init["ebv_mean"] = np.full(len(layout.galaxies), 0.1)
+        if settings.scatter_bands:
+            init["band_scatter"] = np.full(len(layout.bands), 0.03)
         if settings.outliers == "mixture":
             init["outlier_fraction"] = 0.05
             if settings.outlier_fraction_model == "per_galaxy":

@@ -112,7 +112,7 @@ WESENHEIT_BANDS = ("H", "V", "I")
 
 #: One child random stream per ingredient, in this order (append new ones at the end only).
 _STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise",
-            "parallax", "outliers", "host_scatter", "bias", "supernovae")
+            "parallax", "outliers", "host_scatter", "bias", "supernovae", "bands")
 
 _SPEED_OF_LIGHT_KMS = 299792.458  # exact (SI); same value as ladder.cosmography, which imports JAX
 
@@ -219,6 +219,15 @@ class MockSettings:
         role-"host" galaxies (observed = true + b_g, so W too moves by b_g); hosts table columns ``bias`` = b_g + N(0, ``bias_err`` = 0.02)
         and ``bias_err`` (masked for anchors and the parallax group).
 
+    Per-band terms (band order V, I, H)
+        ``metallicity_coef_bands`` (None: ``metallicity_coef`` in every band): one metallicity
+        coefficient per band. ``band_scatter`` (None: off): an independent intrinsic offset
+        N(0, tau_B) per star and band besides the common one. ``strip_amplitudes`` (None: 1 in
+        every band): the common offset enters band B as a_B s_k, the finite width of the
+        instability strip (at fixed period a brighter Cepheid is bluer: a_V > a_I > a_H). With
+        any of them the W truths ``metallicity_coef``, ``scatter`` are those of W = H - R (V - I):
+        gamma_W = gamma_H - R (gamma_V - gamma_I), and the W offset is (a_H - R (a_V - a_I)) s_k.
+
     Supernovae
         ``n_hubble_flow`` (0: no supernovae) SNe Ia in the Hubble flow, z uniform in ``sn_z``
         (0.025, 0.15: the default window of :class:`ladder.config.SupernovaSettings`, where its
@@ -307,6 +316,10 @@ class MockSettings:
     sn_mag_err: tuple[float, float] = (0.08, 0.12)
     q0: float = -0.55
     j0: float = 1.0
+    # per-band terms (issue 9): band order V, I, H as BANDS
+    metallicity_coef_bands: tuple[float, float, float] | None = None
+    band_scatter: tuple[float, float, float] | None = None
+    strip_amplitudes: tuple[float, float, float] | None = None
 
     def __post_init__(self) -> None:
         for name in ("n_hosts", "n_anchors", "n_cepheids", "min_cepheids"):
@@ -413,6 +426,15 @@ class MockSettings:
         if 5.0 * self.sigma_v >= _SPEED_OF_LIGHT_KMS * self.sn_z[0]:
             raise ValueError("sigma_v must be < c z_min / 5 so that the reported redshifts stay positive")
         _range("sn_mag_err", self.sn_mag_err, positive=True)
+        for name in ("metallicity_coef_bands", "band_scatter", "strip_amplitudes"):
+            v = getattr(self, name)
+            if v is None:
+                continue
+            if not isinstance(v, (tuple, list)) or len(v) != len(BANDS):
+                raise ValueError(f"{name} needs one value per band {BANDS}, got {v!r}")
+            vals = [finite(name, x) for x in v]
+            if name != "metallicity_coef_bands" and min(vals) < 0:
+                raise ValueError(f"{name} must be >= 0 in every band, got {v!r}")
 
     @property
     def band_extinction_ratios(self) -> tuple[float, float, float]:
@@ -759,11 +781,16 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
 
     pl = s.band_pl
     ratio = dict(zip(BANDS, s.band_extinction_ratios))
+    gamma = s.metallicity_coef_bands or (s.metallicity_coef,) * len(BANDS)
+    amp = s.strip_amplitudes or (1.0,) * len(BANDS)
+    band_offset = np.zeros((n_star_all, len(BANDS)))
+    if s.band_scatter is not None:
+        band_offset = np.asarray(s.band_scatter, float)[None, :] * rng["bands"].standard_normal((n_star_all, len(BANDS)))
     mag = np.empty((n_star_all, len(BANDS)))
     for j, b in enumerate(BANDS):
         zp, slope = pl[b]
-        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + s.metallicity_coef * (oh - s.solar_oh)
-                     + offset + ratio[b] * a_v + noise[:, j])
+        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + gamma[j] * (oh - s.solar_oh)
+                     + amp[j] * offset + band_offset[:, j] + ratio[b] * a_v + noise[:, j])
         if any_extra:
             mag[:, j] += extra
 
@@ -867,6 +894,19 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         sn.meta["description"] += f" seed {seed}"
         truth.update(h0=float(s.h0), sn_abs_mag=float(s.sn_abs_mag), sn_scatter=float(s.sn_scatter),
                      sigma_v=float(s.sigma_v), q0=float(s.q0), j0=float(s.j0))
+    if s.metallicity_coef_bands is not None:
+        g = dict(zip(BANDS, (float(x) for x in s.metallicity_coef_bands)))
+        truth["metallicity_coef_bands"] = g
+        truth["metallicity_coef"] = g["H"] - r * (g["V"] - g["I"])  # W = H - R (V - I)
+    if s.band_scatter is not None or s.strip_amplitudes is not None:  # the W offset: (a_H - R (a_V - a_I)) s + ...
+        a = dict(zip(BANDS, (float(x) for x in amp)))
+        t = dict(zip(BANDS, (float(x) for x in (s.band_scatter or (0.0,) * len(BANDS)))))
+        truth["scatter"] = math.sqrt(((a["H"] - r * (a["V"] - a["I"])) * s.scatter) ** 2
+                                     + t["H"] ** 2 + r**2 * (t["V"] ** 2 + t["I"] ** 2))
+        if s.band_scatter is not None:
+            truth["band_scatter"] = t
+        if s.strip_amplitudes is not None:
+            truth["strip_amplitudes"] = a
     truth["seed"] = seed
     truth["settings"] = dataclasses.asdict(s)
     return Mock(settings=s, seed=seed, cepheids=cep, hosts=hosts, truth=truth, latent=latent,

@@ -7,7 +7,8 @@ scatter; R or R_V are fixed here), every observation of the ladder is linear in
 * per galaxy *i* (the *local* block, :math:`L` columns): its modulus :math:`\mu_i` and, with
   ``photometric_bias``, its bias :math:`\beta_i`;
 * shared (the *global* block, :math:`p` columns): PL zero point(s) :math:`M_B` and slope(s) :math:`b_B`
-  (:math:`b_{\mathrm{long},B}` above a break), the metallicity coefficient :math:`\gamma`, the SN absolute
+  (:math:`b_{\mathrm{long},B}` above a break), the metallicity coefficient :math:`\gamma` (one per band,
+  :math:`\gamma_B`, with ``metallicity = "per_band"``), the SN absolute
   magnitude :math:`M_\mathrm{SN}` and :math:`a = 5\log_{10} H_0`.
 
 For Cepheid *j* of galaxy *i* in fitted column (band) *B*:
@@ -17,7 +18,7 @@ For Cepheid *j* of galaxy *i* in fitted column (band) *B*:
     y_{jB} \equiv m_{jB} - c_{jB} = e_j^\top \theta_{\mathrm{loc},i} + G_{jB}^\top \theta_\mathrm{glob}
              + \epsilon_{jB} + s_j, \qquad
     G_{jB} = \big(\delta_{B}\,;\ \delta_{B}\,x^\mathrm{short}_j\,;\ \delta_{B}\,x^\mathrm{long}_j\,;\
-             [\mathrm{O/H}]_j - [\mathrm{O/H}]_\odot\big),
+             [\mathrm{O/H}]_j - [\mathrm{O/H}]_\odot\ [\text{per band: } \delta_B(\dots)]\big),
 
 where :math:`c_{jB}` holds every fixed contribution (parameters with a ``fixed`` prior, a parallax star's own
 modulus), :math:`e_j = (1, [\text{has bias}])` (a parallax star has no local column), :math:`x^\mathrm{short}
@@ -93,6 +94,7 @@ class Structure:
     band_shaped: bool  # PL parameters have one value per band (multiband)
     uniform_bounds: tuple[tuple[str, float, float], ...] = ()  # linear parameters with a uniform prior
     sorted_slots: bool = False  # stars ordered by galaxy (faster segment sums)
+    band_params: tuple[str, ...] = ()  # parameters with one value per band (ModelSettings.band_parameters)
 
     @property
     def p(self) -> int:
@@ -178,7 +180,7 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
         if not wanted[name]:
             continue
         spec = settings.prior(name)
-        per_band = name in ("pl_zero_point", "pl_slope", "pl_slope_long")
+        per_band = name in settings.band_parameters
         if spec.dist == "fixed":
             fixed.append((name, float(spec.get("value"))))
             continue
@@ -189,7 +191,7 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     mu_index0 = np.asarray(arrays.star_mu_index)
     slot0 = np.where(mu_index0 >= layout.n_mu, layout.n_mu, mu_index0)
     structure = Structure(tuple(columns), tuple(fixed), n_local, layout.n_mu, tuple(bands), band_shaped,
-                          tuple(bounds), bool(np.all(np.diff(slot0) >= 0)))
+                          tuple(bounds), bool(np.all(np.diff(slot0) >= 0)), tuple(settings.band_parameters))
 
     # The regressors are the model terms themselves (linear in their parameters), evaluated at unit parameter
     # values: M(P) of ladder.terms.pl and the offset of ladder.terms.metallicity.
@@ -216,7 +218,7 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     seen = np.asarray(mask, bool)
     y0 = np.where(seen, obs, 0.0)
     for name, value in fixed:  # fixed contributions move to the data side
-        for b in (range(nb) if band_shaped and name.startswith("pl_") else [None]):
+        for b in (range(nb) if name in settings.band_parameters else [None]):
             y0 = y0 - value * regressor(name, b)
     weight = np.asarray(arrays.star_weight, float) > 0
     mask = seen & weight[:, None]
@@ -562,7 +564,7 @@ def unpack(structure: Structure, theta_global) -> dict:
         if name == "h0":
             out[name] = 10.0 ** (v[..., 0] / 5.0)
         else:
-            out[name] = v if structure.band_shaped and name.startswith("pl_") else v[..., 0]
+            out[name] = v if name in structure.band_params else v[..., 0]
     for name, value in structure.fixed:
         out.setdefault(name, jnp.asarray(value))
     return out
