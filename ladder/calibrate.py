@@ -138,6 +138,9 @@ def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
         t["host_scatter"] = t["scatter"] * np.exp(t["scatter_spread"] * rng.standard_normal(len(layout.galaxies)))
     if model.scatter_bands:
         t["band_scatter"] = _draw(model.prior("band_scatter"), rng, band_shape)
+    if model.offset_amplitudes:  # exp of (k - 1 free log amplitudes, minus their sum), as the model
+        free = _draw(model.prior("offset_log_amplitude"), rng, (len(layout.bands) - 1,))
+        t["offset_amplitude"] = np.exp(np.append(free, -np.sum(free)))
     if model.needs_law and model.reddening.free:  # TruncatedNormal(rv, rv_err, low=1), as in the model
         rd = model.reddening
         while True:

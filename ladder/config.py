@@ -117,6 +117,7 @@ DEFAULT_PRIORS: dict[str, PriorSpec] = {
     "outlier_fraction": _p("uniform", low=0.0, high=0.5),
     "outlier_fraction_spread": _p("halfnormal", scale=1.0),
     "band_scatter": _p("halfnormal", scale=0.2),
+    "offset_log_amplitude": _p("normal", loc=0.0, scale=0.5),
     "h0": _p("uniform", low=20.0, high=150.0),
     "sn_abs_mag": _p("normal", loc=-19.3, scale=1.0),
     "sn_scatter": _p("halfnormal", scale=0.3),
@@ -210,6 +211,7 @@ class ModelSettings:
     outlier_component: str = "broad"  # "broad" (symmetric, extra sd outlier_width) | "blend" (brighter, mean width)
     metallicity_per_band: bool = False  # [model] metallicity = "per_band" (multiband: one gamma per band)
     scatter_bands: bool = False  # multiband: an independent per-band intrinsic scatter besides the common offset
+    offset_amplitudes: bool = False  # multiband: the common offset enters band B as alpha_B s (instability strip)
     clip_sigma: float = 3.0
     photometric_bias: bool = False
     pl_break: bool = False
@@ -264,6 +266,8 @@ class ModelSettings:
             d["outlier_component"] = self.outlier_component
         if self.scatter_bands:
             d["scatter_bands"] = True
+        if self.offset_amplitudes:
+            d["offset_amplitudes"] = True
         if self.multiband:
             d["bands"] = list(self.bands)
         if self.wesenheit:
@@ -619,7 +623,8 @@ def _parse_bands(sec: _Section | None) -> tuple[tuple[str, float], ...]:
 
 _MODEL_KEYS = {"band", "bands", "metallicity", "solar_oh", "wesenheit", "priors", "extinction", "scatter", "outliers",
                "outlier_width", "clip_sigma", "photometric_bias", "pl_break", "pl_break_period", "reddening",
-               "parallax", "supernovae", "outlier_fraction", "outlier_component", "scatter_bands"}
+               "parallax", "supernovae", "outlier_fraction", "outlier_component", "scatter_bands",
+               "offset_amplitudes"}
 
 
 def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
@@ -674,6 +679,10 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
     if scatter_bands and extinction != "multiband":
         raise InputError("scatter_bands = true adds a per-band intrinsic scatter to the fit of several bands: it "
                          "needs extinction = \"multiband\"", file=sec.file, key="model.scatter_bands")
+    offset_amplitudes = sec.get("offset_amplitudes", bool, False)
+    if offset_amplitudes and extinction != "multiband":
+        raise InputError("offset_amplitudes = true gives the intrinsic offset one amplitude per fitted band: it needs "
+                         "extinction = \"multiband\"", file=sec.file, key="model.offset_amplitudes")
     outliers = _choice(sec, "outliers", OUTLIER_MODES)
     fraction_model = _choice(sec, "outlier_fraction", OUTLIER_FRACTION_MODES)
     component = _choice(sec, "outlier_component", OUTLIER_COMPONENTS)
@@ -692,6 +701,7 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
         metallicity=bool(metallicity),
         metallicity_per_band=metallicity == "per_band",
         scatter_bands=scatter_bands,
+        offset_amplitudes=offset_amplitudes,
         outlier_fraction_model=fraction_model,
         outlier_component=component,
         solar_oh=sec.float_("solar_oh", SOLAR_OH_ASPLUND09, lo=5.0, hi=11.0),

@@ -43,12 +43,12 @@ from .config import ModelSettings, PriorSpec
 from .errors import InputError
 
 __all__ = ["ModelArrays", "Layout", "model_arrays", "ModelParts", "model_parts", "fitted_data", "marginal_model",
-           "star_variances", "band_scatter_from_params", "full_model", "star_logpdf", "pointwise", "theta_from_params", "GLOBAL_PARAMETERS", "global_parameters",
+           "star_variances", "band_noise_from_params", "full_model", "star_logpdf", "pointwise", "theta_from_params", "GLOBAL_PARAMETERS", "global_parameters",
            "DERIVED_PER_STAR", "star_residuals", "wesenheit_ratio_value"]
 
 #: Global parameters in output order (vector-valued ones get one row per band).
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
-                     "band_scatter", "wesenheit_r", "r_v", "outlier_fraction", "outlier_fraction_spread",
+                     "band_scatter", "offset_amplitude", "wesenheit_r", "r_v", "outlier_fraction", "outlier_fraction_spread",
                      "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag", "sn_scatter")
 #: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
 DERIVED_PER_STAR = ("outlier_prob", "ebv")
@@ -246,6 +246,7 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
         "metallicity_coef": settings.metallicity, "scatter": True,
         "scatter_spread": settings.scatter_model == "per_host",
         "band_scatter": settings.scatter_bands,
+        "offset_amplitude": settings.offset_amplitudes,
         "wesenheit_r": False,  # R is fixed in every model (an uncertain R is refused by the run-file parser)
         "r_v": settings.needs_law and settings.reddening.free,
         "outlier_fraction": settings.outliers == "mixture",
@@ -257,7 +258,8 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
     for name in GLOBAL_PARAMETERS:
         if not wanted[name]:
             continue
-        if name in ("wesenheit_r", "r_v", "parallax_length_scale") or settings.prior(name).dist != "fixed":
+        if name in ("wesenheit_r", "r_v", "parallax_length_scale", "offset_amplitude") or \
+                settings.prior(name).dist != "fixed":
             names.append(name)
     return names
 
@@ -473,8 +475,26 @@ def star_variances(parts: ModelParts, band_scatter=None):
     return parts.lin.var if band_scatter is None else band_variances(parts.lin.var, band_scatter[None, :])
 
 
+def _band_noise(parts: ModelParts, resid, extinction, band_noise):
+    """Residuals, variances, extinction and log Jacobian with the per-band noise terms applied: the per-band
+    scatter (:func:`ladder.terms.noise.band_variances`) and the offset amplitudes
+    (:func:`ladder.terms.noise.amplitude_scaled`). ``band_noise`` = ``(band_scatter, amplitude)``, each (k,) or
+    None."""
+    import jax
+
+    from .terms.noise import amplitude_scaled
+
+    tau, amp = band_noise if band_noise is not None else (None, None)
+    var, logjac = star_variances(parts, tau), 0.0
+    if amp is not None:
+        resid, var, logjac = jax.vmap(amplitude_scaled, in_axes=(0, 0, 0, None))(resid, var, parts.lin.mask, amp)
+        if extinction is not None:
+            extinction = (extinction[0] / amp, extinction[1])
+    return resid, var, extinction, logjac
+
+
 def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, outliers=True,
-                    band_scatter=None):
+                    band_noise=None):
     """(N,) log densities of every star under the core and (with ``outliers``) the outlier component: the
     broad Normal (offset variance + outlier_width^2) or the one-sided blend
     (:func:`ladder.terms.outliers.blend_logpdf`). ``(core, other or None)``."""
@@ -483,44 +503,46 @@ def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_va
     from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf
     from .terms.outliers import blend_logpdf
 
-    var, mask = star_variances(parts, band_scatter), parts.lin.mask
+    resid, var, extinction, logjac = _band_noise(parts, resid, extinction, band_noise)
+    mask = parts.lin.mask
     if extinction is None:
         dens = lambda s2: jax.vmap(common_offset_normal_logpdf)(resid, var, mask, s2)  # noqa: E731
     else:
         a, rate = extinction
         dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
             resid, var, mask, s2, a, rate)
-    core = dens(offset_var)
+    core = dens(offset_var) + logjac
     if not outliers:
         return core, None
     if settings.outlier_component == "blend":  # one fitted magnitude only (the run-file parser refuses multiband)
         other = jax.vmap(blend_logpdf, in_axes=(0, 0, 0, 0, None))(resid, var, mask, offset_var,
                                                                    settings.outlier_width)
     else:
-        other = dens(offset_var + settings.outlier_width**2)
+        other = dens(offset_var + settings.outlier_width**2) + logjac
     return core, other
 
 
 def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None,
-                band_scatter=None):
+                band_noise=None):
     r"""(N,) log density of each Cepheid's magnitudes given its residuals (N, k): the common-offset Normal
     (:func:`ladder.terms.noise.common_offset_normal_logpdf`), with E(B-V) integrated out when ``extinction``
     = ``(a, rate)`` (:func:`ladder.terms.noise.reddened_star_logpdf`), and the outlier mixture
     (:func:`ladder.terms.outliers.mixture_logpdf`; outlier component broad or blend) when ``fraction`` (a scalar
-    or one per star) is given; ``band_scatter`` (k,) the per-band intrinsic widths (``scatter_bands``).
+    or one per star) is given; ``band_noise`` = ``(band_scatter, offset_amplitude)`` the per-band terms of the
+    intrinsic scatter (``scatter_bands``, ``offset_amplitudes``; each (k,) or None).
     Clipped stars give 0."""
     import jax.numpy as jnp
 
     from .terms.outliers import mixture_logpdf
 
-    core, other = _component_logs(parts, settings, resid, offset_var, extinction, fraction is not None, band_scatter)
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction, fraction is not None, band_noise)
     if fraction is not None:
         core = mixture_logpdf(core, other, fraction)
     return jnp.where(jnp.any(parts.lin.mask, axis=1), core, 0.0)
 
 
 def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None,
-                    fraction=None, band_scatter=None):
+                    fraction=None, band_noise=None):
     """(N,) conditional probability of the outlier component (broad or blend), and (N,) posterior-mean E(B-V)
     (zeros without extinction), at these parameters."""
     import jax
@@ -529,15 +551,16 @@ def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_va
     from .terms.noise import reddening_posterior_mean
     from .terms.outliers import membership_probability
 
-    var, mask = star_variances(parts, band_scatter), parts.lin.mask
+    r, var, ext, _ = _band_noise(parts, resid, extinction, band_noise)
+    mask = parts.lin.mask
     n = resid.shape[0]
     ebv = jnp.zeros(n)
     if extinction is not None:
-        a, rate = extinction
-        ebv = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(resid, var, mask, offset_var, a, rate)
+        a, rate = ext
+        ebv = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(r, var, mask, offset_var, a, rate)
     if fraction is None:
         return jnp.zeros(n), ebv
-    core, other = _component_logs(parts, settings, resid, offset_var, extinction, band_scatter=band_scatter)
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction, band_noise=band_noise)
     return membership_probability(core, other, fraction), ebv
 
 
@@ -639,8 +662,7 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
         local.append(bias)
     theta_local = jnp.stack(local, axis=1)
     offset_var = _scatter_sites(parts, settings, n_gal)
-    band_scatter = sample_parameter("band_scatter", settings.prior("band_scatter"), band_shape) \
-        if settings.scatter_bands else None
+    band_noise = _band_noise_sites(settings, band_shape)
 
     params = {}
     if settings.needs_law and settings.reddening.free:
@@ -664,7 +686,7 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
         mu_par = _parallax_sites(parts, settings, base, jnp.sqrt(var_base + offset_var[lin.par_star]))
     resid = residuals(st, lin, theta_local, theta_global, mu_par)
     numpyro.factor("cepheids", jnp.sum(star_logpdf(parts, settings, resid, offset_var, extinction, fraction,
-                                                   band_scatter)))
+                                                   band_noise)))
     sn_var = 0.0
     if layout.has_sn:
         sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
@@ -700,15 +722,37 @@ def offset_var_from_params(parts: ModelParts, settings: ModelSettings, params: d
     return jnp.broadcast_to(s**2, parts.star_galaxy.shape)
 
 
-def band_scatter_from_params(parts: ModelParts, settings: ModelSettings, params: dict):
-    """The per-band intrinsic widths (k,) at ``params`` (``scatter_bands``), or None."""
+def band_noise_from_params(parts: ModelParts, settings: ModelSettings, params: dict):
+    """``(band_scatter, offset_amplitude)`` at ``params``: the per-band widths (k,) (``scatter_bands``) and the
+    offset amplitudes (k,) (``offset_amplitudes``), each None when off."""
     import jax.numpy as jnp
 
-    if not settings.scatter_bands:
-        return None
-    if "band_scatter" in params:
-        return jnp.asarray(params["band_scatter"])
-    return jnp.full(parts.lin.var.shape[1], settings.prior("band_scatter").get("value"))
+    tau = amp = None
+    if settings.scatter_bands:
+        tau = jnp.asarray(params["band_scatter"]) if "band_scatter" in params else \
+            jnp.full(parts.lin.var.shape[1], settings.prior("band_scatter").get("value"))
+    if settings.offset_amplitudes:
+        amp = jnp.asarray(params["offset_amplitude"])
+    return tau, amp
+
+
+def _band_noise_sites(settings: ModelSettings, band_shape):
+    """Sites of the per-band noise terms: ``band_scatter`` (k,), and the offset amplitudes
+    alpha_B = exp(eta_B) with sum_B eta_B = 0 (``offset_log_amplitude_free``: the first k - 1, prior from
+    ``[model.priors] offset_log_amplitude``; output ``offset_amplitude``)."""
+    import jax.numpy as jnp
+    import numpyro
+
+    from .priors import sample_parameter
+
+    tau = amp = None
+    if settings.scatter_bands:
+        tau = sample_parameter("band_scatter", settings.prior("band_scatter"), band_shape)
+    if settings.offset_amplitudes:
+        k = band_shape[0]
+        free = sample_parameter("offset_log_amplitude_free", settings.prior("offset_log_amplitude"), (k - 1,))
+        amp = numpyro.deterministic("offset_amplitude", jnp.exp(jnp.concatenate([free, -jnp.sum(free, keepdims=True)])))
+    return tau, amp
 
 
 def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
@@ -723,14 +767,14 @@ def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
     mu_par = mu_parallax(params) if parts.parallax.shape[0] else None
     resid = residuals(parts.structure, parts.lin, theta_local, theta_global, mu_par)
     extinction, fraction = nonlinear_inputs(parts, settings, params)
-    band_scatter = band_scatter_from_params(parts, settings, params)
-    logp = star_logpdf(parts, settings, resid, offset_var, extinction, fraction, band_scatter)
-    q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction, band_scatter)
+    band_noise = band_noise_from_params(parts, settings, params)
+    logp = star_logpdf(parts, settings, resid, offset_var, extinction, fraction, band_noise)
+    q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction, band_noise)
     sn_var = params["sn_scatter"] ** 2 if "sn_scatter" in params else \
         (jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2 if parts.lin.sn_slot.shape[0] else 0.0)
     a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var)
     clean = resid if extinction is None else resid - ebv[:, None] * extinction[0][None, :]
-    w = jnp.where(parts.lin.seen, 1.0 / star_variances(parts, band_scatter), 0.0)
+    w = jnp.where(parts.lin.seen, 1.0 / star_variances(parts, band_noise[0]), 0.0)
     star_resid = jnp.sum(w * clean, axis=1) / jnp.sum(w, axis=1)
     return {"cepheids": logp, "resid": resid, "star_resid": star_resid, "outlier_prob": q, "ebv": ebv,
             "anchors": a_ll, "supernovae": sn_ll}
