@@ -40,6 +40,9 @@ MODES = {
                          {}),
     "multiband + per-galaxy mixture": ({"extinction": "multiband", "outliers": "mixture",
                                         "outlier_fraction_model": "per_galaxy"}, {}),
+    "multiband, per-band metallicity": ({"extinction": "multiband", "metallicity_per_band": True}, {}),
+    "multiband, per-band scatter + amplitudes + mixture": ({"extinction": "multiband", "scatter_bands": True,
+                                                            "offset_amplitudes": True, "outliers": "mixture"}, {}),
 }
 
 
@@ -65,7 +68,12 @@ def _random_point(rng, data, settings, layout):
     v = {"mu": np.array([30.0 if r == "host" else 18.5 for r, g in zip(data.host_roles, data.host_names)
                          if g in layout.distance_galaxies]) + rng.normal(0, 0.05, layout.n_mu),
          "pl_zero_point": rng.normal(-5.0, 0.3, band), "pl_slope": rng.normal(-3.0, 0.2, band),
-         "metallicity_coef": rng.normal(-0.2, 0.05), "scatter": rng.uniform(0.05, 0.12)}
+         "metallicity_coef": rng.normal(-0.2, 0.05, band if settings.metallicity_per_band else ()),
+         "scatter": rng.uniform(0.05, 0.12)}
+    if settings.scatter_bands:
+        v["band_scatter"] = rng.uniform(0.01, 0.1, nb)
+    if settings.offset_amplitudes:
+        v["offset_log_amplitude_free"] = rng.normal(0.0, 0.3, nb - 1)
     if settings.scatter_model == "per_host":
         v["scatter_spread"], v["host_scatter_z"] = rng.uniform(0.1, 0.5), rng.normal(0, 1, n_gal)
     if settings.outliers == "mixture":
@@ -96,7 +104,14 @@ def _reference(v, data, settings, layout):
     """log joint of the sampler coordinates ``v``, written independently with scipy."""
     N, H = stats.norm.logpdf, stats.halfnorm.logpdf
     lp = N(v["mu"], 25.0, 15.0).sum() + N(v["pl_zero_point"], -5.0, 5.0).sum() + N(v["pl_slope"], -3.0, 2.0).sum()
-    lp += N(v["metallicity_coef"], 0.0, 0.5) + H(v["scatter"], scale=0.3)
+    lp += N(v["metallicity_coef"], 0.0, 0.5).sum() + H(v["scatter"], scale=0.3)
+    tau = alpha = np.zeros(0)
+    if "band_scatter" in v:
+        lp += H(v["band_scatter"], scale=0.2).sum()
+        tau = v["band_scatter"]
+    if "offset_log_amplitude_free" in v:  # log amplitudes summing to zero, the first k - 1 free
+        lp += N(v["offset_log_amplitude_free"], 0.0, 0.5).sum()
+        alpha = np.exp(np.append(v["offset_log_amplitude_free"], -v["offset_log_amplitude_free"].sum()))
     n_gal = len(layout.galaxies)
     scatter = np.full(n_gal, v["scatter"])
     if "host_scatter_z" in v:
@@ -130,7 +145,10 @@ def _reference(v, data, settings, layout):
     x, oh = data.log_period - 1.0, data.oh - settings.solar_oh
     zp = np.broadcast_to(v["pl_zero_point"], (len(bands),))
     sl = np.broadcast_to(v["pl_slope"], (len(bands),))
-    pred0 = zp[None, :] + sl[None, :] * x[:, None] + v["metallicity_coef"] * oh[:, None] + bias[data.star_host][:, None]
+    gamma = np.broadcast_to(v["metallicity_coef"], (len(bands),))
+    pred0 = zp[None, :] + sl[None, :] * x[:, None] + gamma[None, :] * oh[:, None] + bias[data.star_host][:, None]
+    tau = tau if tau.size else np.zeros(len(bands))
+    alpha = alpha if alpha.size else np.ones(len(bands))
     star_mu = np.array([mu_of.get(data.host_names[h], np.nan) for h in data.star_host])
     if layout.parallax_stars:
         lp += stats.uniform.logpdf(v["parallax_log_length_scale"], np.log(100.0), np.log(1e5) - np.log(100.0))
@@ -154,7 +172,8 @@ def _reference(v, data, settings, layout):
         s2 = scatter[data.star_host[j]] ** 2
 
         def dens(extra):
-            cov = np.diag(err[j][seen] ** 2) + (s2 + extra) * np.ones((seen.sum(), seen.sum()))
+            al = alpha[seen]  # C = diag(err^2 + tau^2) + (s^2 + extra) alpha alpha^T
+            cov = np.diag(err[j][seen] ** 2 + tau[seen] ** 2) + (s2 + extra) * np.outer(al, al)
             if a is None:
                 return stats.multivariate_normal(np.zeros(seen.sum()), cov).logpdf(y)
             lam = 1.0 / v["ebv_mean"][data.star_host[j]]
