@@ -79,6 +79,12 @@ def _parser() -> argparse.ArgumentParser:
         ("--bias-sd", "S", "sd of the per-galaxy photometric bias in mag (default 0); the bias the catalogue has: observed = true + bias (positive = measured too faint), the same in every band and so in W"),
         ("--hubble-flow", "N", "supernovae in the Hubble flow, plus one per host galaxy (default 0: none)"),
         ("--h0", "H", "true Hubble constant in km/s/Mpc (default 68.5, invented)"),
+        ("--metallicity-coef-bands", "GV,GI,GH", "one metallicity coefficient per band V, I, H in mag/dex (default: "
+                                                 "the W value in every band; a negative first value needs the = form, "
+                                                 "--metallicity-coef-bands=-0.3,-0.2,-0.1)"),
+        ("--band-scatter", "TV,TI,TH", "independent per-band intrinsic scatter in V, I, H in mag (default: none)"),
+        ("--strip-amplitudes", "AV,AI,AH", "amplitude of the intrinsic offset in V, I, H (instability strip: a "
+                                           "brighter Cepheid is bluer, e.g. 1.8,1.3,0.6; default 1,1,1)"),
         ("--reddening-law", "LAW", "extinction ratios from ccm89 or fitzpatrick99 (default none: fixed ratios)"),
         ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
     ):
@@ -251,7 +257,8 @@ def _simulate(args) -> int:
         "pl_break_period": ("pl_break_period", float), "pl_slope_long": ("pl_slope_long", float),
         "scatter_spread": ("scatter_spread", float), "bias_sd": ("bias_sd", float),
         "hubble_flow": ("n_hubble_flow", int), "h0": ("h0", float), "reddening_law": ("reddening_law", str),
-        "r_v": ("r_v", float),
+        "r_v": ("r_v", float), "metallicity_coef_bands": ("metallicity_coef_bands", tuple),
+        "band_scatter": ("band_scatter", tuple), "strip_amplitudes": ("strip_amplitudes", tuple),
     }
     for dest, (key, kind) in fields.items():
         text = getattr(args, dest)
@@ -260,6 +267,15 @@ def _simulate(args) -> int:
         flag = "--" + dest.replace("_", "-")
         if kind is str:
             changes[key] = None if text.strip().lower() == "none" else text.strip().lower()
+            continue
+        if kind is tuple:  # one number per band V, I, H, comma-separated
+            try:
+                values = tuple(float(x) for x in text.split(","))
+            except ValueError:
+                raise InputError(f"needs three comma-separated numbers (V, I, H), got {text!r}", key=flag) from None
+            if len(values) != 3 or not all(math.isfinite(v) for v in values):
+                raise InputError(f"needs three finite comma-separated numbers (V, I, H), got {text!r}", key=flag)
+            changes[key] = values
             continue
         try:
             value = kind(text)

@@ -35,7 +35,7 @@ def small_data(seed=0, n_hosts=5, n_anchors=2, n_per=60, scatter=0.06, metallici
 def assert_recovers(result, truth: dict, names=None, z=RECOVERY_Z):
     """The one recovery check: every named truth within ``z`` posterior sds of the posterior mean.
 
-    ``truth`` maps global names to values and may hold ``mu``: {galaxy: value}, checked for every galaxy of the
+    ``truth`` maps global names to values (a sequence for a vector-valued one, e.g. per band) and may hold ``mu``: {galaxy: value}, checked for every galaxy of the
     posterior it names. ``names`` (default: the truths the posterior has) must all be in the posterior.
     Returns the z-scores.
     """
@@ -46,6 +46,12 @@ def assert_recovers(result, truth: dict, names=None, z=RECOVERY_Z):
     missing = [n for n in names if n not in post]
     assert not missing, f"not in the posterior: {missing}"
     for name in names:
+        t = np.asarray(truth[name], float)
+        if t.ndim:  # a per-band (or other vector) truth, in the order of the posterior variable's last dimension
+            x = np.asarray(post[name]).reshape(-1, t.size)
+            for i, lab in enumerate(post[name][post[name].dims[-1]].values):
+                zs[f"{name}[{lab}]"] = (x[:, i].mean() - t[i]) / x[:, i].std()
+            continue
         x = np.asarray(post[name]).ravel()
         zs[name] = (x.mean() - truth[name]) / x.std()
     if "mu" in truth:
