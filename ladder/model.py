@@ -21,7 +21,9 @@ stars) and :math:`M_B(P)` the PL relation (optionally broken). Each piece is a t
 Symbols ↔ output names: :math:`\mu_i` ``mu`` (dim ``host``), :math:`M_B` ``pl_zero_point``, :math:`b` ``pl_slope``,
 :math:`b_\mathrm{long}` ``pl_slope_long``, :math:`\gamma` ``metallicity_coef``, :math:`\sigma_\mathrm{int}`
 ``scatter`` (per galaxy: ``host_scatter``, spread ``scatter_spread``), :math:`\tau_B` ``band_scatter``
-(``scatter_bands``: an independent per-band part of the intrinsic scatter), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
+(``scatter_bands``: an independent per-band part of the intrinsic scatter), :math:`\alpha_B` ``offset_amplitude``
+(``offset_amplitudes``: :math:`s_j` enters band B as :math:`\alpha_B s_j`), :math:`\gamma_B` ``metallicity_coef``
+with dim ``band`` (``metallicity = "per_band"``), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
 :math:`E(B-V)_j` ``ebv`` (galaxy mean ``ebv_mean``), :math:`\beta_i` ``photometric_bias``, :math:`f`
 ``outlier_fraction`` (per galaxy ``host_outlier_fraction``, logit spread ``outlier_fraction_spread``), :math:`\varpi_0` ``parallax_offset``, :math:`H_0` ``h0``, :math:`M_\mathrm{SN}` ``sn_abs_mag``,
 :math:`\sigma_\mathrm{SN}` ``sn_scatter``.
