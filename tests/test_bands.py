@@ -1,6 +1,6 @@
 """Per-band terms in multiband fits (issue 9, item 2) on mocks (invented data, recovery only): one metallicity
 coefficient per band, an independent per-band intrinsic scatter, and the intrinsic offset with one amplitude per
-band (the instability strip: at fixed period a brighter Cepheid is bluer).
+band (the instability strip: at fixed period a brighter Cepheid is bluer). Both fits here are ``slow``.
 
 Host distances are judged jointly (:func:`helpers.joint_chi2`). The per-star densities are checked against an
 independent scipy implementation in tests/test_log_density.py, the replicated data in tests/test_predictive.py.
@@ -39,8 +39,11 @@ def _amplitudes(a):
     return a / np.exp(np.mean(np.log(a)))  # the model's normalisation: geometric mean 1
 
 
+@pytest.mark.slow
 def test_per_band_terms_recovered(tmp_path_factory):
-    # Default suite, one small fit: a mock with per-band metallicity coefficients, an instability strip and an
+    # Slow (~1 min of CPU: a multiband NUTS fit with three new terms; smaller mocks fail the diagnostics). The
+    # cheap default-suite checks of these terms are their log densities (tests/test_log_density.py) and replicated
+    # data (tests/test_predictive.py). One fit: a mock with per-band metallicity coefficients, an instability strip and an
     # independent per-band scatter, fitted with metallicity = "per_band", offset_amplitudes and scatter_bands.
     s = MockSettings(n_hosts=4, n_anchors=2, n_cepheids=360, scatter=0.12, reddening_law="fitzpatrick99",
                      metallicity_coef_bands=GAMMA, strip_amplitudes=STRIP, band_scatter=TAU)
