@@ -99,77 +99,40 @@ def check_proper(cfg, layout) -> None:
                      f"proper: {fixes}", file=str(cfg.path) if cfg.path else None, key=bad[0][1])
 
 
-def _draw(spec, rng: np.random.Generator, shape=()) -> np.ndarray:
-    """One draw of a proper :class:`~ladder.config.PriorSpec` (numpy)."""
-    size = shape or None
-    if spec.dist == "normal":
-        return np.asarray(rng.normal(spec.get("loc"), spec.get("scale"), size))
-    if spec.dist == "halfnormal":
-        return np.abs(np.asarray(rng.normal(0.0, spec.get("scale"), size)))
-    if spec.dist == "uniform":
-        return np.asarray(rng.uniform(spec.get("low"), spec.get("high"), size))
-    if spec.dist == "fixed":
-        return np.full(shape, spec.get("value")) if shape else np.asarray(spec.get("value"))
-    raise ValueError(f"cannot draw from a {spec.dist} prior")
-
-
 def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
-    """Every parameter drawn from its prior, as the model defines it (:func:`ladder.model.full_model`).
+    """Every parameter drawn from its prior, by running the model itself (:func:`ladder.model.full_model`, every
+    parameter a sample site) forward with its likelihood factors ignored, so that a new term's parameters are
+    drawn as the model defines them. The parallax stars' distances, whose prior the model writes as a factor on a
+    flat coordinate, are drawn here from the EDSD prior, p(d) ~ d^2 exp(-d/L) = Gamma(shape 3, scale L)
+    (Bailer-Jones 2015, PASP 127, 994), at the drawn (or fixed) length scale L.
 
-    Returns output-named numpy values: the structure's linear columns, ``mu`` (n_mu,), ``photometric_bias``,
-    ``scatter`` (and ``scatter_spread``, ``host_scatter``), ``r_v``, ``ebv_mean``, ``outlier_fraction`` (and
-    ``outlier_fraction_spread``, ``host_outlier_fraction``),
-    ``parallax_offset``, ``parallax_length_scale``, ``log_distance_pc``, ``sn_scatter``.
+    Returns output-named numpy values (sample and deterministic sites: ``mu``, the structure's linear columns
+    with ``h0`` in km/s/Mpc, ``photometric_bias``, ``scatter``, ``host_scatter``, ``r_v``, ``ebv_mean``,
+    outlier fractions, ``parallax_offset``, ``log_distance_pc``, ``sn_scatter``, ...).
     """
-    st = parts.structure
-    band_shape = (len(layout.bands),) if model.multiband else ()
-    t: dict = {"mu": _draw(model.prior("mu"), rng, (layout.n_mu,))}
-    for name in dict.fromkeys(n for n, _ in st.columns):
-        t[name] = _draw(model.prior(name), rng, band_shape if name in model.band_parameters else ())
-    n_b = parts.bias_slots.shape[0]
-    if st.n_local == 2 and n_b:  # the hosts table's estimate is the bias's prior: N(bias, bias_err)
-        lin = parts.lin
-        mean = np.asarray(lin.prior_mean_local)[parts.bias_slots, 1]
-        sd = 1.0 / np.sqrt(np.asarray(lin.prior_prec_local)[parts.bias_slots, 1])
-        t["photometric_bias"] = mean + sd * rng.standard_normal(n_b)
-    t["scatter"] = _draw(model.prior("scatter"), rng)
-    if model.scatter_model == "per_host":
-        t["scatter_spread"] = _draw(model.prior("scatter_spread"), rng)
-        t["host_scatter"] = t["scatter"] * np.exp(t["scatter_spread"] * rng.standard_normal(len(layout.galaxies)))
-    if model.scatter_bands:
-        t["band_scatter"] = _draw(model.prior("band_scatter"), rng, band_shape)
-    if model.offset_amplitudes:  # exp of (k - 1 free log amplitudes, minus their sum), as the model
-        free = _draw(model.prior("offset_log_amplitude"), rng, (len(layout.bands) - 1,))
-        t["offset_amplitude"] = np.exp(np.append(free, -np.sum(free)))
-    if model.needs_law and model.reddening.free:  # TruncatedNormal(rv, rv_err, low=1), as in the model
-        rd = model.reddening
-        while True:
-            v = rng.normal(rd.rv, rd.rv_err)
-            if v > 1.0:
-                break
-        t["r_v"] = np.asarray(v)
-    if model.multiband and model.prior("ebv_mean").dist != "fixed":
-        t["ebv_mean"] = _draw(model.prior("ebv_mean"), rng, (len(layout.galaxies),))
-    if model.outliers == "mixture" and model.prior("outlier_fraction").dist != "fixed":
-        t["outlier_fraction"] = _draw(model.prior("outlier_fraction"), rng)
-    if model.outliers == "mixture" and model.outlier_fraction_model == "per_galaxy":  # logit-normal, as the model
-        from .terms.outliers import per_galaxy_fraction
+    import jax
+    from numpyro import handlers
 
-        t["outlier_fraction_spread"] = _draw(model.prior("outlier_fraction_spread"), rng)
-        median = t.get("outlier_fraction", _draw(model.prior("outlier_fraction"), rng))
-        z = rng.standard_normal(len(layout.galaxies))
-        t["host_outlier_fraction"] = np.asarray(per_galaxy_fraction(median, t["outlier_fraction_spread"], z))
+    from .model import full_model, split_static, with_structure
+
     n_par = parts.parallax.shape[0]
+    fixed = {"parallax_star_u": np.zeros(n_par)} if n_par else {}
+    st, array_parts = split_static(parts)
+
+    def forward(key, ap):  # the data as a traced argument: one compiled program per structure (see _compile_cache)
+        trace = handlers.trace(handlers.seed(handlers.substitute(full_model, data=fixed), key)).get_trace(
+            with_structure(st, ap), model, layout)
+        return {name: site["value"] for name, site in trace.items()
+                if site["type"] in ("sample", "deterministic") and not site.get("is_observed", False)}
+
+    key = jax.random.PRNGKey(int(rng.integers(0, 2**31 - 1)))
+    t = {k: np.asarray(v, float) for k, v in jax.jit(forward)(key, array_parts).items()}
     if n_par:
         length = model.parallax.length_scale_pc
-        if length is None:  # log-uniform on 100 pc - 100 kpc, as the model's parallax_log_length_scale
-            length = float(np.exp(rng.uniform(np.log(100.0), np.log(1e5))))
-            t["parallax_length_scale"] = np.asarray(length)
-        # EDSD prior p(d) ~ d^2 exp(-d/L) is Gamma(shape 3, scale L) (Bailer-Jones 2015, PASP 127, 994)
+        if length is None:
+            length = float(np.asarray(t["parallax_length_scale"]))
         t["log_distance_pc"] = np.log(rng.gamma(3.0, length, n_par))
-        t["parallax_offset"] = _draw(model.prior("parallax_offset"), rng)
-    if layout.has_sn:
-        t["sn_scatter"] = _draw(model.prior("sn_scatter"), rng)
+        t.pop("parallax_star_u", None)
     return t
 
 
@@ -217,7 +180,11 @@ def simulate_like(data, model, truth: dict, seed: int):
     slot[data.has_distance] = np.arange(int(data.has_distance.sum()))
     mu_geo = np.array(data.mu_geo, float, copy=True)
     anchors = np.flatnonzero(data.is_anchor)
-    mu_geo[anchors] = mu[slot[anchors]] + data.mu_geo_err[anchors] * rng.standard_normal(anchors.size)
+    # geometric errors, with the [data] anchor_covariance table added when the run has one (as the likelihood)
+    cov = np.diag(np.asarray(data.mu_geo_err[anchors], float) ** 2)
+    if np.asarray(arrays.anchor_cov).size:
+        cov = cov + np.asarray(arrays.anchor_cov, float)
+    mu_geo[anchors] = mu[slot[anchors]] + _correlated_normal(rng, cov)
     changes = {"mag": mag, "mu_geo": mu_geo}
     if parts.parallax.shape[0]:
         par = np.array(data.parallax, float, copy=True)
@@ -237,29 +204,46 @@ def simulate_like(data, model, truth: dict, seed: int):
         G = parts.structure.n_galaxies
         mu_sn = np.concatenate([np.asarray(theta_local)[:, 0], np.zeros(1)])[np.asarray(lin.sn_slot)]
         loc = np.where(np.asarray(lin.sn_slot) < G, mu_sn, 0.0) + np.asarray(lin.sn_design) @ np.asarray(theta_global)
-        sd = np.sqrt(np.asarray(lin.sn_var) + float(truth["sn_scatter"]) ** 2)
+        cov = np.diag(np.asarray(lin.sn_var, float) + float(truth["sn_scatter"]) ** 2)
+        if np.asarray(arrays.sn_cov).size:  # [data] supernova_covariance, over the supernovae fitted
+            cov = cov + np.asarray(arrays.sn_cov, float)
         m = np.array(sne.mag, float, copy=True)
         # lin.sn_y is the magnitude minus its fixed part (the kinematic modulus at H0 = 1, fixed parameters)
-        m[keep] = (sne.mag[keep] - np.asarray(lin.sn_y)) + loc + sd * rng.standard_normal(keep.size)
+        m[keep] = (sne.mag[keep] - np.asarray(lin.sn_y)) + loc + _correlated_normal(rng, cov)
         changes["supernovae"] = replace(sne, mag=m)
     return replace(data, **changes)
 
 
+def _correlated_normal(rng: np.random.Generator, cov: np.ndarray) -> np.ndarray:
+    """One draw of N(0, cov) (Cholesky; diagonal covariances cost nothing more)."""
+    if cov.size == 0:
+        return np.zeros(0)
+    return np.linalg.cholesky(cov) @ rng.standard_normal(cov.shape[0])
+
+
 # ----------------------------------------------------------------------------- one replication
 def _quantities(layout, model, data) -> list[tuple[str, str, int | None]]:
-    """(label, posterior variable, index) of every ranked quantity: globals (per band), then each galaxy's modulus."""
+    """(label, posterior variable, index) of every ranked quantity: globals (one per band where the parameter
+    has the band dimension of :data:`ladder.sampling.DIMS`), then each galaxy's modulus."""
     from .model import global_parameters
+    from .sampling import DIMS
 
+    banded = model.multiband or getattr(model, "scatter_bands", False)
     out = []
     for n in global_parameters(model, layout):
-        if n in ("wesenheit_r",) or (n == "r_v" and not (model.needs_law and model.reddening.free)):
+        if n == "wesenheit_r" or (n == "r_v" and not (model.needs_law and model.reddening.free)):
             continue
-        if n in model.band_parameters:
+        if banded and DIMS.get(n) == "band" and (n != "metallicity_coef" or _banded_metallicity(model)):
             out += [(f"{n}[{b}]", n, i) for i, b in enumerate(layout.bands)]
         else:
             out.append((n, n, None))
     out += [(f"mu[{g}]", "mu", i) for i, g in enumerate(layout.distance_galaxies)]
     return out
+
+
+def _banded_metallicity(model) -> bool:
+    """True when the metallicity term has one coefficient per band (a per-band model mode)."""
+    return bool(getattr(model, "metallicity_per_band", False))
 
 
 def _host_slots(layout, data) -> list[int]:
@@ -275,7 +259,9 @@ def _flat_draws(post, var: str, index) -> np.ndarray:
 
 def _truth_value(truth: dict, var: str, index):
     v = np.asarray(truth[var], float)
-    return float(v if index is None else v[index])
+    if index is None and v.size != 1:
+        raise ValueError(f"{var} has {v.size} values; the calibration does not know its dimension")
+    return float(v.reshape(()) if index is None else v[index])
 
 
 def _rank(draws: np.ndarray, value: float, n_ranks: int, rng) -> tuple[int, float]:
@@ -441,7 +427,7 @@ def plan_calibration(run_file, replications: int, seed: int | None = None, n_ran
     n_hosts = len(_host_slots(layout, data))
     if n_hosts:
         labels.append(HOSTS_CHI2)
-    text = json.dumps({"input": input_key(cfg), "seed": seed, "n_ranks": n_ranks, "format": 1}, sort_keys=True)
+    text = json.dumps({"input": input_key(cfg), "seed": seed, "n_ranks": n_ranks, "format": 2}, sort_keys=True)
     return CalibrationPlan(cfg, replications, seed, n_ranks, hashlib.sha256(text.encode()).hexdigest(),
                            tuple(labels), n_hosts)
 
@@ -490,7 +476,7 @@ def run_calibration(run_file, out_dir, replications: int, *, workers: int | None
         rate = (time.perf_counter() - started) / max(1, len(records) - (replications - len(todo)))
         say(f"calibrate: replication {res['replication']} {what} in {res['seconds']:.1f} s | done {done} "
             f"(diagnostics failed {gate}) / failed {failed} / left {left} of {replications}"
-            + (f"; ~{left * rate / max(1, running or 1) / 60:.0f} min to go" if left else ""))
+            + (f"; ~{left * rate / 60:.0f} min to go" if left else ""))
 
     args = {i: (i, plan.cfg, str(out.resolve()), plan.seed, plan.key, plan.n_ranks) for i in todo}
     if in_process:
@@ -499,14 +485,15 @@ def run_calibration(run_file, out_dir, replications: int, *, workers: int | None
     elif todo:
         run_tasks(run_replication, {f"replication-{i}": args[i] for i in todo}, workers=workers,
                   scheduler=scheduler, report=report, say=say, label="calibrate",
-                  failed=lambda name, exc: {**_failed(int(name.rsplit("-", 1)[1]), plan.key, exc)})
+                  failed=lambda name, exc: _failed(int(name.rsplit("-", 1)[1]), plan, exc))
     tables = calibration_tables([records[i] for i in sorted(records)], plan)
     _write_summary(out, plan, tables, plots, argv)
     return tables
 
 
-def _failed(index: int, key: str, exc: BaseException) -> dict:
-    return {"replication": index, "key": key, "n_ranks": N_RANKS, "status": "failed",
+def _failed(index: int, plan: CalibrationPlan, exc: BaseException) -> dict:
+    """The record of a replication whose worker died (not written: it is run again on resume)."""
+    return {"replication": index, "key": plan.key, "n_ranks": plan.n_ranks, "status": "failed",
             "error": f"{type(exc).__name__}: {exc}", "passed": False, "problems": [], "method": "",
             "ess_min": math.nan, "seconds": 0.0, "quantities": {}}
 
@@ -517,10 +504,11 @@ def binomial_sd(level: float, n: int) -> float:
     return math.sqrt(level * (1.0 - level) / n) if n else math.nan
 
 
-def _bins(n_values: int, n_used: int) -> int:
-    """Equal bins of the rank values with at least ~5 expected per bin (chi-square rule of thumb, common practice)."""
+def _bins(n_values: int, n_used: int, per_bin: float = 5.0) -> int:
+    """Equal bins of the rank values with at least ``per_bin`` expected per bin (5 for the chi-square test: rule
+    of thumb, common practice; 10 for the figure, so that a bin's count is not mostly noise)."""
     for b in (50, 25, 20, 10, 5, 4, 2):
-        if n_values % b == 0 and n_used / b >= 5:
+        if n_values % b == 0 and n_used / b >= per_bin:
             return b
     return 1
 
@@ -622,14 +610,16 @@ def sbc_figure(ranks, n_ranks: int = N_RANKS, max_panels: int = 30):
     for ax, label in zip(axes.ravel(), shown):
         r = np.asarray(ok["rank"][ok["parameter"] == label], int)
         n = r.size
-        b = _bins(n_ranks + 1, n) if n >= 10 else 1
+        b = _bins(n_ranks + 1, n, per_bin=10.0)
         b = max(b, 2) if (n_ranks + 1) % 2 == 0 else b
         counts = np.bincount(r * b // (n_ranks + 1), minlength=b)
         lo, hi = stats.binom.ppf([0.005, 0.995], n, 1.0 / b)
         edges = np.linspace(0, n_ranks + 1, b + 1)
         ax.axhspan(lo, hi, color="0.85", lw=0)
         ax.axhline(n / b, color="0.5", lw=0.8)
-        ax.stairs(counts, edges, fill=True, color=ROLE_COLORS["host"], alpha=0.75)
+        ax.stairs(counts, edges, fill=True, color=ROLE_COLORS["host"], alpha=0.6)
+        for y in (lo, hi):  # the band's edges on top of the bars: a bar below the band shows too
+            ax.axhline(y, color="0.35", lw=0.7, ls=":")
         ax.set_xlim(0, n_ranks + 1)
         ax.set_title(label, fontsize=8)
         ax.tick_params(labelsize=7)
@@ -639,7 +629,7 @@ def sbc_figure(ranks, n_ranks: int = N_RANKS, max_panels: int = 30):
         ax.set_ylabel("replications", fontsize=7)
     more = f"; {len(labels) - len(shown)} more in ranks.ecsv" if len(labels) > len(shown) else ""
     fig.suptitle(f"Rank histograms of {int(np.unique(np.asarray(ok['replication'])).size)} replications "
-                 f"(grey: 99% band of a uniform rank{more})", fontsize=9)
+                 f"(grey: 99% band of one bin's count for uniform ranks, so ~1 bin in 100 falls outside by chance{more})", fontsize=9)
     fig.tight_layout()
     return fig
 
@@ -654,6 +644,7 @@ def _write_summary(out: Path, plan: CalibrationPlan, tables, plots: bool, argv) 
     from . import __version__
     from .outputs import _SignalsHeld
     from .provenance import sha256_file
+    from .sweep import _TABLES
 
     ranks, coverage, uniformity = tables
     tmp = Path(tempfile.mkdtemp(prefix=".summary.partial-", dir=out))
@@ -663,8 +654,7 @@ def _write_summary(out: Path, plan: CalibrationPlan, tables, plots: bool, argv) 
         uniformity.write(tmp / "uniformity.ecsv", format="ascii.ecsv")
         cfg = plan.cfg
         inputs = {k: {"path": str(Path(p).resolve()), "sha256": sha256_file(p)} for k, p in
-                  (("run", cfg.path), ("cepheids", cfg.cepheids), ("hosts", cfg.hosts),
-                   ("supernovae", cfg.supernovae)) if p is not None}
+                  [("run", cfg.path)] + [(k, getattr(cfg, k, None)) for k in _TABLES] if p is not None}
         meta = {"kind": "calibration", "replications": plan.replications, "seed": plan.seed,
                 "n_ranks": plan.n_ranks, "levels": list(LEVELS), "key": plan.key,
                 "done": int(ranks.meta["done"]), "failed_diagnostics": int(ranks.meta["failed_diagnostics"]),

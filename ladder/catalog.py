@@ -65,6 +65,7 @@ class LadderData:
     host_bias: np.ndarray | None = None  # (n_hosts,), mag; NaN where not given
     host_bias_err: np.ndarray | None = None
     supernovae: object | None = None  # ladder.supernovae.SupernovaData
+    anchor_cov: np.ndarray | None = None  # (n_hosts, n_hosts), mag^2: [data] anchor_covariance (0 off the anchors)
 
     @property
     def n_hosts(self) -> int:
@@ -398,8 +399,11 @@ def _bands(t, file) -> list[str]:
     return bands
 
 
-def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | Path | None = None) -> LadderData:
-    """Read, validate and convert the cepheids and hosts tables (and the supernovae table if given).
+def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | Path | None = None, *,
+                    supernova_covariance: str | Path | None = None,
+                    anchor_covariance: str | Path | None = None) -> LadderData:
+    """Read, validate and convert the cepheids and hosts tables (and the supernovae table and the covariance
+    tables of :mod:`ladder.covariance` if given).
 
     Raises
     ------
@@ -466,11 +470,29 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
         from .supernovae import load_supernovae
 
         sne = load_supernovae(supernovae, tuple(hnames), tuple(roles), hosts_file=hosts)
+    files = {"cepheids": file, "hosts": str(hosts), **({"supernovae": str(supernovae)} if supernovae is not None else {})}
+    anchor_cov = None
+    if supernova_covariance is not None or anchor_covariance is not None:
+        import dataclasses
+
+        from .covariance import load_covariance
+
+        if supernova_covariance is not None:
+            if sne is None:
+                raise InputError("a supernova covariance needs the supernovae table", file=str(supernova_covariance))
+            sne = dataclasses.replace(sne, cov=load_covariance(supernova_covariance, "supernova", sne.sn_names,
+                                                               sne.mag_err**2, names_file=sne.file))
+            files["supernova_covariance"] = str(supernova_covariance)
+        if anchor_covariance is not None:
+            anchor_cov = load_covariance(anchor_covariance, "anchor", hnames, mu_geo_err**2,
+                                         allowed=np.asarray(roles) == "anchor",
+                                         not_allowed_why="is not an anchor (role 'anchor' in the hosts table): only "
+                                         "geometric distances have a covariance here", names_file=str(hosts))
+            files["anchor_covariance"] = str(anchor_covariance)
     return LadderData(
         host_names=tuple(hnames), host_roles=tuple(roles), mu_geo=mu_geo, mu_geo_err=mu_geo_err, host_oh=host_oh,
         star_names=tuple(stars), star_host=star_host, log_period=np.log10(period), bands=tuple(bands),
-        mag=mag, mag_err=err, oh=oh, files={"cepheids": file, "hosts": str(hosts),
-                                            **({"supernovae": str(supernovae)} if supernovae is not None else {})},
+        mag=mag, mag_err=err, oh=oh, files=files,
         star_rows=np.arange(len(t)), parallax=parallax, parallax_err=parallax_err, host_bias=bias,
-        host_bias_err=bias_err, supernovae=sne,
+        host_bias_err=bias_err, supernovae=sne, anchor_cov=anchor_cov,
     )

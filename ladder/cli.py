@@ -40,7 +40,8 @@ def _parser() -> argparse.ArgumentParser:
     f.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
     f.add_argument("--force", action="store_true", help="replace an existing non-empty output directory")
     f.add_argument("--strict", action="store_true",
-                   help="refuse implausible input (exit 2) and exit 3 when the diagnostics fail")
+                   help="refuse implausible input (exit 2) and exit 3 when the diagnostics fail "
+                        "([sampler] strict = true: the exit 3 alone)")
     f.add_argument("--no-plots", action="store_true", help="skip the PNG figures")
     f.add_argument("--predictive", action="store_true",
                    help="store replicated Cepheid magnitudes (200 posterior draws) as posterior_predictive in posterior.nc")
@@ -52,8 +53,9 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("run", metavar="RUN.toml", help="run file")
     c.add_argument("--strict", action="store_true", help="refuse implausible input (exit 2) instead of warning")
 
-    r = sub.add_parser("report", help="write DIR/report.html from a fit's output directory (one self-contained file)")
-    r.add_argument("dir", metavar="DIR", help="output directory of `ladder fit`")
+    r = sub.add_parser("report", help="write DIR/report.html from a fit's output directory, a sweep or a calibration "
+                                      "directory (one self-contained file)")
+    r.add_argument("dir", metavar="DIR", help="output directory of `ladder fit`, `ladder sweep` or `ladder calibrate`")
 
     s = sub.add_parser("simulate", help="write a mock universe (catalogues, run file, truth)")
     s.add_argument("--out", required=True, metavar="DIR", help="output directory (must be new or empty)")
@@ -87,6 +89,10 @@ def _parser() -> argparse.ArgumentParser:
                                            "brighter Cepheid is bluer, e.g. 1.8,1.3,0.6; default 1,1,1)"),
         ("--reddening-law", "LAW", "extinction ratios from ccm89 or fitzpatrick99 (default none: fixed ratios)"),
         ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
+        ("--anchor-systematic", "S", "sd in mag of one offset shared by every anchor's mu_geo (default 0); writes "
+         "anchor_covariance.ecsv"),
+        ("--sn-systematic", "S", "sd in mag of one offset shared by every calibrator supernova (default 0; needs "
+         "--hubble-flow); writes supernova_covariance.ecsv"),
     ):
         s.add_argument(flag, default=None, metavar=metavar, help=help_)
     _add_verify_parser(sub)
@@ -131,7 +137,7 @@ def _fit(args) -> int:
     if not result.diagnostics.passed:
         _say("ladder: WARNING: the sampler diagnostics failed; do not use these numbers before fixing the run "
              "(more warm-up/draws, higher target_accept, or a better-posed model).")
-        if args.strict:
+        if args.strict or cfg.sampler.strict:
             return EXIT_DIAGNOSTICS
     return EXIT_OK
 
@@ -257,6 +263,8 @@ def _simulate(args) -> int:
         "pl_break_period": ("pl_break_period", float), "pl_slope_long": ("pl_slope_long", float),
         "scatter_spread": ("scatter_spread", float), "bias_sd": ("bias_sd", float),
         "hubble_flow": ("n_hubble_flow", int), "h0": ("h0", float), "reddening_law": ("reddening_law", str),
+        "r_v": ("r_v", float), "anchor_systematic": ("anchor_systematic", float),
+        "sn_systematic": ("sn_systematic", float),
         "r_v": ("r_v", float), "metallicity_coef_bands": ("metallicity_coef_bands", tuple),
         "band_scatter": ("band_scatter", tuple), "strip_amplitudes": ("strip_amplitudes", tuple),
     }
@@ -320,7 +328,7 @@ def _add_sweep_commands(sub) -> None:
     w.add_argument("--no-plots", action="store_true", help="skip the PNG figures")
     w.add_argument("--strict", action="store_true",
                    help="refuse implausible input (exit 2) and exit 3 after writing the table when any variant "
-                        "failed or failed its sampler diagnostics")
+                        "failed or failed its sampler diagnostics ([sampler] strict = true: the exit 3 alone)")
     _add_calibrate_parser(sub)
     k = sub.add_parser("compare", help="compare finished fits: overlaid posteriors, distance forest plot, table")
     k.add_argument("runs", nargs="+", metavar="DIR", help="result directories of `ladder fit` or sweep members")
@@ -344,7 +352,7 @@ def _add_calibrate_parser(sub) -> None:
                    help="seed of the calibration (default: the run's [sampler] seed); replication i uses (S, i)")
     c.add_argument("--strict", action="store_true",
                    help="refuse implausible input (exit 2) and exit 3 after writing the tables when any replication "
-                        "failed or failed its sampler diagnostics")
+                        "failed or failed its sampler diagnostics ([sampler] strict = true: the exit 3 alone)")
     c.add_argument("--no-plots", action="store_true", help="skip sbc.png")
 
 
@@ -380,7 +388,8 @@ def _calibrate(args) -> int:
               + f" {p_of.get(name, float('nan')):>9.3f}")
     print("empirical coverage +/- binomial sd per nominal level (!: more than 2 sd from nominal); uniform p: "
           "chi-square test of the ranks (coverage.ecsv, uniformity.ecsv)")
-    return _gate_exit(ranks.meta["failed"], ranks.meta["failed_diagnostics"], "replication", args.strict)
+    return _gate_exit(ranks.meta["failed"], ranks.meta["failed_diagnostics"], "replication",
+                      args.strict or cfg.sampler.strict)
 
 
 def _gate_exit(n_failed: int, n_gate: int, what: str, strict: bool) -> int:
@@ -423,11 +432,11 @@ def _sweep(args) -> int:
     if args.workers is not None and args.scheduler:
         raise InputError("give either --workers (local cluster) or --scheduler (existing cluster), not both",
                          key="--scheduler")
-    if args.strict:
-        from . import load_run
+    from . import load_run
 
-        if _load_data(load_run(args.run), True)[0] is None:
-            return EXIT_BAD_INPUT
+    cfg = load_run(args.run)
+    if args.strict and _load_data(cfg, True)[0] is None:
+        return EXIT_BAD_INPUT
     try:
         table = run_sweep(args.run, args.out, workers=args.workers, scheduler=args.scheduler,
                           plots=not args.no_plots, progress=_say, argv=["ladder", *sys.argv[1:]])
@@ -449,7 +458,7 @@ def _sweep(args) -> int:
         _say(f"ladder: {len(failed)} variant(s) failed: {', '.join(failed)} (errors in sweep.ecsv)")
     if gate:
         _say(f"ladder: sampler diagnostics failed for {', '.join(gate)} (passed = False in sweep.ecsv)")
-    return _gate_exit(len(failed), len(gate), "variant", args.strict)
+    return _gate_exit(len(failed), len(gate), "variant", args.strict or cfg.sampler.strict)
 
 
 def _compare(args) -> int:

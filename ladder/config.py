@@ -307,6 +307,7 @@ class SamplerSettings:
     progress: bool = True
     method: str = "auto"
     max_draws: int | None = None  # None: 4 x draws
+    strict: bool = False  # as --strict for the gate: fit, sweep and calibrate exit 3 when a fit fails its diagnostics
 
     @property
     def draw_limit(self) -> int:
@@ -315,6 +316,8 @@ class SamplerSettings:
     def to_dict(self) -> dict[str, Any]:
         d = dataclasses.asdict(self)
         d["max_draws"] = self.draw_limit
+        if not self.strict:  # only when set: run files without it resolve (and resume) as before
+            d.pop("strict")
         return d
 
 
@@ -461,11 +464,16 @@ class RunConfig:
     output: OutputSettings = field(default_factory=OutputSettings)
     selection: DataSelection = field(default_factory=DataSelection)
     sweep: SweepSettings = field(default_factory=SweepSettings)  # used by `ladder sweep` only
+    supernova_covariance: Path | None = None  # [data] supernova_covariance (ladder.covariance)
+    anchor_covariance: Path | None = None  # [data] anchor_covariance
 
     def to_dict(self) -> dict[str, Any]:
         data = {"cepheids": str(self.cepheids), "hosts": str(self.hosts)}
         if self.supernovae is not None:
             data["supernovae"] = str(self.supernovae)
+        for k in ("supernova_covariance", "anchor_covariance"):  # only when given: old run files resolve as before
+            if getattr(self, k) is not None:
+                data[k] = str(getattr(self, k))
         data.update(self.selection.to_dict())
         m = self.model.to_dict()
         return {"data": data, "model": m["model"], "bands": m["bands"], "sampler": self.sampler.to_dict(),
@@ -773,6 +781,7 @@ def _parse_sampler(sec: _Section | None) -> SamplerSettings:
         dense_mass=sec.get("dense_mass", bool, d.dense_mass),
         chain_method=method,
         progress=sec.get("progress", bool, d.progress),
+        strict=sec.get("strict", bool, d.strict),
     )
 
 
@@ -796,6 +805,9 @@ def _parse_diagnostics(sec: _Section | None) -> DiagnosticThresholds:
     )
 
 
+#: Optional covariance tables of [data] (ladder.covariance).
+_COVARIANCE_KEYS = ("supernova_covariance", "anchor_covariance")
+
 #: How table paths of the run file are read (also said in the messages about them).
 PATH_RULE = "relative paths are taken from the run file's folder; ~ is your home folder"
 
@@ -815,16 +827,20 @@ def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> Run
     data = top.sub("data")
     if data is None:
         raise InputError("the [data] table is required (cepheids, hosts)", file=file, key="data")
-    data.check_keys({"cepheids", "hosts", "supernovae", "anchors", "period_min", "period_max", "exclude", "select"})
+    data.check_keys({"cepheids", "hosts", "supernovae", "anchors", "period_min", "period_max", "exclude", "select",
+                     *_COVARIANCE_KEYS})
     paths = {}
-    for k in ("cepheids", "hosts", "supernovae"):
+    for k in ("cepheids", "hosts", "supernovae", *_COVARIANCE_KEYS):
         v = data.get(k, str, None)
         if not v:
-            if k == "supernovae":
+            if k in ("supernovae", *_COVARIANCE_KEYS):
                 paths[k] = None
                 continue
             raise InputError("is required: a path to the table, relative to the run file", file=file, key=f"data.{k}")
         paths[k] = _table_path(v, base)
+    if paths["supernova_covariance"] is not None and paths["supernovae"] is None:
+        raise InputError("a supernova covariance needs the supernovae table ([data] supernovae)", file=file,
+                         key="data.supernova_covariance")
     return RunConfig(
         path=None,
         cepheids=paths["cepheids"],
@@ -836,6 +852,8 @@ def parse_run(raw: dict[str, Any], *, base: Path, file: str = "run file") -> Run
         output=_parse_output(top.sub("output")),
         selection=_parse_selection(data),
         sweep=_parse_sweep(top.sub("sweep")),
+        supernova_covariance=paths["supernova_covariance"],
+        anchor_covariance=paths["anchor_covariance"],
     )
 
 
@@ -857,7 +875,8 @@ def load_run(path: str | Path) -> RunConfig:
     except UnicodeDecodeError:
         raise InputError("not a UTF-8 text file", file=str(path)) from None
     cfg = parse_run(raw, base=path.parent, file=str(path))
-    for key, table in (("data.cepheids", cfg.cepheids), ("data.hosts", cfg.hosts), ("data.supernovae", cfg.supernovae)):
+    for key, table in (("data.cepheids", cfg.cepheids), ("data.hosts", cfg.hosts), ("data.supernovae", cfg.supernovae),
+                       *((f"data.{k}", getattr(cfg, k)) for k in _COVARIANCE_KEYS)):
         try:
             ok = table is None or table.is_file()
             what = "is not a file" if not ok and table.exists() else "not found"

@@ -54,7 +54,9 @@ class FitResult:
 
 def load_data(config: RunConfig) -> LadderData:
     """Read and validate the catalogues a run file names (and check them against its model)."""
-    data = load_catalogues(config.cepheids, config.hosts, config.supernovae)
+    data = load_catalogues(config.cepheids, config.hosts, config.supernovae,
+                           supernova_covariance=config.supernova_covariance,
+                           anchor_covariance=config.anchor_covariance)
     data = apply_selection(data, config.selection)  # [data] anchors, period_min/max, exclude, [data.select]
     model_arrays(data, config.model)  # fail early on what this model needs
     return data

@@ -81,6 +81,8 @@ class ModelArrays(NamedTuple):
     sn_mag: np.ndarray
     sn_err: np.ndarray
     sn_z: np.ndarray  # 1 for calibrators (unused)
+    anchor_cov: np.ndarray = np.zeros((0, 0))  # (n_anchors, n_anchors) covariance table, mag^2; (0, 0): none
+    sn_cov: np.ndarray = np.zeros((0, 0))  # (n_sn, n_sn) covariance table, mag^2; (0, 0): none
 
 
 @dataclass(frozen=True)
@@ -222,6 +224,11 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         sn_mag=sne.mag[sn_keep].astype(float) if sne is not None else np.zeros(0),
         sn_err=sne.mag_err[sn_keep].astype(float) if sne is not None else np.zeros(0),
         sn_z=np.where(sn_slot < 0, sne.z[sn_keep], 1.0) if sne is not None else np.zeros(0),
+        # covariance tables over the rows fitted (the marginal of a Gaussian: rows and columns of the kept ones)
+        anchor_cov=np.asarray(data.anchor_cov[np.ix_(anchors, anchors)], float) if data.anchor_cov is not None
+        else np.zeros((0, 0)),
+        sn_cov=np.asarray(sne.cov[np.ix_(sn_keep, sn_keep)], float) if sne is not None and sne.cov is not None
+        else np.zeros((0, 0)),
     )
     layout = Layout(
         galaxies=tuple(data.host_names),
@@ -566,19 +573,38 @@ def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_va
     return membership_probability(core, other, fraction), ebv
 
 
-def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0):
-    """Pointwise log densities of the anchors' geometric moduli and of the supernovae at these parameters:
-    ``(anchors (n_anchor,), supernovae (n_sn,))``; the rows of :mod:`ladder.structure`."""
+def _rows_logpdf(y, loc, var, table, dense: bool):
+    r"""Log densities of rows ``y`` about ``loc``: independent Normals, or with a covariance table the sequential
+    conditionals :math:`\ln p(y_i \mid y_{<i})` of :math:`\mathcal N(\mathrm{loc}, \mathrm{diag}(\mathrm{var})
+    + C_\mathrm{table})` in file order: with :math:`C = L L^T` (:func:`ladder.structure.row_cholesky`) and
+    :math:`z = L^{-1}(y - \mathrm{loc})`, :math:`\ln\phi(z_i) - \ln L_{ii}`; they sum to the joint density."""
     import jax.numpy as jnp
+    from jax.scipy.linalg import solve_triangular
     from jax.scipy.stats import norm
 
-    lin, G = parts.lin, parts.structure.n_galaxies
-    a = norm.logpdf(lin.anchor_y, theta_local[lin.anchor_slot, 0], jnp.sqrt(lin.anchor_var)) \
-        if lin.anchor_slot.shape[0] else jnp.zeros(0)
+    if not dense:
+        return norm.logpdf(y, loc, jnp.sqrt(var))
+    from .structure import row_cholesky
+
+    chol = row_cholesky(var, table)
+    z = solve_triangular(chol, y - loc, lower=True)
+    return norm.logpdf(z) - jnp.log(jnp.diagonal(chol))
+
+
+def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0):
+    """Pointwise log densities of the anchors' geometric moduli and of the supernovae at these parameters:
+    ``(anchors (n_anchor,), supernovae (n_sn,))``; the rows of :mod:`ladder.structure`. With a covariance table
+    (``[data] anchor_covariance`` / ``supernova_covariance``) each row's value is its density given the rows
+    before it (:func:`_rows_logpdf`), so the sum is the multivariate normal density of the block."""
+    import jax.numpy as jnp
+
+    st, lin, G = parts.structure, parts.lin, parts.structure.n_galaxies
+    a = _rows_logpdf(lin.anchor_y, theta_local[lin.anchor_slot, 0], lin.anchor_var, lin.anchor_cov,
+                     st.anchor_dense) if lin.anchor_slot.shape[0] else jnp.zeros(0)
     if lin.sn_slot.shape[0]:
         mu = jnp.concatenate([theta_local[:, 0], jnp.zeros(1)])[lin.sn_slot]
         loc = jnp.where(lin.sn_slot < G, mu, 0.0) + lin.sn_design @ theta_global
-        sn = norm.logpdf(lin.sn_y, loc, jnp.sqrt(lin.sn_var + sn_extra_var))
+        sn = _rows_logpdf(lin.sn_y, loc, lin.sn_var + sn_extra_var, lin.sn_cov, st.sn_dense)
     else:
         sn = jnp.zeros(0)
     return a, sn

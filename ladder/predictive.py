@@ -166,7 +166,13 @@ def add_predictive(result, *, group: bool = False, n_draws: int = 200, seed: int
         take = np.linspace(0, S - 1, min(n_draws, S)).astype(int)
         mu = np.asarray(post["mu"]).reshape(S, -1)[take][:, np.asarray(parts.lin.anchor_slot)]
         rng = np.random.default_rng(seed)
-        geo = mu + np.sqrt(np.asarray(parts.lin.anchor_var)) * rng.standard_normal(mu.shape)
+        if parts.structure.anchor_dense:  # with the covariance table: the same Cholesky factor as the likelihood
+            from .structure import row_cholesky
+
+            chol = np.asarray(row_cholesky(parts.lin.anchor_var, parts.lin.anchor_cov))
+            geo = mu + rng.standard_normal(mu.shape) @ chol.T
+        else:
+            geo = mu + np.sqrt(np.asarray(parts.lin.anchor_var)) * rng.standard_normal(mu.shape)
         groups["anchor_mu_geo"] = xr.DataArray(geo[None], dims=["chain", "draw", "anchor"],
                                                coords={"anchor": list(result.layout.anchors)})
     result.idata.add_groups({"posterior_predictive": xr.Dataset(groups)})

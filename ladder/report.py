@@ -1,4 +1,6 @@
-r"""One self-contained HTML report of a fit, built from its output directory alone.
+r"""One self-contained HTML report of a fit, built from its output directory alone (or of a sweep or a
+calibration directory: :func:`sweep_html`, :func:`calibration_html`, chosen by :func:`report_html` from the files
+present).
 
 ``write_report(out_dir)`` reads what :func:`ladder.write_outputs` wrote (``distances.ecsv``,
 ``parameters.ecsv``, ``stars.ecsv``, ``diagnostics.json``, ``provenance.json``, ``posterior.nc``, the PNG
@@ -31,7 +33,7 @@ import json
 import math
 from pathlib import Path
 
-__all__ = ["write_report", "report_html", "anchor_pulls", "prior_dominance", "FEW_CEPHEIDS", "ANCHOR_PULL_Z",
+__all__ = ["write_report", "report_html", "sweep_html", "calibration_html", "anchor_pulls", "prior_dominance", "FEW_CEPHEIDS", "ANCHOR_PULL_Z",
            "PRIOR_DOMINANCE", "REPORT_NAME"]
 
 REPORT_NAME = "report.html"
@@ -285,6 +287,10 @@ def report_html(out_dir: str | Path) -> str:
     out = Path(out_dir)
     if not out.is_dir():
         raise InputError("is not a directory (give the output directory of a fit)", file=str(out))
+    if (out / "calibration.json").is_file():
+        return calibration_html(out)
+    if (out / "sweep.ecsv").is_file():
+        return sweep_html(out)
     distances = _read_table(out / "distances.ecsv")
     parameters = _read_table(out / "parameters.ecsv")
     diag = _read_json(out / "diagnostics.json")
@@ -495,6 +501,11 @@ def report_html(out_dir: str | Path) -> str:
         add("<details><summary>Resolved run settings (the run file with every default filled in)</summary>"
             f"<pre>{_e(json.dumps(run, indent=1))}</pre></details>")
 
+    return _page(title, parts)
+
+
+def _page(title: str, parts: list[str]) -> str:
+    """The one HTML page of every report: its own CSS, no scripts, images as data: URIs only (CSP)."""
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
             "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; img-src data:; "
@@ -502,8 +513,155 @@ def report_html(out_dir: str | Path) -> str:
             f"<title>{_e(title)}</title><style>{_CSS}</style></head><body>\n" + "\n".join(parts) + "\n</body></html>\n")
 
 
+def _cell(v) -> str:
+    """A table value as escaped text (floats to 4 significant digits)."""
+    if hasattr(v, "value"):
+        v = _value(v)
+    if isinstance(v, (bool,)) or type(v).__name__ == "bool_":
+        return "yes" if bool(v) else "no"
+    if isinstance(v, float) or type(v).__name__.startswith("float"):
+        return _e(_num(v, ".4g"))
+    return _e(v)
+
+
+# ----------------------------------------------------------------------------- sweep directory
+def sweep_html(out_dir: str | Path) -> str:
+    """Report of a sweep directory (``ladder sweep``): its table (``sweep.ecsv``) and figure (``sweep.png``)."""
+    from .errors import InputError
+
+    out = Path(out_dir)
+    table = _read_table(out / "sweep.ecsv")
+    if table is None:
+        raise InputError("not a sweep directory: missing sweep.ecsv", file=str(out))
+    run = str(table.meta.get("run_file", ""))
+    title = f"ladder sweep report: {Path(run).name}" if run else "ladder sweep report"
+    parts: list[str] = []
+    add = parts.append
+    add(f"<h1>{_e(title)}</h1>")
+    add(f'<p class="muted">Sweep directory <code>{_e(out.resolve())}</code>; run file <code>{_e(run)}</code>. '
+        "Each variant's own result set (and its report, <code>ladder report DIR/VARIANT</code>) is in its "
+        "subdirectory. This file holds everything it shows.</p>")
+    bad = [r for r in table if str(r["status"]) != "done" or not bool(r["passed"])]
+    if bad:
+        items = "".join(f"<li><b>{_e(r['variant'])}</b>: "
+                        + (f"failed ({_e(r['error'])})" if str(r["status"]) != "done" else
+                           "sampler diagnostics failed: do not use its numbers") + "</li>" for r in bad)
+        add(f'<div class="banner fail"><b>{len(bad)} of {len(table)} variants failed or failed their sampler '
+            f"diagnostics</b> (marked in the table; <code>ladder sweep --strict</code> exits 3):<ul>{items}</ul></div>")
+    else:
+        add(f'<div class="banner pass"><b>All {len(table)} variants fitted and passed their sampler diagnostics.</b></div>')
+    png = out / "sweep.png"
+    if png.is_file():
+        add(f"<figure>{_img(png, 'sweep figure')}<figcaption>Median and 68% interval of the headline quantities "
+            "per variant against the baseline's 68% band; open markers: sampler diagnostics failed "
+            "(<code>sweep.png</code>).</figcaption></figure>")
+    add("<h2>Shifts from the baseline</h2>")
+    desc = table.meta.get("description")
+    if desc:
+        add(f"<p>{_e(desc)}.</p>")
+    shifts = [c for c in table.colnames if c.endswith("_shift")]
+    cols = ["variant", "status", "passed", "method", *shifts, "delta_elpd", "delta_elpd_se", "note"]
+    cols = [c for c in cols if c in table.colnames]
+    rows = []
+    for r in table:
+        cells = [_cell(r[c]) for c in cols]
+        if str(r["status"]) != "done" or not bool(r["passed"]):
+            cells[0] = f'<span class="fail">{cells[0]}</span>'
+        rows.append(cells)
+    add(_table([_e(c) for c in cols], rows, numeric={i for i, c in enumerate(cols) if c in shifts or "elpd" in c}))
+    add("<h2>Every column</h2><details><summary>The whole sweep.ecsv (means, sds, LOO, errors)</summary>")
+    add(_table([_e(c) for c in table.colnames], [[_cell(r[c]) for c in table.colnames] for r in table]))
+    add("</details>")
+    return _page(title, parts)
+
+
+# ----------------------------------------------------------------------------- calibration directory
+def calibration_html(out_dir: str | Path) -> str:
+    """Report of a calibration directory (``ladder calibrate``): coverage, uniformity, rank histograms."""
+    from .errors import InputError
+
+    out = Path(out_dir)
+    meta = _read_json(out / "calibration.json") or {}
+    coverage, uniformity = _read_table(out / "coverage.ecsv"), _read_table(out / "uniformity.ecsv")
+    if coverage is None or uniformity is None:
+        raise InputError("not a finished calibration directory: missing coverage.ecsv or uniformity.ecsv",
+                         file=str(out))
+    run = ((meta.get("inputs") or {}).get("run") or {}).get("path", "")
+    title = f"ladder calibration report: {Path(run).name}" if run else "ladder calibration report"
+    parts: list[str] = []
+    add = parts.append
+    add(f"<h1>{_e(title)}</h1>")
+    add(f'<p class="muted">Calibration directory <code>{_e(out.resolve())}</code>. Calibration by simulation '
+        "(Talts et al. 2018, arXiv:1804.06788; Modrak et al. 2023, Bayesian Analysis): parameters drawn from the "
+        "run's priors, catalogues simulated with the run's structure, fitted with its settings; the rank of each "
+        "truth among the posterior draws is uniform and each interval covers its truth at its nominal rate when "
+        "the posterior is calibrated. This file holds everything it shows.</p>")
+    n_rep, done = int(meta.get("replications", 0)), int(meta.get("done", 0))
+    gate, failed = int(meta.get("failed_diagnostics", 0)), int(meta.get("failed", 0))
+    off = [r for r in coverage if int(r["n"]) and not bool(r["within_2sd"])]
+    used = int(max(coverage["n"])) if len(coverage) else 0
+    verdict = (f"{used} of {n_rep} replications used; {gate} failed the sampler diagnostics and {failed} failed to "
+               "run (marked in ranks.ecsv, not used). ")
+    from scipy import stats
+
+    m = int(sum(1 for r in coverage if int(r["n"])))
+    chance = 2.0 * stats.norm.sf(2.0)  # a calibrated value is more than 2 sd off with probability 4.6%
+    most = int(stats.binom.ppf(0.99, m, chance)) if m else 0
+    worst = max((abs(float(r["z"])) for r in coverage if int(r["n"])), default=0.0)
+    ok = m > 0 and len(off) <= most and worst < 3.0 and not gate and not failed
+    cls = "pass" if ok else "fail"
+    verdict += (f"{len(off)} of {m} coverage values are more than 2 binomial sd from nominal ({chance * m:.1f} "
+                f"expected by chance alone, at most {most} in 99% of calibrated cases); the largest is "
+                f"{worst:.1f} sd off. " + ("Consistent with calibrated intervals at this resolution." if ok else
+                                          "Look at the quantities marked below."))
+    add(f'<div class="banner {cls}"><b>{_e(verdict)}</b></div>')
+    add("<h2>Coverage</h2><p>Empirical coverage &plusmn; binomial sd "
+        "(&radic;(c(1&minus;c)/n)) of the central posterior intervals; for <code>mu_hosts_chi2</code> the joint "
+        "credible ellipsoid of the host moduli (they share the zero point). Marked <span class=\"fail\">red</span>: "
+        "more than 2 sd from nominal.</p>")
+    levels = sorted({float(c) for c in coverage["nominal"]})
+    p_of = {str(r["parameter"]): float(r["p_value"]) for r in uniformity}
+    rows = []
+    for name in dict.fromkeys(str(p) for p in coverage["parameter"]):
+        sel = [r for r in coverage if str(r["parameter"]) == name]
+        cells = [f"<code>{_e(name)}</code>", _e(sel[0]["interval"]), str(int(sel[0]["n"]))]
+        for lev in levels:
+            r = [x for x in sel if abs(float(x["nominal"]) - lev) < 1e-9]
+            if not r or not int(r[0]["n"]):
+                cells.append("n/a")
+                continue
+            text = f"{float(r[0]['empirical']):.3f} &plusmn; {float(r[0]['binomial_sd']):.3f}"
+            cells.append(text if bool(r[0]["within_2sd"]) else f'<span class="fail">{text}</span>')
+        cells.append(_e(_num(p_of.get(name, float("nan")), ".3f")))
+        rows.append(cells)
+    head = ["parameter", "interval", "n", *[f"{lev:.0%}" for lev in levels], "uniformity p"]
+    add(_table([_e(h) for h in head], rows, numeric=set(range(2, len(head)))))
+    add("<p>uniformity p: chi-square test of equal counts in equal bins of the ranks (a small value says the "
+        "posterior is off for that quantity; several hundred replications are needed to see small effects).</p>")
+    png = out / "sbc.png"
+    if png.is_file():
+        add(f"<h2>Rank histograms</h2><figure>{_img(png, 'rank histograms')}<figcaption>Rank of each truth among "
+            "the thinned posterior draws, per quantity; the grey band holds 99% of the counts a uniform rank gives "
+            "(<code>sbc.png</code>). A U shape: intervals too narrow; a hump: too wide; a slope: biased."
+            "</figcaption></figure>")
+    add('<h2 id="provenance">Provenance</h2>')
+    rows = [["replications", _e(n_rep)], ["seed", _e(meta.get("seed", "?"))],
+            ["draws ranked", _e(meta.get("n_ranks", "?"))], ["ladder", _e(meta.get("ladder_version", "?"))],
+            ["command line", "<code>" + _e(" ".join(str(a) for a in (meta.get("command") or []))) + "</code>"]]
+    add(_table(None, rows))
+    inputs = meta.get("inputs") or {}
+    if inputs:
+        add(_table(["role", "path", "SHA-256"], [[_e(k), f"<code>{_e(v.get('path'))}</code>",
+                                                  f"<code>{_e(v.get('sha256'))}</code>"] for k, v in inputs.items()]))
+    if meta.get("run"):
+        add("<details><summary>Resolved run settings</summary>"
+            f"<pre>{_e(json.dumps(meta['run'], indent=1))}</pre></details>")
+    return _page(title, parts)
+
+
 def write_report(out_dir: str | Path) -> Path:
-    """Write ``report.html`` into the fit's output directory ``out_dir``; return its path."""
+    """Write ``report.html`` into ``out_dir`` (a fit's output directory, a sweep or a calibration directory);
+    return its path."""
     out = Path(out_dir)
     text = report_html(out)
     path = out / REPORT_NAME

@@ -60,6 +60,8 @@ def _subset(data: LadderData, keep_hosts: np.ndarray, keep_stars: np.ndarray) ->
     changes = {f: _take(getattr(data, f), hi) for f in _HOST_FIELDS}
     changes.update({f: _take(getattr(data, f), si) for f in _STAR_FIELDS})
     changes["star_host"] = new_index[data.star_host[si]]
+    if data.anchor_cov is not None:
+        changes["anchor_cov"] = data.anchor_cov[np.ix_(hi, hi)]
     if data.star_rows is None:
         changes["star_rows"] = si
     sne = data.supernovae
@@ -73,6 +75,8 @@ def _subset(data: LadderData, keep_hosts: np.ndarray, keep_stars: np.ndarray) ->
                       "z": sne.z[k], "host_index": np.where(flow[k], HUBBLE_FLOW, new_index[np.where(flow, 0, sne.host_index)][k])}
         if sne.host_names:
             sn_changes["host_names"] = changes["host_names"]
+        if sne.cov is not None:  # the marginal of a Gaussian over the kept rows: drop the others' rows and columns
+            sn_changes["cov"] = sne.cov[np.ix_(k, k)]
         changes["supernovae"] = dataclasses.replace(sne, **sn_changes)
     return dataclasses.replace(data, **changes)
 

@@ -75,6 +75,12 @@ With every switch on, star :math:`k` of galaxy :math:`g` has
   kinematic distance of :mod:`ladder.cosmography` (Visser 2004, CQG 21, 2603), and reported
   redshift :math:`z_\mathrm{obs} = z + v/c`, :math:`v \sim N(0, \sigma_v)` (peculiar velocity
   added to :math:`cz`, to first order).
+* **Shared systematics** (``anchor_systematic`` :math:`\sigma_a`, ``sn_systematic`` :math:`\sigma_s`): one
+  offset :math:`\delta_a \sim N(0, \sigma_a)` added to every anchor's reported ``mu_geo`` (a zero-point error
+  common to the geometric distances), and one :math:`\delta_s \sim N(0, \sigma_s)` added to every calibrator
+  supernova's magnitude (a calibration offset between the calibrators' photometry and the Hubble flow's). Each
+  comes with its covariance table (:mod:`ladder.covariance`): :math:`\sigma^2` for every pair of the rows it
+  touches, the diagonal included, written as ``anchor_covariance.ecsv`` / ``supernova_covariance.ecsv``.
 
 ``noise = False`` removes all measurement noise (magnitudes, parallaxes, bias estimates);
 physical scatter (``scatter``, ``sn_scatter``, ``sigma_v``) has its own switches.
@@ -112,7 +118,7 @@ WESENHEIT_BANDS = ("H", "V", "I")
 
 #: One child random stream per ingredient, in this order (append new ones at the end only).
 _STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise",
-            "parallax", "outliers", "host_scatter", "bias", "supernovae", "bands")
+            "parallax", "outliers", "host_scatter", "bias", "supernovae", "systematics", "bands")
 
 _SPEED_OF_LIGHT_KMS = 299792.458  # exact (SI); same value as ladder.cosmography, which imports JAX
 
@@ -237,6 +243,12 @@ class MockSettings:
         (250 km/s), ``q0`` (-0.55), ``j0`` (1.0); errors uniform in ``sn_mag_err``
         (0.08, 0.12) mag. The truths are invented for the scenario: plausible values, not taken
         from any measurement.
+
+    Shared systematics
+        ``anchor_systematic`` (0.0 mag): one offset N(0, anchor_systematic) added to every anchor's
+        mu_geo, with ``anchor_covariance`` (every anchor pair: anchor_systematic^2). ``sn_systematic``
+        (0.0 mag, needs supernovae): one offset added to every calibrator's magnitude, with
+        ``supernova_covariance`` (every calibrator pair: sn_systematic^2).
     """
 
     # --- sample -----------------------------------------------------------------------------
@@ -316,6 +328,9 @@ class MockSettings:
     sn_mag_err: tuple[float, float] = (0.08, 0.12)
     q0: float = -0.55
     j0: float = 1.0
+    # shared systematics (covariance tables)
+    anchor_systematic: float = 0.0
+    sn_systematic: float = 0.0
     # per-band terms (issue 9): band order V, I, H as BANDS
     metallicity_coef_bands: tuple[float, float, float] | None = None
     band_scatter: tuple[float, float, float] | None = None
@@ -411,7 +426,7 @@ class MockSettings:
         _range("outlier_shift", self.outlier_shift)
         if self.outlier_shift[0] < 0:
             raise ValueError("outlier_shift must be >= 0 (blends are brighter by that many mag)")
-        for name in ("scatter_spread", "bias_sd", "sn_scatter", "sigma_v"):
+        for name in ("scatter_spread", "bias_sd", "sn_scatter", "sigma_v", "anchor_systematic", "sn_systematic"):
             if finite(name, getattr(self, name)) < 0:
                 raise ValueError(f"{name} must be >= 0, got {getattr(self, name)!r}")
         if not finite("bias_err", self.bias_err) > 0:
@@ -426,6 +441,8 @@ class MockSettings:
         if 5.0 * self.sigma_v >= _SPEED_OF_LIGHT_KMS * self.sn_z[0]:
             raise ValueError("sigma_v must be < c z_min / 5 so that the reported redshifts stay positive")
         _range("sn_mag_err", self.sn_mag_err, positive=True)
+        if self.sn_systematic > 0 and not self.n_hubble_flow:
+            raise ValueError("sn_systematic needs supernovae (n_hubble_flow > 0)")
         for name in ("metallicity_coef_bands", "band_scatter", "strip_amplitudes"):
             v = getattr(self, name)
             if v is None:
@@ -529,6 +546,8 @@ class Mock:
     latent: Any = field(repr=False)
     supernovae: Any = None
     sn_latent: Any = field(default=None, repr=False)
+    anchor_covariance: Any = None  # covariance table (host_a, host_b, cov) with anchor_systematic > 0
+    supernova_covariance: Any = None  # covariance table (sn_a, sn_b, cov) with sn_systematic > 0
 
 
 # ----------------------------------------------------------------------------- generation
@@ -894,6 +913,22 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         sn.meta["description"] += f" seed {seed}"
         truth.update(h0=float(s.h0), sn_abs_mag=float(s.sn_abs_mag), sn_scatter=float(s.sn_scatter),
                      sigma_v=float(s.sigma_v), q0=float(s.q0), j0=float(s.j0))
+    anchor_cov = sn_cov = None
+    if s.anchor_systematic > 0 or s.sn_systematic > 0:
+        delta_a, delta_s = (float(x) for x in rng["systematics"].standard_normal(2) * (s.anchor_systematic,
+                                                                                        s.sn_systematic))
+        if s.anchor_systematic > 0:
+            hosts["mu_geo"] = MaskedColumn(np.asarray(hosts["mu_geo"]) + np.where(anchor_all, delta_a, 0.0),
+                                           mask=~anchor_all, unit=u.mag)
+            anchor_cov = _shared_covariance([all_names[g] for g in np.flatnonzero(anchor_all)], s.anchor_systematic,
+                                            ("host_a", "host_b"), "anchors' geometric distances", seed)
+            truth.update(anchor_systematic=float(s.anchor_systematic), anchor_offset=delta_a)
+        if s.sn_systematic > 0:
+            cal = np.asarray(sn["host"]) != ""
+            sn["mag"] = Column(np.asarray(sn["mag"]) + np.where(cal, delta_s, 0.0), unit=u.mag)
+            sn_cov = _shared_covariance([str(x) for x in np.asarray(sn["sn"])[cal]], s.sn_systematic,
+                                        ("sn_a", "sn_b"), "calibrator supernovae's magnitudes", seed)
+            truth.update(sn_systematic=float(s.sn_systematic), sn_offset=delta_s)
     if s.metallicity_coef_bands is not None:
         g = dict(zip(BANDS, (float(x) for x in s.metallicity_coef_bands)))
         truth["metallicity_coef_bands"] = g
@@ -910,7 +945,22 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     truth["seed"] = seed
     truth["settings"] = dataclasses.asdict(s)
     return Mock(settings=s, seed=seed, cepheids=cep, hosts=hosts, truth=truth, latent=latent,
-                supernovae=sn, sn_latent=sn_latent)
+                supernovae=sn, sn_latent=sn_latent, anchor_covariance=anchor_cov, supernova_covariance=sn_cov)
+
+
+def _shared_covariance(names: list[str], sd: float, columns: tuple[str, str], what: str, seed: int):
+    """Covariance table of one offset of size ``sd`` shared by the rows ``names``: sd^2 for every unordered pair,
+    the diagonal included (the data contract's long format, :mod:`ladder.covariance`)."""
+    import astropy.units as u
+    from astropy.table import Column, Table
+
+    pairs = [(a, b) for i, a in enumerate(names) for b in names[i:]]
+    t = Table(meta={"description": f"Mock covariance of the {what}: one shared offset of {sd:g} mag "
+                                   f"(invented data), ladder.simulate seed {seed}"})
+    t[columns[0]] = Column([a for a, _ in pairs], dtype=str)
+    t[columns[1]] = Column([b for _, b in pairs], dtype=str)
+    t["cov"] = Column(np.full(len(pairs), sd**2), unit=u.mag**2)
+    return t
 
 
 # ----------------------------------------------------------------------------- writing
@@ -992,6 +1042,10 @@ def _run_document(mock: Mock, overrides: dict[str, Any] | None) -> dict[str, Any
     data = {"cepheids": "cepheids.ecsv", "hosts": "hosts.ecsv"}
     if mock.supernovae is not None:
         data["supernovae"] = "supernovae.ecsv"
+    if mock.supernova_covariance is not None:
+        data["supernova_covariance"] = "supernova_covariance.ecsv"
+    if mock.anchor_covariance is not None:
+        data["anchor_covariance"] = "anchor_covariance.ecsv"
     doc: dict[str, Any] = {
         "data": data,
         "bands": {b: {"wavelength_um": float(w)} for b, w in zip(BANDS, mock.settings.band_wavelength_um)},
@@ -1012,7 +1066,8 @@ def write_mock(mock: Mock, out_dir: str | Path, *, run_overrides: dict[str, Any]
                validate: bool = True) -> dict[str, Path]:
     """Write a mock as ``cepheids.ecsv``, ``hosts.ecsv``, ``truth.json`` and ``run.toml`` in ``out_dir``.
 
-    With supernovae (``n_hubble_flow`` > 0) also ``supernovae.ecsv``, named under ``[data]``.
+    With supernovae (``n_hubble_flow`` > 0) also ``supernovae.ecsv``, named under ``[data]``; with shared
+    systematics also ``anchor_covariance.ecsv`` / ``supernova_covariance.ecsv``, named there too.
     The run file fits ``mag_W`` with the metallicity term (chains 4, warmup 500, draws 1000,
     sampler seed = the mock's seed), names the tables by paths relative to itself and gives
     each band's effective wavelength as ``[bands.B] wavelength_um``. Switches for the further
@@ -1035,6 +1090,9 @@ def write_mock(mock: Mock, out_dir: str | Path, *, run_overrides: dict[str, Any]
     names = [("cepheids", "cepheids.ecsv"), ("hosts", "hosts.ecsv"), ("truth", "truth.json"), ("run", "run.toml")]
     if mock.supernovae is not None:
         names.append(("supernovae", "supernovae.ecsv"))
+    for k in ("supernova_covariance", "anchor_covariance"):
+        if getattr(mock, k) is not None:
+            names.append((k, f"{k}.ecsv"))
     paths = {k: out / f for k, f in names}
     doc = _run_document(mock, run_overrides)
     header = (f"Run file for a mock universe (invented data) made by ladder.simulate, seed {mock.seed}.\n"
@@ -1044,6 +1102,9 @@ def write_mock(mock: Mock, out_dir: str | Path, *, run_overrides: dict[str, Any]
     mock.hosts.write(paths["hosts"], format="ascii.ecsv", overwrite=True)
     if mock.supernovae is not None:
         mock.supernovae.write(paths["supernovae"], format="ascii.ecsv", overwrite=True)
+    for k in ("supernova_covariance", "anchor_covariance"):
+        if getattr(mock, k) is not None:
+            getattr(mock, k).write(paths[k], format="ascii.ecsv", overwrite=True)
     paths["truth"].write_text(json.dumps(mock.truth, indent=2) + "\n", encoding="utf-8")
     paths["run"].write_text(text, encoding="utf-8")
     if validate:

@@ -94,7 +94,16 @@ class Structure:
     band_shaped: bool  # PL parameters have one value per band (multiband)
     uniform_bounds: tuple[tuple[str, float, float], ...] = ()  # linear parameters with a uniform prior
     sorted_slots: bool = False  # stars ordered by galaxy (faster segment sums)
+    # Covariance tables: the anchors' / supernovae's rows have a dense covariance (whitened by its Cholesky
+    # factor); the galaxies those rows touch (``dense_slots``) are solved with the globals, not one by one.
+    anchor_dense: bool = False
+    sn_dense: bool = False
+    dense_slots: tuple[int, ...] = ()
     band_params: tuple[str, ...] = ()  # parameters with one value per band (ModelSettings.band_parameters)
+
+    @property
+    def dense(self) -> bool:
+        return self.anchor_dense or self.sn_dense
 
     @property
     def p(self) -> int:
@@ -136,6 +145,12 @@ class LinearArrays(NamedTuple):
     q0: np.ndarray  # (p, p) sum_j sum_B w G_B G_B^T
     yy0: np.ndarray  # () sum_j sum_B w y0^2
     logvar: np.ndarray  # () sum of ln sigma^2 over fitted bands
+    # covariance tables ((0, 0) without): added to diag(anchor_var) / diag(sn_var + sn_extra_var)
+    anchor_cov: np.ndarray = np.zeros((0, 0))
+    sn_cov: np.ndarray = np.zeros((0, 0))
+    # design of the rows with a dense covariance over (the local columns of dense_slots, the globals): (n, q)
+    anchor_z: np.ndarray = np.zeros((0, 0))
+    sn_z: np.ndarray = np.zeros((0, 0))
 
 
 def _linear_prior(spec):
@@ -190,8 +205,17 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     n_local = 2 if settings.photometric_bias else 1
     mu_index0 = np.asarray(arrays.star_mu_index)
     slot0 = np.where(mu_index0 >= layout.n_mu, layout.n_mu, mu_index0)
+    anchor_cov = np.asarray(getattr(arrays, "anchor_cov", np.zeros((0, 0))), float)
+    sn_cov = np.asarray(getattr(arrays, "sn_cov", np.zeros((0, 0))), float)
+    anchor_dense, sn_dense = anchor_cov.size > 0, sn_cov.size > 0
+    touched = set()
+    if anchor_dense:
+        touched |= set(np.asarray(arrays.anchor_slot).tolist())
+    if sn_dense:
+        touched |= {int(x) for x in np.asarray(arrays.sn_slot) if x >= 0}
     structure = Structure(tuple(columns), tuple(fixed), n_local, layout.n_mu, tuple(bands), band_shaped,
-                          tuple(bounds), bool(np.all(np.diff(slot0) >= 0)), tuple(settings.band_parameters))
+                          tuple(bounds), bool(np.all(np.diff(slot0) >= 0)), anchor_dense, sn_dense,
+                          tuple(sorted(touched)), band_params=tuple(settings.band_parameters))
 
     # The regressors are the model terms themselves (linear in their parameters), evaluated at unit parameter
     # values: M(P) of ladder.terms.pl and the offset of ladder.terms.metallicity.
@@ -289,7 +313,24 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
             sn_y = np.where(flow, sn_y + 5.0 * np.log10(fixed_d["h0"]), sn_y)
         sn_slot = np.where(flow, G, sn_slot)
 
+    dense = {}
+    if structure.dense:
+        # rows of a dense block, in the coordinates (local columns of dense_slots, globals) of the joint solve
+        pos = {g: i for i, g in enumerate(structure.dense_slots)}
+        q = len(pos) * n_local + p
+        if anchor_dense:
+            za = np.zeros((len(arrays.anchor_slot), q))
+            za[np.arange(za.shape[0]), [pos[int(g)] * n_local for g in np.asarray(arrays.anchor_slot)]] = 1.0
+            dense.update(anchor_cov=anchor_cov, anchor_z=za)
+        if sn_dense:
+            zs = np.zeros((n_sn, q))
+            zs[:, len(pos) * n_local:] = sn_design
+            for k, g in enumerate(sn_slot):
+                if g < G:
+                    zs[k, pos[int(g)] * n_local] = 1.0
+            dense.update(sn_cov=sn_cov, sn_z=zs)
     lin = LinearArrays(
+        **dense,
         y0=y0, var=var, mask=mask, seen=seen, design=design, local=local, slot=slot.astype(np.int64),
         par_star=np.asarray(arrays.par_star, np.int64),
         anchor_slot=np.asarray(arrays.anchor_slot, np.int64), anchor_y=np.asarray(arrays.mu_geo, float),
@@ -340,6 +381,8 @@ class NormalEquations(NamedTuple):
     yy: object  # scalar y^T Sigma^-1 y (data only)
     logdet_sigma: object  # ln|Sigma|
     n_obs: object  # number of observations
+    dd: object = None  # (q, q) rows with a dense covariance, over (local columns of dense_slots, globals)
+    db: object = None  # (q,)
 
 
 def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
@@ -385,8 +428,16 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
         lh = seg(d[:, None, None] * e[:, :, None] * g[:, None, :])
         bl = seg((d * t)[:, None] * e)
 
+    dd = db = None
+    if structure.dense:
+        q = len(structure.dense_slots) * structure.n_local + g.shape[1]
+        dd, db = jnp.zeros((q, q)), jnp.zeros(q)
     # anchors: mu_geo = mu + eps (local column 0)
-    if lin.anchor_slot.shape[0]:
+    if lin.anchor_slot.shape[0] and structure.anchor_dense:
+        zz, zy, qq, ld = whitened_rows(lin.anchor_z, lin.anchor_y, lin.anchor_var, lin.anchor_cov)
+        dd, db, yy, logdet = dd + zz, db + zy, yy + qq, logdet + ld
+        n_obs = n_obs + lin.anchor_slot.shape[0]
+    elif lin.anchor_slot.shape[0]:
         aw = 1.0 / lin.anchor_var
         ll = ll.at[lin.anchor_slot, 0, 0].add(aw)
         bl = bl.at[lin.anchor_slot, 0].add(aw * lin.anchor_y)
@@ -394,7 +445,11 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
         logdet = logdet + jnp.sum(jnp.log(lin.anchor_var))
         n_obs = n_obs + lin.anchor_slot.shape[0]
     # supernovae: calibrators mu + M_SN, flow M_SN - a
-    if lin.sn_slot.shape[0]:
+    if lin.sn_slot.shape[0] and structure.sn_dense:
+        zz, zy, qq, ld = whitened_rows(lin.sn_z, lin.sn_y, lin.sn_var + sn_extra_var, lin.sn_cov)
+        dd, db, yy, logdet = dd + zz, db + zy, yy + qq, logdet + ld
+        n_obs = n_obs + lin.sn_slot.shape[0]
+    elif lin.sn_slot.shape[0]:
         v = lin.sn_var + sn_extra_var
         sw_ = 1.0 / v
         X = lin.sn_design
@@ -414,7 +469,29 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
         bl = bl + lin.prior_prec_local * lin.prior_mean_local
         hh = hh + jnp.diag(lin.prior_prec)
         bh = bh + lin.prior_prec * lin.prior_mean + lin.tilt
-    return NormalEquations(ll, lh, hh, bl, bh, yy, logdet, n_obs)
+    return NormalEquations(ll, lh, hh, bl, bh, yy, logdet, n_obs, dd, db)
+
+
+def row_cholesky(var, table):
+    r"""Lower Cholesky factor of the covariance :math:`C = \mathrm{diag}(\mathrm{var}) + C_\mathrm{table}` of rows
+    with a covariance table (:mod:`ladder.covariance`): the one definition of that covariance, used by the normal
+    equations (:func:`whitened_rows`), the full model's likelihood and the replicated data."""
+    import jax.numpy as jnp
+
+    return jnp.linalg.cholesky(jnp.diag(var) + table)
+
+
+def whitened_rows(z, y, var, table):
+    r"""Rows :math:`y = Z u + \epsilon`, :math:`\epsilon \sim \mathcal N(0, C)` with a dense :math:`C`
+    (:func:`row_cholesky`, :math:`C = L L^T`), whitened: :math:`	ilde Z = L^{-1} Z`, :math:`	ilde y = L^{-1} y`
+    have unit covariance, so their normal equations are exact. Returns :math:`(	ilde Z^T	ilde Z,    	ilde Z^T	ilde y,\ 	ilde y^T	ilde y,\ \ln|C| = 2\sum_i \ln L_{ii})`."""
+    import jax.numpy as jnp
+    from jax.scipy.linalg import solve_triangular
+
+    chol = row_cholesky(var, table)
+    zt = solve_triangular(chol, z, lower=True)
+    yt = solve_triangular(chol, y, lower=True)
+    return zt.T @ zt, zt.T @ yt, jnp.dot(yt, yt), 2.0 * jnp.sum(jnp.log(jnp.diagonal(chol)))
 
 
 class _Solved(NamedTuple):
@@ -462,16 +539,42 @@ def _small_cho_solve(chol, rhs):
     return _small_solve(chol, _small_solve(chol, rhs), transpose=True)
 
 
-def _solve(eq: NormalEquations) -> _Solved:
-    """Eliminate the local blocks (Schur complement) and solve; Cholesky factors only, no explicit inverse."""
+def _solve(eq: NormalEquations, dense_slots: tuple[int, ...] = ()) -> _Solved:
+    """Eliminate the local blocks (Schur complement) and solve; Cholesky factors only, no explicit inverse.
+
+    With ``dense_slots`` (galaxies touched by rows with a dense covariance), those galaxies' local columns are
+    not eliminated but solved jointly with the globals: ``mean_h`` and ``chol_s`` are then over
+    (local columns of ``dense_slots``, globals), with the rows' dense normal equations ``eq.dd``, ``eq.db`` added.
+    """
     import jax.numpy as jnp
     from jax.scipy.linalg import cho_solve
 
     chol_l = _small_cholesky(eq.ll)
     inv_l_bl = _small_cho_solve(chol_l, eq.bl[..., None])[..., 0]
     inv_l_lh = _small_cho_solve(chol_l, eq.lh)
-    S = eq.hh - jnp.einsum("glp,glq->pq", eq.lh, inv_l_lh)
-    r = eq.bh - jnp.einsum("glp,gl->p", eq.lh, inv_l_bl)
+    if dense_slots:
+        G, L = eq.ll.shape[0], eq.ll.shape[-1]
+        keep = np.ones(G, bool)
+        keep[list(dense_slots)] = False
+        lh_k = jnp.where(keep[:, None, None], eq.lh, 0.0)
+        S = eq.hh - jnp.einsum("glp,glq->pq", lh_k, inv_l_lh)
+        r = eq.bh - jnp.einsum("glp,gl->p", lh_k, inv_l_bl)
+        T = np.asarray(dense_slots)
+        nT, p_ = T.size, S.shape[0]
+        idx = np.arange(nT)
+        tl = jnp.zeros((nT, L, nT, L)).at[idx, :, idx, :].set(eq.ll[T]).reshape(nT * L, nT * L)
+        tr = eq.lh[T].reshape(nT * L, p_)
+        S = jnp.block([[tl, tr], [tr.T, S]]) + eq.dd
+        r = jnp.concatenate([eq.bl[T].reshape(-1), r]) + eq.db
+        quad_l = jnp.sum(jnp.where(keep[:, None], eq.bl * inv_l_bl, 0.0))
+        logdet_l = 2.0 * jnp.sum(jnp.where(keep[:, None], jnp.log(jnp.diagonal(chol_l, axis1=-2, axis2=-1)), 0.0))
+    else:
+        S = eq.hh - jnp.einsum("glp,glq->pq", eq.lh, inv_l_lh)
+        r = eq.bh - jnp.einsum("glp,gl->p", eq.lh, inv_l_bl)
+        if eq.dd is not None:  # dense rows touching the globals only
+            S, r = S + eq.dd, r + eq.db
+        quad_l = jnp.sum(eq.bl * inv_l_bl)
+        logdet_l = 2.0 * jnp.sum(jnp.log(jnp.diagonal(chol_l, axis1=-2, axis2=-1)))
     p = S.shape[0]
     if p:
         chol_s = jnp.linalg.cholesky(S)
@@ -479,9 +582,21 @@ def _solve(eq: NormalEquations) -> _Solved:
         logdet_s = 2.0 * jnp.sum(jnp.log(jnp.diagonal(chol_s)))
     else:
         chol_s, mean_h, logdet_s = S, r, 0.0
-    quad_b = jnp.sum(eq.bl * inv_l_bl) + jnp.dot(r, mean_h)
-    logdet_a = 2.0 * jnp.sum(jnp.log(jnp.diagonal(chol_l, axis1=-2, axis2=-1))) + logdet_s
+    quad_b = quad_l + jnp.dot(r, mean_h)
+    logdet_a = logdet_l + logdet_s
     return _Solved(chol_l, chol_s, mean_h, inv_l_bl, inv_l_lh, quad_b, logdet_a)
+
+
+def _split_dense(structure: Structure, sol: _Solved, ext):
+    """(theta_local (G, L), theta_global (p,)) from a vector over (local columns of dense_slots, globals) ``ext``:
+    the dense galaxies' local columns from ``ext``, the others' conditional means given the globals."""
+    T = np.asarray(structure.dense_slots, np.int64)
+    m = T.size * structure.n_local
+    h = ext[m:]
+    loc = sol.inv_l_bl - sol.inv_l_lh @ h
+    if m:
+        loc = loc.at[T].set(ext[:m].reshape(T.size, structure.n_local))
+    return loc, h
 
 
 def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
@@ -489,7 +604,7 @@ def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=Non
     import jax.numpy as jnp
 
     eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
-    sol = _solve(eq)
+    sol = _solve(eq, structure.dense_slots)
     proper_l = lin.prior_prec_local > 0
     proper = lin.prior_prec > 0
     prior_quad = jnp.sum(lin.prior_prec_local * lin.prior_mean_local**2) + jnp.sum(lin.prior_prec * lin.prior_mean**2)
@@ -512,9 +627,8 @@ def conditional_mean(structure: Structure, lin: LinearArrays, offset_var, mu_par
 
         empty = jnp.all(eq.ll == 0.0, axis=-1) & jnp.all(eq.ll == 0.0, axis=-2)
         eq = eq._replace(ll=eq.ll + jnp.where(empty, 1.0, 0.0)[..., None] * jnp.eye(eq.ll.shape[-1]))
-    sol = _solve(eq)
-    loc = sol.inv_l_bl - sol.inv_l_lh @ sol.mean_h
-    return loc, sol.mean_h
+    sol = _solve(eq, structure.dense_slots)
+    return _split_dense(structure, sol, sol.mean_h)
 
 
 def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
@@ -528,7 +642,7 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
     from jax.scipy.linalg import solve_triangular
 
     eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
-    sol = _solve(eq)
+    sol = _solve(eq, structure.dense_slots)
     k1, k2 = jax.random.split(key)
     p = sol.mean_h.shape[0]
     if p:
@@ -538,7 +652,7 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
         h = sol.mean_h
     zl = jax.random.normal(k2, eq.bl.shape)
     noise = _small_solve(sol.chol_l, zl[..., None], transpose=True)[..., 0]
-    loc = sol.inv_l_bl - sol.inv_l_lh @ h + noise
+    loc, h = _split_dense(structure, sol._replace(inv_l_bl=sol.inv_l_bl + noise), h)
     return loc, h
 
 

@@ -54,6 +54,8 @@ class SupernovaData:
         The table's path (for messages).
     host_names : tuple of str
         The hosts table's galaxies that ``host_index`` points into (for summaries).
+    cov : ndarray (n_sn, n_sn) or None
+        The covariance table (mag^2, :mod:`ladder.covariance`), added to ``diag(mag_err**2)``; None: independent.
     """
 
     sn_names: tuple[str, ...]
@@ -63,6 +65,7 @@ class SupernovaData:
     z: np.ndarray
     file: str
     host_names: tuple[str, ...] = ()
+    cov: np.ndarray | None = None  # (n_sn, n_sn), mag^2: [data] supernova_covariance, added to diag(mag_err^2)
 
     @property
     def n_sn(self) -> int:

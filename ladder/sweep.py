@@ -117,9 +117,14 @@ def plan_sweep(run_file: str | Path) -> SweepPlan:
 
 
 # ----------------------------------------------------------------------------- one variant
+#: The input tables of a run (RunConfig attributes and provenance input roles) whose content a fit depends on.
+_TABLES = ("cepheids", "hosts", "supernovae", "supernova_covariance", "anchor_covariance")
+
+
 def _canonical_run(run: dict[str, Any]) -> dict[str, Any]:
     run = json.loads(json.dumps(run, default=str))
-    for k in ("cepheids", "hosts", "supernovae"):
+    run.get("sampler", {}).pop("strict", None)  # the gate's exit code, not the fit: no reason to refit
+    for k in _TABLES:
         if k in run.get("data", {}):
             run["data"][k] = str(Path(run["data"][k]).resolve())
     return run
@@ -129,8 +134,7 @@ def input_key(cfg: RunConfig) -> str:
     """SHA-256 of the resolved run dict and the input tables' SHA-256: equal keys -> the same fit."""
     from .provenance import sha256_file
 
-    tables = {k: sha256_file(p) for k, p in (("cepheids", cfg.cepheids), ("hosts", cfg.hosts),
-                                             ("supernovae", cfg.supernovae)) if p is not None}
+    tables = {k: sha256_file(p) for k, p in ((k, getattr(cfg, k)) for k in _TABLES) if p is not None}
     return _key(_canonical_run(cfg.to_dict()), tables)
 
 
@@ -146,7 +150,7 @@ def is_complete(directory: str | Path, cfg: RunConfig) -> bool:
         return False
     try:
         prov = json.loads((d / "provenance.json").read_text(encoding="utf-8"))
-        tables = {k: v["sha256"] for k, v in prov["inputs"].items() if k in ("cepheids", "hosts", "supernovae")}
+        tables = {k: v["sha256"] for k, v in prov["inputs"].items() if k in _TABLES}
         return _key(_canonical_run(prov["run"]), tables) == input_key(cfg)
     except (OSError, ValueError, KeyError, TypeError):
         return False
@@ -341,6 +345,13 @@ def _trusted(estimate: dict) -> bool:
 def galaxy_log_likelihood(idata, data, galaxy: str) -> np.ndarray:
     """Sum over every pointwise log-likelihood term of ``galaxy`` (its Cepheids, parallaxes, geometric distance,
     supernovae) per posterior draw, flattened over chains: (n_draws,)."""
+    sne = data.supernovae
+    if sne is not None and sne.cov is not None:
+        # with a covariance table a supernova's pointwise value is its density given the rows before it, not given
+        # all the others: the galaxy's terms do not add up to its leave-out likelihood (refit instead)
+        own = np.array([i >= 0 and data.host_names[i] == galaxy for i in sne.host_index])
+        if own.any() and np.any(sne.cov[np.ix_(own, ~own)] != 0.0):
+            raise ValueError(f"the supernovae of {galaxy} are correlated with others ([data] supernova_covariance)")
     star_host = {s: data.host_names[h] for s, h in zip(data.star_names, data.star_host)}
     sn_host = {}
     if data.supernovae is not None:
@@ -442,8 +453,7 @@ def _comparable(cfg: RunConfig, base: RunConfig, idata, idata0) -> str:
     if cfg.model.outliers == "clip" or base.model.outliers == "clip":
         return "clipping: clipped stars contribute nothing to the likelihood, not comparable"
     if cfg.selection.to_dict() != base.selection.to_dict() or \
-            [str(p) for p in (cfg.cepheids, cfg.hosts, cfg.supernovae)] != \
-            [str(p) for p in (base.cepheids, base.hosts, base.supernovae)]:
+            [str(getattr(cfg, k)) for k in _TABLES] != [str(getattr(base, k)) for k in _TABLES]:
         return "different data (selection or tables)"
     if cfg.model.fitted_bands != base.model.fitted_bands or cfg.model.extinction != base.model.extinction \
             or (cfg.model.wesenheit is None) != (base.model.wesenheit is None):

@@ -95,7 +95,8 @@ def expand_variants(path: str | Path) -> dict[str, RunConfig]:
         except InputError as exc:
             raise InputError(exc.message, file=file, key=f"{key}.{exc.key}" if exc.key else key,
                              rows=exc.rows) from None
-        for k, table in (("cepheids", cfg.cepheids), ("hosts", cfg.hosts), ("supernovae", cfg.supernovae)):
+        for k, table in ((k, getattr(cfg, k)) for k in ("cepheids", "hosts", "supernovae", "supernova_covariance",
+                                                          "anchor_covariance")):
             if table is not None and not table.is_file():
                 raise InputError(f"table not found: {table}", file=file, key=f"{key}.data.{k}")
         out[name] = dataclasses.replace(cfg, path=path)

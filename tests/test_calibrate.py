@@ -33,10 +33,21 @@ def _tiny_run(root: Path, extra: str = "") -> Path:
 @pytest.fixture(scope="module")
 def calibrated(tmp_path_factory):
     """One tiny calibration through the CLI on a one-worker Dask cluster (~25 s, most of it the first
-    replication's compilation; the others load it from the calibration's compilation cache)."""
+    replication's compilation; the others load it from the compilation cache). The cache is the session's
+    (helpers.compile_cache, given to the worker through JAX_COMPILATION_CACHE_DIR as a user's own setting would
+    be), shared with tests/test_recovery.py's ensemble of mocks of the same structure."""
+    import os
+
+    from helpers import compile_cache
+
     root = tmp_path_factory.mktemp("calibrate")
     run = _tiny_run(root / "mock")
-    code = main(["calibrate", str(run), "--replications", str(N_REP), "--out", str(root / "cal"), "--workers", "1"])
+    os.environ["JAX_COMPILATION_CACHE_DIR"] = str(compile_cache(tmp_path_factory))  # the worker inherits it
+    try:
+        code = main(["calibrate", str(run), "--replications", str(N_REP), "--out", str(root / "cal"),
+                     "--workers", "1"])
+    finally:
+        del os.environ["JAX_COMPILATION_CACHE_DIR"]
     return run, root / "cal", code
 
 
@@ -66,8 +77,11 @@ def test_outputs_and_ranks(calibrated):
     assert meta["replications"] == N_REP and meta["done"] == N_REP and len(meta["inputs"]["cepheids"]["sha256"]) == 64
 
 
-def test_resume_runs_nothing_again(calibrated, capsys):
+def test_resume_runs_nothing_again(calibrated, tmp_path, capsys):
+    import shutil
+
     run, out, _ = calibrated
+    out = shutil.copytree(out, tmp_path / "cal")  # the fixture's directory stays as it was for the other tests
     before = (out / "ranks.ecsv").read_bytes()
     assert main(["calibrate", str(run), "--replications", str(N_REP), "--out", str(out), "--no-plots"]) == 0
     err = capsys.readouterr().err
@@ -92,6 +106,12 @@ def test_strict_marks_failed_gate_and_exits_3(calibrated, tmp_path, capsys):
     assert "1 replication failed the sampler diagnostics" in capsys.readouterr().err
     assert main(["calibrate", str(run), "--replications", str(N_REP), "--out", str(copy), "--no-plots",
                  "--strict"]) == 3
+    strict_run = tmp_path / "strict.toml"  # [sampler] strict = true: the same exit without the option, and the
+    strict_run.write_text(run.read_text().replace("[sampler]", "[sampler]\nstrict = true").replace(  # same records
+        '"cepheids.ecsv"', json.dumps(str(run.parent / "cepheids.ecsv"))).replace(
+        '"hosts.ecsv"', json.dumps(str(run.parent / "hosts.ecsv"))))
+    assert main(["calibrate", str(strict_run), "--replications", str(N_REP), "--out", str(copy), "--no-plots"]) == 3
+    assert f"{N_REP} already done, 0 to run" in capsys.readouterr().err
     ranks = Table.read(copy / "ranks.ecsv")
     failed = ranks[ranks["replication"] == 1]
     assert len(failed) and not np.any(failed["passed"]) and all("bulk ESS" in e for e in failed["error"])
@@ -179,3 +199,69 @@ def test_tables_flag_a_miscalibrated_posterior():
     assert abs(c68["narrow"]["empirical"] - 0.38) < 4 * c68["narrow"]["binomial_sd"]
     assert not c68["narrow"]["within_2sd"]
     assert abs(c68["good"]["z"]) < 4
+
+
+def test_report_of_a_calibration_directory(calibrated, tmp_path):
+    """`ladder report` on a calibration directory: the coverage table (the numbers of coverage.ecsv), the
+    uniformity p-values and the rank histograms, one self-contained file."""
+    import shutil
+
+    _, out, _ = calibrated
+    copy = tmp_path / "cal"
+    shutil.copytree(out, copy)
+    assert main(["report", str(copy)]) == 0
+    text = (copy / "report.html").read_text(encoding="utf-8")
+    assert "calibration report" in text and "<script" not in text and "data:image/png;base64," in text
+    cov = Table.read(copy / "coverage.ecsv")
+    for r in cov:
+        assert f"{r['empirical']:.3f} &plusmn; {r['binomial_sd']:.3f}" in text
+    assert f"{N_REP} of {N_REP} replications used" in text
+
+
+@pytest.mark.slow  # ~15 s each (a subprocess and its Dask cluster); the fit's own interrupt tests are in the default suite
+@pytest.mark.parametrize("sig, code", [(2, 130), (15, 143)], ids=["SIGINT", "SIGTERM"])
+def test_signal_mid_calibration_keeps_the_earlier_summary(calibrated, tmp_path, sig, code):
+    """A real `python -m ladder calibrate` process, signalled while its Dask worker runs new replications:
+    the summary files of the earlier calibration stay byte for byte, no partial summary is left, the finished
+    records are kept (rerunning resumes), and the exit code is the shell's 128 + signal."""
+    import shutil
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    run, out, _ = calibrated
+    copy = tmp_path / "cal"
+    shutil.copytree(out, copy)
+    summary = {n: (copy / n).read_bytes() for n in ("ranks.ecsv", "coverage.ecsv", "uniformity.ecsv",
+                                                     "calibration.json", "sbc.png")}
+    records = {p.name: p.read_bytes() for p in (copy / "replications").iterdir()}
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)  # the child starts with the default
+    try:
+        proc = subprocess.Popen([sys.executable, "-m", "ladder", "calibrate", str(run), "--replications", "40",
+                                 "--out", str(copy), "--workers", "1"], cwd=Path(__file__).resolve().parents[1],
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    try:
+        head = []
+        for line in proc.stderr:
+            head.append(line)
+            if "Dask cluster" in line:
+                break
+        assert any("Dask cluster" in ln for ln in head), "".join(head)
+        time.sleep(2.0)
+        assert proc.poll() is None, "the calibration ended before it could be interrupted"
+        proc.send_signal(sig)
+        _, rest = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    err = "".join(head) + rest
+    assert proc.returncode == code, err
+    assert "calibration interrupted" in err and "Traceback" not in err, err
+    assert {n: (copy / n).read_bytes() for n in summary} == summary
+    assert not [p for p in copy.iterdir() if p.name.startswith(".summary")]
+    assert all((copy / "replications" / n).read_bytes() == b for n, b in records.items())
+    assert not [p for p in (copy / "replications").iterdir() if p.name.endswith(".tmp")]

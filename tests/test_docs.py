@@ -1,8 +1,8 @@
 """The documentation runs: every ```python block of docs/*.md is executed (each file's blocks in order, in one
 namespace), and docs/cli.md is what the command line's parser generates (docs/make_cli_reference.py).
 
-The blocks run in a scratch directory that holds ``examples`` (a link to the repository's) and ``DIR`` (a
-link to the output directory the tutorial wrote), so the docs' relative paths work as they do from the
+The blocks run in a scratch directory that holds ``examples`` and ``docs`` (links to the repository's) and
+``DIR`` (a link to the output directory the tutorial wrote), so the docs' relative paths work as they do from the
 repository root. Data: the invented demo universe in examples/demo/ (a demo, not a reference).
 """
 
@@ -44,6 +44,7 @@ def run_blocks(path: Path, cwd: Path) -> dict:
 def scratch(tmp_path_factory):
     d = tmp_path_factory.mktemp("docs")
     (d / "examples").symlink_to(ROOT / "examples", target_is_directory=True)
+    (d / "docs").symlink_to(DOCS, target_is_directory=True)  # committed results the docs quote (docs/calibration/)
     return d
 
 

@@ -266,9 +266,8 @@ class _Pipe:
                 pass
 
 
-@pytest.fixture(scope="module")
-def browser_page(fit_dir):
-    """The report loaded in headless Chromium: (evaluate(js) -> value, events)."""
+def _open_in_chromium(html_path: Path):
+    """Load ``html_path`` in headless Chromium; yields (evaluate(js) -> value, events)."""
     exe = _chromium()
     if exe is None:
         pytest.skip("chromium not found on PATH (Debian package `chromium`; .ci/run installs it when it can)")
@@ -280,7 +279,7 @@ def browser_page(fit_dir):
             session = pipe.call("Target.attachToTarget", {"targetId": target, "flatten": True})["sessionId"]
             for domain in ("Page", "Runtime", "Log"):
                 pipe.call(f"{domain}.enable", session=session)
-            pipe.call("Page.navigate", {"url": (fit_dir / "report.html").resolve().as_uri()}, session=session)
+            pipe.call("Page.navigate", {"url": html_path.resolve().as_uri()}, session=session)
             pipe.wait_for("Page.loadEventFired", timeout=60)
             pipe.drain(1.0)  # late console messages, dialogs
 
@@ -295,12 +294,21 @@ def browser_page(fit_dir):
         shutil.rmtree(profile, ignore_errors=True)
 
 
+@pytest.fixture(scope="module")
+def browser_page(fit_dir):
+    """The report loaded in headless Chromium: (evaluate(js) -> value, events)."""
+    yield from _open_in_chromium(fit_dir / "report.html")
+
+
+def _console_errors(events) -> list:
+    return [e for e in events if (e.get("method") == "Runtime.consoleAPICalled" and e["params"]["type"] == "error")
+            or e.get("method") == "Runtime.exceptionThrown"
+            or (e.get("method") == "Log.entryAdded" and e["params"]["entry"]["level"] == "error")]
+
+
 def test_browser_shows_no_console_errors(browser_page):
     _, events = browser_page
-    errors = [e for e in events if (e.get("method") == "Runtime.consoleAPICalled" and e["params"]["type"] == "error")
-              or e.get("method") == "Runtime.exceptionThrown"
-              or (e.get("method") == "Log.entryAdded" and e["params"]["entry"]["level"] == "error")]
-    assert errors == []
+    assert _console_errors(events) == []
 
 
 def test_browser_decodes_every_image(browser_page, fit_dir):
@@ -331,3 +339,30 @@ def test_report_anchor_pull_is_computed_from_the_fit(fit_dir):
     row = re.search(re.escape(f"<td>{a['host']}</td>") + r'<td class="n">[^<]*</td><td class="n">[^<]*</td>'
                     r'<td class="n">([-+\d.]+)</td>', text)
     assert row and abs(float(row.group(1)) - z) <= REPORT_Z_ATOL
+
+
+def test_sweep_report_in_the_browser(tmp_path_factory, capsys):
+    """`ladder report` on a sweep directory (the session's tiny sweep, tests/sweep_fixtures.py, whose ``broken``
+    variant failed): its table and figure in one self-contained file, the failed variant marked, shown in Chromium
+    with no console error, every image decoded and no script."""
+    from sweep_fixtures import tiny_sweep
+
+    _, out, table, _, _ = tiny_sweep(str(tmp_path_factory.getbasetemp() / "tiny_sweep"))
+    assert main(["report", str(out)]) == 0
+    path = out / "report.html"
+    text = path.read_text(encoding="utf-8")
+    bad = sum(1 for r in table if r["status"] != "done" or not r["passed"])  # broken, and any failed gate
+    assert bad >= 1 and "sweep report" in text and f"{bad} of {len(table)} variants failed" in text
+    assert "<script" not in text
+    for name in table["variant"]:
+        assert f">{name}<" in text
+    page = _open_in_chromium(path)
+    evaluate, events = next(page)
+    try:
+        assert _console_errors(events) == []
+        images = evaluate("Array.from(document.images).map(i => [i.complete, i.naturalWidth])")
+        assert len(images) == 1 and images[0][0] and images[0][1] > 0
+        assert evaluate("document.scripts.length") == 0
+        assert "simulated crash in the sampler" in evaluate("document.body.innerText")
+    finally:
+        page.close()

@@ -232,6 +232,11 @@ def test_strict_sweep_exits_3_after_the_table(sweep, monkeypatch, tmp_path, caps
     err = capsys.readouterr().err
     assert "broken" in err and "--strict makes this exit 3" in err
     assert main(["sweep", str(run), "--out", str(tmp_path / "o"), "--strict"]) == 3
+    strict_run = tmp_path / "strict.toml"  # [sampler] strict = true: the same exit without the option
+    strict_run.write_text(run.read_text().replace("[sampler]", "[sampler]\nstrict = true").replace(
+        '"cepheids.ecsv"', json.dumps(str(run.parent / "cepheids.ecsv"))).replace(
+        '"hosts.ecsv"', json.dumps(str(run.parent / "hosts.ecsv"))))
+    assert main(["sweep", str(strict_run), "--out", str(tmp_path / "o")]) == 3
     gate = table.copy()
     gate["status"][list(gate["variant"]).index("broken")] = "done"
     gate["passed"][list(gate["variant"]).index("long_periods")] = False

@@ -118,9 +118,20 @@ LOO_VS_ARVIZ_RTOL = 1e-9  # delta elpd and its se vs arviz.compare on the same p
 PSIS_VS_REFIT_SHIFT_ATOL = 0.45  # baseline sds; MC error of a 2x200-draw mean ~ sd/sqrt(ESS ~ 100) = 0.1 sd for the refit and more for importance weights (k <= 0.7): difference se ~ 0.15, 3 sigma
 PREDICTIVE_FLAG_P = 0.01  # a predictive p-value below 1% flags a galaxy (common practice for posterior predictive checks)
 PREDICTIVE_PASS_P = 0.005  # 200 replicates resolve p to 0.005; posterior predictive p-values of a correct model concentrate near 0.5 (they use the data twice), so none of 12 falls below 0.005 by chance for a correct model
+# --- covariance tables (tests/test_covariance.py) ---
+COV_CONDITIONAL_RTOL = 1e-8  # A^-1 b with whitened dense rows and a joint solve vs numpy inverses of the dense C; condition ~1e6, rounding only
+COV_MARGINAL_ATOL = 1e-7  # log p(y|phi) ~ -1e3, whitened blocks vs scipy's dense multivariate normal: rounding ~1e-10 relative
+COV_DIAGONAL_RTOL = 1e-10  # a diagonal table through the dense path vs the same variances on the independent path; rounding only
+COV_GLS_MEAN_IN_SD = 0.1  # 6000 exact draws: MC error of a mean is sd/77 = 0.013 sd; 0.1 sd is ~7.7 standard errors
+COV_GLS_SD_RTOL = 0.06  # 6000 exact draws: relative MC error of an sd is 1/sqrt(2 x 6000) = 0.9%; 0.06 is ~6.5 standard errors
 
 # --- calibration by simulation (tests/test_calibrate.py) ---
 CALIBRATION_SIM_KS_P = 1e-3  # KS p-value floor for standardised residuals of a simulated catalogue at its truth; false alarm 1e-3 per check
+
+# --- recovery over seeds (tests/helpers.py::assert_recovers) ---
+HOSTS_CHI2_P = 2e-3  # joint chi-square of the true moduli under the posterior covariance: two-sided false alarm 2e-3 per fit
+ENSEMBLE_MEAN_PULL_Z = 3.5  # mean pull over K seeds within 3.5 / sqrt(K) of 0 (its standard error if calibrated); false alarm ~5e-4 per parameter
+ENSEMBLE_CHI2_P = 2e-3  # sum of squared pulls over K seeds ~ chi-square(K): two-sided false alarm 2e-3 per parameter
 
 # --- one-sided blend component and per-band terms (tests/test_outliers.py, tests/test_bands.py) ---
 BLEND_VS_SCIPY_RTOL = 1e-9  # same closed form as scipy.stats.exponnorm (erfc vs log_ndtr); rounding only, where the density is not tiny

@@ -1,0 +1,115 @@
+"""Bad covariance tables -> one clear message (file, column or key, data rows), exit 2, nothing written.
+
+The same fixture and checks as tests/test_bad_input.py (real OGLE-IV Cepheids in both Magellanic Clouds as
+anchors, Soszynski et al. 2015, AcA 65, 297; three invented Hubble-flow supernovae of our own scenario), with a
+covariance table ([data] supernova_covariance or anchor_covariance) added and broken one way at a time.
+"""
+
+from __future__ import annotations
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.table import Column, Table
+
+from ladder.cli import EXIT_OK
+from test_bad_input import (Case, Run, _assert_one_clear_error, _both, _doc, _parallax_group, _run_cli, _sn_table,
+                            _snapshot)
+
+
+def _cov_table(kind, rows, unit="mag2", name=None):
+    """Add a covariance table (kind "sn" or "anchor") with ``rows`` (a, b, cov) to the run."""
+    a, b = ("sn_a", "sn_b") if kind == "sn" else ("host_a", "host_b")
+    key = "supernova_covariance" if kind == "sn" else "anchor_covariance"
+
+    def f(r: Run):
+        t = Table([Column([x[0] for x in rows], name=a, dtype=str), Column([x[1] for x in rows], name=b, dtype=str),
+                   Column([x[2] for x in rows], name="cov", unit=unit if r.fmt == "ecsv" else None)])
+        if name is not None:
+            t.rename_column("cov", name)
+        r.dir.mkdir(parents=True, exist_ok=True)
+        fmt = {"ecsv": "ascii.ecsv", "csv": "ascii.csv"}[r.fmt]
+        t.write(r.dir / f"{key}.{r.fmt}", format=fmt, overwrite=True)
+        r.doc["data"][key] = f"{key}.{r.fmt}"
+    return f
+
+
+SN_OK = [("flow-sn1", "flow-sn1", 0.0004), ("flow-sn1", "flow-sn2", 0.0002), ("flow-sn3", "flow-sn2", 0.0001)]
+ANCHOR_OK = [("LMC", "LMC", 0.0001), ("LMC", "SMC", 0.0004), ("SMC", "SMC", 0.0001)]
+SNC, ANC = "supernova_covariance.{fmt}", "anchor_covariance.{fmt}"
+RUN = "run.toml"
+
+CASES = [
+    Case("sn-cov-unknown-name", _both(_sn_table(), _cov_table("sn", SN_OK + [("flow-sn1", "flow-sn9", 0.0001)])),
+         SNC, "sn_b", rows=(4,), also=("'flow-sn9'", "not in the supernovae table")),
+    Case("sn-cov-duplicate-pair", _both(_sn_table(), _cov_table("sn", SN_OK + [("flow-sn2", "flow-sn1", 0.0001)])),
+         SNC, "sn_b", rows=(4,), also=("twice", "data row 2")),
+    Case("sn-cov-not-positive-definite",
+         _both(_sn_table(), _cov_table("sn", [("flow-sn1", "flow-sn2", 0.01), ("flow-sn3", "flow-sn3", 0.0)])),
+         SNC, "cov", rows=(1,), also=("not positive definite", "flow-sn1", "flow-sn2")),
+    Case("sn-cov-negative-variance", _both(_sn_table(), _cov_table("sn", [("flow-sn3", "flow-sn3", -0.01)])),
+         SNC, "cov", rows=(1,), also=("not positive definite", "flow-sn3")),
+    Case("sn-cov-unit-not-mag2", _both(_sn_table(), _cov_table("sn", SN_OK, unit="mag")), SNC, "cov",
+         also=("mag2",), formats=("ecsv",)),
+    Case("sn-cov-unit-unknown", _both(_sn_table(), _cov_table("sn", SN_OK, unit="furlong2")), SNC, "cov",
+         also=("not a recognised unit",), formats=("ecsv",)),
+    Case("sn-cov-missing-column", _both(_sn_table(), _cov_table("sn", SN_OK, name="covariance")), SNC, "cov",
+         also=("required column",)),
+    Case("sn-cov-without-supernovae", _cov_table("sn", SN_OK), RUN, "data.supernova_covariance",
+         also=("supernovae table",)),
+    Case("sn-cov-file-missing", _both(_sn_table(), _doc("data.supernova_covariance", "nosuch.ecsv")), RUN,
+         "data.supernova_covariance", also=("not found",)),
+    Case("anchor-cov-unknown-galaxy", _cov_table("anchor", ANCHOR_OK + [("LMC", "Hollowmere", 0.0001)]), ANC,
+         "host_b", rows=(4,), also=("'Hollowmere'", "not in the hosts table")),
+    Case("anchor-cov-not-an-anchor", _both(_parallax_group, _cov_table("anchor", ANCHOR_OK + [
+         ("Nearfold", "Nearfold", 0.0001)])), ANC, "host_a", rows=(4,), also=("not an anchor",)),
+    Case("anchor-cov-correlation-above-one", _cov_table("anchor", [("LMC", "SMC", 0.01)]), ANC, "cov", rows=(1,),
+         also=("not positive definite", "LMC", "SMC")),
+    Case("anchor-cov-duplicate-diagonal", _cov_table("anchor", ANCHOR_OK + [("SMC", "SMC", 0.0002)]), ANC, "host_b",
+         rows=(4,), also=("twice", "data row 3")),
+]
+
+
+def _expand(cases):
+    for c in cases:
+        for fmt in c.formats:
+            for cmd in c.commands:
+                yield pytest.param(c, fmt, cmd, id=f"{c.id}-{fmt}-{cmd}")
+
+
+@pytest.mark.parametrize(("case", "fmt", "command"), list(_expand(CASES)))
+def test_bad_covariance_gives_one_clear_error(case, fmt, command, tmp_path, capsys):
+    run = Run(tmp_path / "run", fmt=fmt)
+    case.mutate(run)
+    run.write()
+    out_dir = tmp_path / "out"
+    before = _snapshot(tmp_path)
+    argv = [command, run.dir / case.run_name] + (["--out", out_dir] if command == "fit" else [])
+    code, out, err = _run_cli(argv, capsys)
+    _assert_one_clear_error(code, out, err, case, fmt)
+    assert not out_dir.exists()
+    assert _snapshot(tmp_path) == before
+
+
+@pytest.mark.parametrize("fmt", ["ecsv", "csv"])
+def test_good_covariance_tables_load(fmt, tmp_path, capsys):
+    """ECSV with mag2 or mmag2 (converted by astropy), or CSV without units (taken as mag^2): the anchor table
+    passes `ladder check`; the supernova table (the fixture's supernovae are Hubble-flow only, so no fit) loads."""
+    import ladder
+    from ladder.catalog import load_catalogues
+
+    run = Run(tmp_path / "run", fmt=fmt)
+    _both(_sn_table(), _cov_table("sn", SN_OK), _cov_table("anchor", ANCHOR_OK,
+                                                          unit="mmag2" if fmt == "ecsv" else "mag2"))(run)
+    sn_file = run.doc["data"].pop("supernovae")
+    sn_cov_file = run.doc["data"].pop("supernova_covariance")
+    run.write()
+    code, out, err = _run_cli(["check", run.path], capsys)
+    assert code == EXIT_OK, err
+    scale = u.Unit("mmag2").to(u.mag**2) if fmt == "ecsv" else 1.0  # astropy's own conversion (the reference)
+    data = ladder.load_data(ladder.load_run(run.path))
+    np.testing.assert_allclose(data.anchor_cov, np.array([[1, 4], [4, 1]]) * 1e-4 * scale, rtol=1e-12)
+    data = load_catalogues(run.dir / f"cepheids.{fmt}", run.dir / f"hosts.{fmt}", run.dir / sn_file,
+                           supernova_covariance=run.dir / sn_cov_file)
+    sn = data.supernovae.cov
+    assert sn[0, 1] == sn[1, 0] == 0.0002 and sn[1, 2] == sn[2, 1] == 0.0001 and sn[0, 0] == 0.0004
