@@ -208,8 +208,13 @@ def simulate_like(data, model, truth: dict, seed: int):
         if np.asarray(arrays.sn_cov).size:  # [data] supernova_covariance, over the supernovae fitted
             cov = cov + np.asarray(arrays.sn_cov, float)
         m = np.array(sne.mag, float, copy=True)
-        # lin.sn_y is the magnitude minus its fixed part (the kinematic modulus at H0 = 1, fixed parameters)
-        m[keep] = (sne.mag[keep] - np.asarray(lin.sn_y)) + loc + _correlated_normal(rng, cov)
+        # the rows' data are the magnitude minus its fixed part (the kinematic modulus at H0 = 1 and the truth's
+        # q0, j0 when they have a prior; fixed parameters): ladder.structure.sn_rows_y
+        from .model import cosmo_from_params
+        from .structure import sn_rows_y
+
+        sn_y = np.asarray(sn_rows_y(parts.structure, lin, cosmo_from_params(parts, params)))
+        m[keep] = (sne.mag[keep] - sn_y) + loc + _correlated_normal(rng, cov)
         changes["supernovae"] = replace(sne, mag=m)
     return replace(data, **changes)
 

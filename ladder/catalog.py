@@ -66,6 +66,7 @@ class LadderData:
     host_bias_err: np.ndarray | None = None
     supernovae: object | None = None  # ladder.supernovae.SupernovaData
     anchor_cov: np.ndarray | None = None  # (n_hosts, n_hosts), mag^2: [data] anchor_covariance (0 off the anchors)
+    oh_err: np.ndarray | None = None  # (n_stars,), dex: 1-sigma error of oh (0 where empty); None: no column
 
     @property
     def n_hosts(self) -> int:
@@ -447,6 +448,18 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
                              rows=lonely)
     star_oh = _numbers(t, "oh", file, "dex", allow_missing=True) if "oh" in t.colnames else np.full(len(t), np.nan)
     oh = np.where(np.isfinite(star_oh), star_oh, host_oh[star_host])
+    oh_err = None
+    if "oh_err" in t.colnames:  # the 1-sigma error of each star's oh (its own or its host's); empty: 0
+        oh_err = _numbers(t, "oh_err", file, "dex", allow_missing=True)
+        bad = np.flatnonzero(oh_err < 0)
+        if bad.size:
+            raise InputError("must be >= 0 (a 1-sigma error in dex; leave empty for none)", file=file, key="oh_err",
+                             rows=bad)
+        lonely = np.flatnonzero((oh_err > 0) & ~np.isfinite(oh))
+        if lonely.size:
+            raise InputError("an O/H error without an oh of the star or its host", file=file, key="oh_err",
+                             rows=lonely)
+        oh_err = np.where(np.isfinite(oh_err), oh_err, 0.0)
     in_group = np.asarray(roles, dtype=object)[star_host] == "parallax"
     groups = [h for h, r in zip(hnames, roles) if r == "parallax"]
     parallax, parallax_err = _parallaxes(t, file, in_group, groups)
@@ -455,6 +468,8 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
     for j, b in enumerate(bands):
         findings += plausibility.magnitude_errors(err[:, j], f"mag_{b}_err")
     findings += plausibility.metallicities(star_oh)
+    if oh_err is not None:
+        findings += plausibility.metallicity_errors(oh_err)
     findings += plausibility.parallaxes(parallax, in_group)
     given = {col: _numbers(t, col, file, "mas", allow_missing=True) if col in t.colnames else np.full(len(t), np.nan)
              for col in ("parallax", "parallax_err")}
@@ -494,5 +509,5 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
         star_names=tuple(stars), star_host=star_host, log_period=np.log10(period), bands=tuple(bands),
         mag=mag, mag_err=err, oh=oh, files=files,
         star_rows=np.arange(len(t)), parallax=parallax, parallax_err=parallax_err, host_bias=bias,
-        host_bias_err=bias_err, supernovae=sne, anchor_cov=anchor_cov,
+        host_bias_err=bias_err, supernovae=sne, anchor_cov=anchor_cov, oh_err=oh_err,
     )

@@ -182,6 +182,18 @@ class SupernovaSettings:
     #   Lambda-CDM with the same q0, j0 (measured 5.1e-5 at z = 0.15 in tests/test_cosmography.py).
     z_min: float = 0.025
     z_max: float = 0.15
+    # q0 and j0 free (hyperparameters) with these priors; None: fixed at q0, j0 above (q0, j0 are then the priors'
+    # centres, the point about which the model expands)
+    q0_prior: PriorSpec | None = None
+    j0_prior: PriorSpec | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        d = {k: v for k, v in dataclasses.asdict(self).items() if not k.endswith("_prior")}
+        for k in ("q0", "j0"):
+            spec = getattr(self, f"{k}_prior")
+            if spec is not None:
+                d[k] = spec.to_dict()
+        return d
 
 
 EXTINCTION_MODES = ("none", "multiband")
@@ -212,6 +224,7 @@ class ModelSettings:
     metallicity_per_band: bool = False  # [model] metallicity = "per_band" (multiband: one gamma per band)
     scatter_bands: bool = False  # multiband: an independent per-band intrinsic scatter besides the common offset
     offset_amplitudes: bool = False  # multiband: the common offset enters band B as alpha_B s (instability strip)
+    metallicity_errors: bool = True  # [model] metallicity_errors: use the cepheids' oh_err column when it is there
     clip_sigma: float = 3.0
     photometric_bias: bool = False
     pl_break: bool = False
@@ -268,6 +281,8 @@ class ModelSettings:
             d["scatter_bands"] = True
         if self.offset_amplitudes:
             d["offset_amplitudes"] = True
+        if not self.metallicity_errors:
+            d["metallicity_errors"] = False
         if self.multiband:
             d["bands"] = list(self.bands)
         if self.wesenheit:
@@ -276,7 +291,7 @@ class ModelSettings:
                 {"bands": list(w.bands), "r": w.r, "r_err": w.r_err}
         d["reddening"] = dataclasses.asdict(self.reddening)
         d["parallax"] = dataclasses.asdict(self.parallax)
-        d["supernovae"] = dataclasses.asdict(self.supernovae)
+        d["supernovae"] = self.supernovae.to_dict()
         d["priors"] = {k: v.to_dict() for k, v in self.priors}
         return {"model": d, "bands": {b: {"wavelength_um": w} for b, w in self.wavelengths}}
 
@@ -606,8 +621,20 @@ def _parse_supernovae(sec: _Section | None) -> SupernovaSettings:
     d = SupernovaSettings()
     if sec is None:
         return d
-    sec.check_keys({f.name for f in dataclasses.fields(SupernovaSettings)})
-    out = SupernovaSettings(q0=sec.float_("q0", d.q0), j0=sec.float_("j0", d.j0),
+    sec.check_keys({"q0", "j0", "sigma_v", "z_min", "z_max"})
+    free = {}
+    for k in ("q0", "j0"):  # a number (fixed, as before) or a prior as in [model.priors]
+        if isinstance(sec.raw.get(k), dict):
+            spec = PriorSpec.parse(sec.raw[k], file=sec.file, key=sec._key(k))
+            if spec.dist not in ("normal", "uniform", "fixed"):
+                raise InputError(f"a {spec.dist} prior on {k}: use normal, uniform or fixed", file=sec.file,
+                                 key=sec._key(k))
+            centre = {"normal": lambda: spec.get("loc"), "fixed": lambda: spec.get("value"),
+                      "uniform": lambda: 0.5 * (spec.get("low") + spec.get("high"))}[spec.dist]()
+            free[k] = (centre, None if spec.dist == "fixed" else spec)
+    out = SupernovaSettings(q0=free["q0"][0] if "q0" in free else sec.float_("q0", d.q0),
+                            j0=free["j0"][0] if "j0" in free else sec.float_("j0", d.j0),
+                            q0_prior=free.get("q0", (0, None))[1], j0_prior=free.get("j0", (0, None))[1],
                             sigma_v=sec.float_("sigma_v", d.sigma_v, lo=0.0),
                             z_min=sec.float_("z_min", d.z_min, lo=0.0),
                             z_max=sec.float_("z_max", d.z_max, lo=0.0, open_lo=True))
@@ -632,7 +659,7 @@ def _parse_bands(sec: _Section | None) -> tuple[tuple[str, float], ...]:
 _MODEL_KEYS = {"band", "bands", "metallicity", "solar_oh", "wesenheit", "priors", "extinction", "scatter", "outliers",
                "outlier_width", "clip_sigma", "photometric_bias", "pl_break", "pl_break_period", "reddening",
                "parallax", "supernovae", "outlier_fraction", "outlier_component", "scatter_bands",
-               "offset_amplitudes"}
+               "offset_amplitudes", "metallicity_errors"}
 
 
 def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
@@ -710,6 +737,7 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
         metallicity_per_band=metallicity == "per_band",
         scatter_bands=scatter_bands,
         offset_amplitudes=offset_amplitudes,
+        metallicity_errors=sec.get("metallicity_errors", bool, True),
         outlier_fraction_model=fraction_model,
         outlier_component=component,
         solar_oh=sec.float_("solar_oh", SOLAR_OH_ASPLUND09, lo=5.0, hi=11.0),

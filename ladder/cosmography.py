@@ -17,7 +17,8 @@ jax.config.update("jax_enable_x64", True)
 
 import jax.numpy as jnp  # noqa: E402
 
-__all__ = ["SPEED_OF_LIGHT_KMS", "luminosity_distance_mpc", "distance_modulus", "peculiar_velocity_mag"]
+__all__ = ["SPEED_OF_LIGHT_KMS", "luminosity_distance_mpc", "distance_modulus", "peculiar_velocity_mag",
+           "heliocentric_correction_mag"]
 
 SPEED_OF_LIGHT_KMS = 299792.458  # exact, SI definition of the metre
 _FIVE_OVER_LN10 = 5.0 / math.log(10.0)
@@ -78,6 +79,33 @@ def distance_modulus(z, h0, q0=-0.55, j0=1.0):
         Distance modulus in mag.
     """
     return 5.0 * jnp.log10(luminosity_distance_mpc(z, h0, q0, j0)) + 25.0
+
+
+@jax.jit
+def heliocentric_correction_mag(z_hel, z_cmb):
+    r"""Magnitude correction of the luminosity distance for the heliocentric redshift.
+
+    The luminosity distance of a source at CMB-frame redshift :math:`z_\mathrm{cmb}` observed from the Sun is
+    :math:`d_L = (1 + z_\mathrm{hel})\, d_C(z_\mathrm{cmb})` (Davis, T. M., et al. 2011, ApJ 741, 67, eq. 15;
+    Calcino, J. & Davis, T. 2017, JCAP 01, 038): one factor of (1 + z) is the redshift the photons show the
+    observer. The kinematic :func:`luminosity_distance_mpc` is :math:`(1 + z_\mathrm{cmb})\,d_C(z_\mathrm{cmb})`,
+    so
+
+    .. math:: \Delta\mu = 5\log_{10}rac{1 + z_\mathrm{hel}}{1 + z_\mathrm{cmb}}
+
+    is added to its distance modulus (0 when :math:`z_\mathrm{hel} = z_\mathrm{cmb}`).
+
+    Parameters
+    ----------
+    z_hel, z_cmb : array_like, shape (...)
+        Heliocentric and CMB-frame redshifts.
+
+    Returns
+    -------
+    jax.Array, broadcast shape of the inputs
+        :math:`\Delta\mu` in mag.
+    """
+    return 5.0 * jnp.log10((1.0 + jnp.asarray(z_hel, dtype=float)) / (1.0 + jnp.asarray(z_cmb, dtype=float)))
 
 
 @jax.jit

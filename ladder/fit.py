@@ -71,7 +71,7 @@ def _clip(arrays, layout, model):
     from .errors import InputError
     from .model import model_parts
     from .sampling import _scatter_guess
-    from .structure import jit, with_mask
+    from .structure import jit, star_offset_var, with_mask
 
     parts = model_parts(arrays, layout, model)
     st, lin = parts.structure, parts.lin
@@ -80,7 +80,7 @@ def _clip(arrays, layout, model):
     ov = jnp.full(n, s**2)
     mu0 = jnp.asarray(parts.par_base) if parts.parallax.shape[0] else None
     seen = np.asarray(lin.seen)
-    sd = np.sqrt(np.asarray(lin.var)[:, 0] + s**2)
+    sd = np.sqrt(np.asarray(lin.var)[:, 0] + np.asarray(star_offset_var(st, lin, jnp.full(n, s**2), parts.gamma0)))
     galaxies = np.asarray(parts.star_galaxy)
 
     def refit(keep):
@@ -90,8 +90,9 @@ def _clip(arrays, layout, model):
             raise InputError(f"clipping at clip_sigma = {model.clip_sigma:g} would reject every Cepheid of "
                              f"{', '.join(empty)} (raise [model] clip_sigma)", key="model.clip_sigma")
         kept = with_mask(lin, seen & keep[:, None])
-        loc, glob = jit("conditional_mean")(st, kept, ov, mu0)  # the priors keep degenerate columns determined
-        return np.asarray(jit("residuals")(st, kept, loc, glob, mu0))[:, 0] / sd
+        g0 = parts.gamma0 if st.gamma_sampled else None  # O/H errors: the metallicity term at its starting value
+        loc, glob = jit("conditional_mean")(st, kept, ov, mu0, gamma=g0)  # the priors keep degenerate columns determined
+        return np.asarray(jit("residuals")(st, kept, loc, glob, mu0, g0))[:, 0] / sd
 
     keep, _ = iterative_clip(refit, n, n_sigma=model.clip_sigma)
     return arrays._replace(star_weight=keep.astype(float))

@@ -50,8 +50,9 @@ __all__ = ["ModelArrays", "Layout", "model_arrays", "ModelParts", "model_parts",
 
 #: Global parameters in output order (vector-valued ones get one row per band).
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
-                     "band_scatter", "offset_amplitude", "wesenheit_r", "r_v", "outlier_fraction", "outlier_fraction_spread",
-                     "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag", "sn_scatter")
+                     "band_scatter", "offset_amplitude", "wesenheit_r", "r_v", "outlier_fraction",
+                     "outlier_fraction_spread", "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag",
+                     "sn_scatter", "q0", "j0")
 #: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
 DERIVED_PER_STAR = ("outlier_prob", "ebv")
 
@@ -81,7 +82,9 @@ class ModelArrays(NamedTuple):
     sn_mag: np.ndarray
     sn_err: np.ndarray
     sn_z: np.ndarray  # 1 for calibrators (unused)
+    sn_z_hel: np.ndarray = np.zeros(0)  # heliocentric redshift (= sn_z where not given; 1 for calibrators)
     anchor_cov: np.ndarray = np.zeros((0, 0))  # (n_anchors, n_anchors) covariance table, mag^2; (0, 0): none
+    oh_var: np.ndarray = np.zeros(0)  # (n_stars,) oh_err^2, dex^2, when the metallicity term uses it; (0,): none
     sn_cov: np.ndarray = np.zeros((0, 0))  # (n_sn, n_sn) covariance table, mag^2; (0, 0): none
 
 
@@ -112,6 +115,7 @@ class Layout:
         return self.n_flow > 0
 
     n_flow: int = 0
+    oh_errors: bool = False  # O/H errors (oh_err) are propagated (ModelArrays.oh_var)
 
 
 def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays, Layout]:
@@ -142,12 +146,23 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
             if miss.size:
                 raise InputError(f"the model fits band {b}; these stars have no value", file=file, key=f"mag_{b}",
                                  rows=rows[miss])
+    oh_var = np.zeros(0)
     if settings.metallicity:
         miss = np.flatnonzero(~np.isfinite(data.oh))
         if miss.size:
             raise InputError("metallicity = true but these stars have no oh of their own or of their host "
                              "(give oh, or set [model] metallicity = false)", file=file, key="oh", rows=rows[miss])
         oh = data.oh
+        if settings.metallicity_errors and data.oh_err is not None and np.any(data.oh_err > 0):
+            if settings.metallicity_per_band:
+                raise InputError("O/H errors (oh_err) are propagated through one metallicity coefficient; with "
+                                 "metallicity = \"per_band\" they are not supported (set [model] metallicity_errors "
+                                 "= false, or metallicity = true)", file=file, key="oh_err")
+            if settings.offset_amplitudes:  # the O/H variance is shared equally by the bands, not by amplitudes
+                raise InputError("O/H errors (oh_err) add a variance every band shares equally; with "
+                                 "offset_amplitudes = true they are not supported (set [model] metallicity_errors "
+                                 "= false, or offset_amplitudes = false)", file=file, key="oh_err")
+            oh_var = np.asarray(data.oh_err, float) ** 2
     else:
         oh = np.zeros(data.n_stars)
 
@@ -229,6 +244,9 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         else np.zeros((0, 0)),
         sn_cov=np.asarray(sne.cov[np.ix_(sn_keep, sn_keep)], float) if sne is not None and sne.cov is not None
         else np.zeros((0, 0)),
+        oh_var=oh_var,
+        sn_z_hel=(np.where(sn_slot < 0, sne.z_hel[sn_keep] if sne.z_hel is not None else sne.z[sn_keep], 1.0)
+                  if sne is not None else np.zeros(0)),
     )
     layout = Layout(
         galaxies=tuple(data.host_names),
@@ -241,6 +259,7 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         bands=settings.fitted_bands if settings.multiband else (settings.band,),
         input_bands=settings.fitted_bands,
         n_flow=n_flow,
+        oh_errors=bool(oh_var.size and np.any(oh_var > 0)),
     )
     return arrays, layout
 
@@ -262,12 +281,14 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
         "outlier_fraction_spread": settings.outliers == "mixture" and settings.outlier_fraction_model == "per_galaxy",
         "parallax_offset": par, "parallax_length_scale": par and settings.parallax.length_scale_pc is None,
         "h0": flow, "sn_abs_mag": sn, "sn_scatter": sn,
+        "q0": flow and settings.supernovae.q0_prior is not None,  # [model.supernovae] q0 = { dist = ... }
+        "j0": flow and settings.supernovae.j0_prior is not None,
     }
     names = []
     for name in GLOBAL_PARAMETERS:
         if not wanted[name]:
             continue
-        if name in ("wesenheit_r", "r_v", "parallax_length_scale", "offset_amplitude") or \
+        if name in ("wesenheit_r", "r_v", "parallax_length_scale", "offset_amplitude", "q0", "j0") or \
                 settings.prior(name).dist != "fixed":
             names.append(name)
     return names
@@ -329,6 +350,7 @@ class ModelParts(NamedTuple):
     observed: np.ndarray  # (N, k) the fitted magnitudes as observed (NaN-free; see lin.seen)
     log_period: np.ndarray  # (N,)
     oh: np.ndarray  # (N,) 12 + log(O/H) (0 where metallicity is off)
+    gamma0: object = 0.0  # with O/H errors: a starting metallicity coefficient (the fit without them)
 
 
 def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, init_scatter: float = 0.1):
@@ -342,6 +364,22 @@ def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, in
     obs, err, mask = fitted_data(arrays, settings)
     structure, lin = build_structure(arrays, layout, settings, obs, err, mask)
     jlin = type(lin)(*(jnp.asarray(a) for a in lin))
+    gamma0 = None
+    if structure.gamma_sampled:
+        # a start for the metallicity coefficient: the weighted least squares without the O/H errors
+        from .structure import unpack
+
+        st0, lin0 = build_structure(arrays._replace(oh_var=np.zeros(0)), layout, settings, obs, err, mask)
+        lin0 = type(lin0)(*(jnp.asarray(a) for a in lin0))
+        mu_start = None
+        if layout.parallax_stars:
+            from .terms.parallax import edsd_mode_pc
+
+            mu_start = jnp.asarray(5.0 * np.log10(edsd_mode_pc(
+                np.maximum(np.asarray(arrays.parallax), 1e-3), np.asarray(arrays.parallax_err),
+                settings.parallax.length_scale_pc or 1350.0)) - 5.0)
+        _, glob0 = jit("conditional_mean")(st0, lin0, jnp.full(obs.shape[0], init_scatter**2), mu_start)
+        gamma0 = float(unpack(st0, glob0)["metallicity_coef"])
     gal_slot = {g: i for i, g in enumerate(layout.distance_galaxies)}
     bias_slots = np.array([gal_slot[layout.galaxies[g]] for g in np.asarray(arrays.bias_host)], np.int64)
     n_par = len(layout.parallax_stars)
@@ -357,8 +395,8 @@ def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, in
         mu0 = 5.0 * np.log10(d) - 5.0
         n = obs.shape[0]
         ov = jnp.full(n, init_scatter**2)
-        loc, glob = jit("conditional_mean")(structure, jlin, ov, jnp.asarray(mu0))
-        r = np.asarray(jit("residuals")(structure, jlin, loc, glob, jnp.zeros(n_par)))[np.asarray(arrays.par_star)]
+        loc, glob = jit("conditional_mean")(structure, jlin, ov, jnp.asarray(mu0), gamma=gamma0)
+        r = np.asarray(jit("residuals")(structure, jlin, loc, glob, jnp.zeros(n_par), gamma0))[np.asarray(arrays.par_star)]
         m = np.asarray(lin.mask)[np.asarray(arrays.par_star)]
         v = np.asarray(lin.var)[np.asarray(arrays.par_star)]
         w = np.where(m, 1.0 / v, 0.0)
@@ -367,7 +405,7 @@ def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, in
     return ModelParts(structure, jlin, np.asarray(arrays.star_host, np.int64), np.asarray(arrays.wavelength),
                       np.asarray(arrays.parallax, float), np.asarray(arrays.parallax_err, float), base, phot_var,
                       bias_slots, np.where(mask, obs, 0.0), np.asarray(arrays.log_period, float),
-                      np.asarray(arrays.oh, float))
+                      np.asarray(arrays.oh, float), 0.0 if gamma0 is None else gamma0)
 
 
 # ----------------------------------------------------------------------------- shared pieces of both models
@@ -432,6 +470,44 @@ def mu_parallax(params: dict):
     return 5.0 * params["log_distance_pc"] / np.log(10.0) - 5.0
 
 
+def _metallicity_site(parts: ModelParts, settings: ModelSettings):
+    """The metallicity coefficient as a hyperparameter (with O/H errors; :func:`ladder.structure.star_offset_var`),
+    else None (it is a linear column of the structure, or fixed)."""
+    if not parts.structure.gamma_sampled:
+        return None
+    from .priors import sample_parameter
+
+    return sample_parameter("metallicity_coef", settings.prior("metallicity_coef"))
+
+
+def _cosmology_sites(parts: ModelParts, settings: ModelSettings):
+    """q0, j0 as hyperparameters when the run file gives them a prior ([model.supernovae] q0 = { dist = ... }):
+    ``(q0, j0)`` for :func:`ladder.structure.sn_rows_y`, else None."""
+    st = parts.structure
+    if not (st.q0_sampled or st.j0_sampled):
+        return None
+    from .priors import sample_parameter
+
+    s = settings.supernovae
+    q0 = sample_parameter("q0", s.q0_prior) if st.q0_sampled else s.q0
+    j0 = sample_parameter("j0", s.j0_prior) if st.j0_sampled else s.j0
+    return (q0, j0)
+
+
+def cosmo_from_params(parts: ModelParts, params: dict):
+    """``(q0, j0)`` for :func:`ladder.structure.sn_rows_y` from output-named ``params`` (None when both fixed)."""
+    st = parts.structure
+    if not (st.q0_sampled or st.j0_sampled):
+        return None
+    return (params["q0"] if st.q0_sampled else st.q0_ref, params["j0"] if st.j0_sampled else st.j0_ref)
+
+
+def gamma_from_params(parts: ModelParts, params: dict):
+    """The metallicity coefficient the structure's functions take as ``gamma`` (None unless it is sampled as a
+    hyperparameter)."""
+    return params["metallicity_coef"] if parts.structure.gamma_sampled else None
+
+
 # ----------------------------------------------------------------------------- the marginal model
 def marginal_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     r"""numpyro model of the hyperparameters with the linear block integrated out exactly
@@ -441,20 +517,24 @@ def marginal_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     import numpyro
 
     from .priors import sample_parameter
-    from .structure import log_marginal
+    from .structure import log_marginal, star_offset_var
 
     offset_var = _scatter_sites(parts, settings, len(layout.galaxies))
+    gamma = _metallicity_site(parts, settings)
     mu_par = None
     if parts.parallax.shape[0]:
         # width of each star's modulus given the scatter: photometric and intrinsic (the current s_j, so that
         # u_j stays of unit scale whatever the scatter: no funnel between the scatter and the stars)
-        scale = jnp.sqrt(jnp.asarray(parts.par_var) + offset_var[parts.lin.par_star])
+        total = star_offset_var(parts.structure, parts.lin, offset_var, gamma)
+        scale = jnp.sqrt(jnp.asarray(parts.par_var) + total[parts.lin.par_star])
         c = 1.0 / jnp.sqrt(jnp.asarray(parts.par_var) + 0.01)  # a common shift of every modulus, in u (fixed)
         mu_par = _parallax_sites(parts, settings, jnp.asarray(parts.par_base), scale, c / jnp.linalg.norm(c))
     sn_var = 0.0
     if layout.has_sn:
         sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
-    numpyro.factor("linear_marginal", log_marginal(parts.structure, parts.lin, offset_var, mu_par, sn_var))
+    cosmo = _cosmology_sites(parts, settings)
+    numpyro.factor("linear_marginal", log_marginal(parts.structure, parts.lin, offset_var, mu_par, sn_var, gamma,
+                                                   cosmo))
 
 
 # ----------------------------------------------------------------------------- the full model (NUTS)
@@ -591,12 +671,14 @@ def _rows_logpdf(y, loc, var, table, dense: bool):
     return norm.logpdf(z) - jnp.log(jnp.diagonal(chol))
 
 
-def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0):
+def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0, cosmo=None):
     """Pointwise log densities of the anchors' geometric moduli and of the supernovae at these parameters:
     ``(anchors (n_anchor,), supernovae (n_sn,))``; the rows of :mod:`ladder.structure`. With a covariance table
     (``[data] anchor_covariance`` / ``supernova_covariance``) each row's value is its density given the rows
     before it (:func:`_rows_logpdf`), so the sum is the multivariate normal density of the block."""
     import jax.numpy as jnp
+
+    from .structure import sn_rows_y
 
     st, lin, G = parts.structure, parts.lin, parts.structure.n_galaxies
     a = _rows_logpdf(lin.anchor_y, theta_local[lin.anchor_slot, 0], lin.anchor_var, lin.anchor_cov,
@@ -604,7 +686,7 @@ def other_logpdf(parts: ModelParts, theta_local, theta_global, sn_extra_var=0.0)
     if lin.sn_slot.shape[0]:
         mu = jnp.concatenate([theta_local[:, 0], jnp.zeros(1)])[lin.sn_slot]
         loc = jnp.where(lin.sn_slot < G, mu, 0.0) + lin.sn_design @ theta_global
-        sn = _rows_logpdf(lin.sn_y, loc, lin.sn_var + sn_extra_var, lin.sn_cov, st.sn_dense)
+        sn = _rows_logpdf(sn_rows_y(st, lin, cosmo), loc, lin.sn_var + sn_extra_var, lin.sn_cov, st.sn_dense)
     else:
         sn = jnp.zeros(0)
     return a, sn
@@ -667,7 +749,7 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     import numpyro.distributions as dist
 
     from .priors import sample_parameter
-    from .structure import pack, residuals
+    from .structure import pack, residuals, star_offset_var
 
     st, lin = parts.structure, parts.lin
     n_gal = len(layout.galaxies)
@@ -689,7 +771,8 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
             bias = bias.at[parts.bias_slots].set(b)
         local.append(bias)
     theta_local = jnp.stack(local, axis=1)
-    offset_var = _scatter_sites(parts, settings, n_gal)
+    gamma = _metallicity_site(parts, settings)
+    offset_var = star_offset_var(st, lin, _scatter_sites(parts, settings, n_gal), gamma)
     band_noise = _band_noise_sites(settings, band_shape)
 
     params = {}
@@ -708,17 +791,17 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
         # Each parallax star's modulus is set far better by its photometry than by its parallax, and that
         # width scales with the scatter: sample it relative to its photometric modulus at the current
         # parameters (a linear change of variables; see _parallax_sites).
-        r0 = residuals(st, lin, theta_local, theta_global, jnp.zeros(n_par))[lin.par_star]
+        r0 = residuals(st, lin, theta_local, theta_global, jnp.zeros(n_par), gamma)[lin.par_star]
         base, var_base = _photometric_modulus(r0, lin.var[lin.par_star], lin.mask[lin.par_star],
                                               None if extinction is None else extinction[0])
         mu_par = _parallax_sites(parts, settings, base, jnp.sqrt(var_base + offset_var[lin.par_star]))
-    resid = residuals(st, lin, theta_local, theta_global, mu_par)
+    resid = residuals(st, lin, theta_local, theta_global, mu_par, gamma)
     numpyro.factor("cepheids", jnp.sum(star_logpdf(parts, settings, resid, offset_var, extinction, fraction,
                                                    band_noise)))
     sn_var = 0.0
     if layout.has_sn:
         sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
-    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var)
+    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var, _cosmology_sites(parts, settings))
     numpyro.factor("anchors_and_supernovae", jnp.sum(a_ll) + jnp.sum(sn_ll))
 
 
@@ -788,19 +871,20 @@ def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
     outlier membership (N,), E(B-V) (N,), and the anchors' and supernovae's log densities."""
     import jax.numpy as jnp
 
-    from .structure import residuals
+    from .structure import residuals, star_offset_var
 
     theta_local, theta_global = theta_from_params(parts, params)
-    offset_var = offset_var_from_params(parts, settings, params)
+    gamma = gamma_from_params(parts, params)
+    offset_var = star_offset_var(parts.structure, parts.lin, offset_var_from_params(parts, settings, params), gamma)
     mu_par = mu_parallax(params) if parts.parallax.shape[0] else None
-    resid = residuals(parts.structure, parts.lin, theta_local, theta_global, mu_par)
+    resid = residuals(parts.structure, parts.lin, theta_local, theta_global, mu_par, gamma)
     extinction, fraction = nonlinear_inputs(parts, settings, params)
     band_noise = band_noise_from_params(parts, settings, params)
     logp = star_logpdf(parts, settings, resid, offset_var, extinction, fraction, band_noise)
     q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction, band_noise)
     sn_var = params["sn_scatter"] ** 2 if "sn_scatter" in params else \
         (jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2 if parts.lin.sn_slot.shape[0] else 0.0)
-    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var)
+    a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var, cosmo_from_params(parts, params))
     clean = resid if extinction is None else resid - ebv[:, None] * extinction[0][None, :]
     w = jnp.where(parts.lin.seen, 1.0 / star_variances(parts, band_noise[0]), 0.0)
     star_resid = jnp.sum(w * clean, axis=1) / jnp.sum(w, axis=1)

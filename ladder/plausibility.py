@@ -22,7 +22,7 @@ import numpy as np
 from .errors import PlausibilityWarning
 
 __all__ = ["LIMITS", "Limit", "Finding", "warn", "magnitude_errors", "periods", "geometric_moduli",
-           "metallicities", "parallaxes", "redshifts", "unused_for_role"]
+           "metallicities", "metallicity_errors", "parallaxes", "redshifts", "unused_for_role"]
 
 
 @dataclass(frozen=True)
@@ -60,6 +60,8 @@ LIMITS = {
                     "calibration (from memory)"),
     "oh_relative_max": Limit(1.0, "dex", "values between -3 and 1 are abundances relative to the Sun "
                              "([Fe/H] or [O/H]), not 12 + log10(O/H)"),
+    "oh_err_max": Limit(1.0, "dex", "an O/H error above 1 dex (a factor 10 in abundance) spans the whole range of "
+                        "star-forming galaxies (~7.0-9.5); errors of a few tens are percent"),
     "z_max": Limit(2.0, "", "supernova samples for the Hubble constant end near z ~ 0.15 and type Ia samples "
                    "for cosmology near z ~ 2 (common practice)"),
     "z_cz_min": Limit(300.0, "", "a 'redshift' of hundreds or more is cz in km/s (z = cz / 299792.458)"),
@@ -178,6 +180,19 @@ def metallicities(oh, key: str = "oh") -> list[Finding]:
             f"12 + log10(O/H) = {float(oh[other][0]):g} is outside the usual range {_lim('oh_min'):g} - "
             f"{_lim('oh_max'):g} dex (solar 8.69): another scale or unit?")))
     return out
+
+
+def metallicity_errors(oh_err, key: str = "oh_err") -> list[Finding]:
+    """O/H errors (dex) above ``oh_err_max``: percent (values of a few to tens) or another scale."""
+    e = np.asarray(oh_err, float)
+    big = np.isfinite(e) & (e > _lim("oh_err_max"))
+    if not big.any():
+        return []
+    percent = bool(np.all(e[big] >= 2.0))
+    return [Finding(key, _rows(big), (
+        f"an O/H error of {float(e[big][0]):g} dex is above {_lim('oh_err_max'):g} dex, more than the whole range of "
+        "galaxy abundances" + ("; given in percent? The column needs the 1-sigma error of 12 + log10(O/H) in dex"
+                               if percent else ": the column needs the 1-sigma error of 12 + log10(O/H) in dex")))]
 
 
 def parallaxes(parallax, used, key: str = "parallax") -> list[Finding]:

@@ -33,15 +33,16 @@ def replicate_stars(key, parts, settings, params: dict):
     import jax
     import jax.numpy as jnp
 
-    from .model import (band_noise_from_params, mu_parallax, nonlinear_inputs, offset_var_from_params,
-                        star_variances, theta_from_params)
-    from .structure import residuals
+    from .model import (band_noise_from_params, gamma_from_params, mu_parallax, nonlinear_inputs,
+                        offset_var_from_params, star_variances, theta_from_params)
+    from .structure import residuals, star_offset_var
 
     lin = parts.lin
     theta_local, theta_global = theta_from_params(parts, params)
     mu_par = mu_parallax(params) if parts.parallax.shape[0] else None
-    pred = jnp.asarray(parts.observed) - residuals(parts.structure, lin, theta_local, theta_global, mu_par)
-    offset_var = offset_var_from_params(parts, settings, params)
+    gamma = gamma_from_params(parts, params)
+    pred = jnp.asarray(parts.observed) - residuals(parts.structure, lin, theta_local, theta_global, mu_par, gamma)
+    offset_var = star_offset_var(parts.structure, lin, offset_var_from_params(parts, settings, params), gamma)
     extinction, fraction = nonlinear_inputs(parts, settings, params)
     n, k = pred.shape
     k1, k2, k3, k4 = jax.random.split(key, 4)

@@ -122,7 +122,19 @@ def _hyperparameters(settings: ModelSettings, layout: Layout) -> list[str]:
         sampled.append("parallax stars (their distances are nonlinear parameters)")
     if layout.has_sn and settings.prior("sn_scatter").dist != "fixed":
         sampled.append("[model.priors] sn_scatter (give { dist = \"fixed\", value = ... })")
+    if layout.has_flow and settings.supernovae.q0_prior is not None:
+        sampled.append("[model.supernovae] q0 (a prior makes it a hyperparameter)")
+    if layout.has_flow and settings.supernovae.j0_prior is not None:
+        sampled.append("[model.supernovae] j0 (a prior makes it a hyperparameter)")
+    if _gamma_sampled(settings, layout):
+        sampled.append("metallicity_coef (the O/H errors in oh_err make it a hyperparameter; give it a fixed prior, "
+                       "or [model] metallicity_errors = false)")
     return sampled
+
+
+def _gamma_sampled(settings: ModelSettings, layout: Layout) -> bool:
+    """The metallicity coefficient is a hyperparameter: O/H errors are propagated and it is not fixed."""
+    return layout.oh_errors and settings.prior("metallicity_coef").dist != "fixed"
 
 
 def _inside(spec, value):
@@ -145,8 +157,9 @@ def _scatter_guess(parts: ModelParts) -> float:
     st, lin = parts.structure, parts.lin
     n = lin.y0.shape[0]
     mu0 = jnp.asarray(parts.par_base) if parts.parallax.shape[0] else None
-    loc, glob = jit("conditional_mean")(st, lin, jnp.full(n, 0.01), mu0)
-    r = np.asarray(jit("residuals")(st, lin, loc, glob, mu0))
+    g0 = jnp.asarray(parts.gamma0) if st.gamma_sampled else None
+    loc, glob = jit("conditional_mean")(st, lin, jnp.full(n, 0.01), mu0, gamma=g0)
+    r = np.asarray(jit("residuals")(st, lin, loc, glob, mu0, g0))
     m = np.asarray(lin.mask)
     e = np.sqrt(np.asarray(lin.var))
     rr, ee = np.abs(r[m]), e[m]
@@ -178,10 +191,18 @@ def initial_values(parts: ModelParts, layout: Layout, settings: ModelSettings, m
             init["parallax_log_length_scale"] = float(np.clip(np.log(np.mean(d) / 3.0), np.log(150.0), np.log(9e4)))
     if layout.has_sn:
         init["sn_scatter"] = 0.1
+    if parts.structure.q0_sampled:  # q0, j0 with a prior: start at its centre
+        init["q0"] = settings.supernovae.q0
+    if parts.structure.j0_sampled:
+        init["j0"] = settings.supernovae.j0
+    g0 = None
+    if parts.structure.gamma_sampled:  # a hyperparameter with O/H errors: start at the fit without them
+        g0 = jnp.asarray(parts.gamma0)
+        init["metallicity_coef"] = float(parts.gamma0)
     if method == "nuts":
         n = parts.lin.y0.shape[0]
         mu0 = jnp.asarray(parts.par_base) if parts.parallax.shape[0] else None
-        loc, glob = jit("conditional_mean")(parts.structure, parts.lin, jnp.full(n, s0**2), mu0)
+        loc, glob = jit("conditional_mean")(parts.structure, parts.lin, jnp.full(n, s0**2), mu0, gamma=g0)
         init["mu"] = np.asarray(loc[:, 0])
         for k, v in unpack(parts.structure, glob).items():
             if k in dict(parts.structure.fixed):
@@ -353,7 +374,9 @@ _GRID_POINTS = {1: 1201, 2: 161}  # per axis, over +-8 posterior sd: steps of 0.
 
 def _grid_hyperparameters(settings: ModelSettings, layout: Layout) -> list[str] | None:
     """The sampled hyperparameters when they are only a global scatter (and the SN scatter), else None."""
-    if settings.scatter_model != "global" or layout.parallax_stars:
+    if settings.scatter_model != "global" or layout.parallax_stars or _gamma_sampled(settings, layout):
+        return None
+    if layout.has_flow and (settings.supernovae.q0_prior is not None or settings.supernovae.j0_prior is not None):
         return None
     names = [n for n in _GRID_SITES if (n != "sn_scatter" or layout.has_sn) and settings.prior(n).dist != "fixed"]
     return names or None
@@ -438,7 +461,7 @@ def _complete_draws(parts, settings, method, samples, chains, draws, key):
     import jax
     import jax.numpy as jnp
 
-    from .model import mu_parallax, offset_var_from_params, split_static, with_structure
+    from .model import cosmo_from_params, mu_parallax, offset_var_from_params, split_static, with_structure
     from .structure import conditional_draw, unpack
 
     S = chains * draws
@@ -457,7 +480,8 @@ def _complete_draws(parts, settings, method, samples, chains, draws, key):
         mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
         sn_var = (p["sn_scatter"] ** 2 if "sn_scatter" in p else
                   jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2) if parts.lin.sn_slot.shape[0] else 0.0
-        loc, glob = conditional_draw(k, st, parts.lin, ov, mu_par, sn_var)
+        gamma = p["metallicity_coef"] if st.gamma_sampled else None
+        loc, glob = conditional_draw(k, st, parts.lin, ov, mu_par, sn_var, gamma, cosmo_from_params(parts, p))
         out = {"mu": loc[:, 0], **{n: v for n, v in unpack(st, glob).items() if n not in fixed}}
         if st.n_local == 2 and parts.bias_slots.shape[0]:
             out["photometric_bias"] = loc[parts.bias_slots, 1]

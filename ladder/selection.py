@@ -32,7 +32,7 @@ __all__ = ["apply_selection", "selection_report"]
 #: LadderData fields with one entry per galaxy (everything else with one entry per star is per star).
 _HOST_FIELDS = ("host_names", "host_roles", "mu_geo", "mu_geo_err", "host_oh", "host_bias", "host_bias_err")
 _STAR_FIELDS = ("star_names", "star_host", "log_period", "mag", "mag_err", "oh", "star_rows", "parallax",
-                "parallax_err")
+                "parallax_err", "oh_err")
 
 
 def _check_names(names, data: LadderData, sel: DataSelection, key: str) -> None:
@@ -75,6 +75,8 @@ def _subset(data: LadderData, keep_hosts: np.ndarray, keep_stars: np.ndarray) ->
                       "z": sne.z[k], "host_index": np.where(flow[k], HUBBLE_FLOW, new_index[np.where(flow, 0, sne.host_index)][k])}
         if sne.host_names:
             sn_changes["host_names"] = changes["host_names"]
+        if sne.z_hel is not None:
+            sn_changes["z_hel"] = sne.z_hel[k]
         if sne.cov is not None:  # the marginal of a Gaussian over the kept rows: drop the others' rows and columns
             sn_changes["cov"] = sne.cov[np.ix_(k, k)]
         changes["supernovae"] = dataclasses.replace(sne, **sn_changes)

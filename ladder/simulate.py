@@ -75,6 +75,9 @@ With every switch on, star :math:`k` of galaxy :math:`g` has
   kinematic distance of :mod:`ladder.cosmography` (Visser 2004, CQG 21, 2603), and reported
   redshift :math:`z_\mathrm{obs} = z + v/c`, :math:`v \sim N(0, \sigma_v)` (peculiar velocity
   added to :math:`cz`, to first order).
+* **O/H errors** (``oh_err`` :math:`\sigma_{\mathrm{oh}}`): the magnitudes follow each star's true
+  :math:`\mathrm{oh}_k + N(0, \sigma_\mathrm{oh})`, the catalogue reports :math:`\mathrm{oh}_k` and
+  ``oh_err`` = :math:`\sigma_\mathrm{oh}` (the error of the catalogued value as an estimate of the star's).
 * **Shared systematics** (``anchor_systematic`` :math:`\sigma_a`, ``sn_systematic`` :math:`\sigma_s`): one
   offset :math:`\delta_a \sim N(0, \sigma_a)` added to every anchor's reported ``mu_geo`` (a zero-point error
   common to the geometric distances), and one :math:`\delta_s \sim N(0, \sigma_s)` added to every calibrator
@@ -118,7 +121,8 @@ WESENHEIT_BANDS = ("H", "V", "I")
 
 #: One child random stream per ingredient, in this order (append new ones at the end only).
 _STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise",
-            "parallax", "outliers", "host_scatter", "bias", "supernovae", "systematics", "bands")
+            "parallax", "outliers", "host_scatter", "bias", "supernovae", "systematics",
+            "oh_errors", "heliocentric", "bands")
 
 _SPEED_OF_LIGHT_KMS = 299792.458  # exact (SI); same value as ladder.cosmography, which imports JAX
 
@@ -249,6 +253,17 @@ class MockSettings:
         mu_geo, with ``anchor_covariance`` (every anchor pair: anchor_systematic^2). ``sn_systematic``
         (0.0 mag, needs supernovae): one offset added to every calibrator's magnitude, with
         ``supernova_covariance`` (every calibrator pair: sn_systematic^2).
+
+    O/H errors
+        ``oh_err`` (0.0 dex): each star's true 12 + log(O/H) scatters about the catalogued ``oh`` by
+        N(0, oh_err) (the catalogue's value is an estimate for the star, e.g. read from its galaxy's abundance
+        gradient); the magnitudes follow the true value, and the cepheids table gets an ``oh_err`` column.
+
+    Heliocentric redshifts
+        ``sn_heliocentric_kms`` (0.0: none, no ``z_hel`` column): the observer's speed relative to the CMB
+        frame (about 370 km/s for the Sun, from memory); each Hubble-flow SN is seen in a random direction, its
+        heliocentric redshift 1 + z_hel = (1 + z_obs)(1 + v cos(theta) / c), and its luminosity distance
+        (1 + z_hel) d_C(z) (Davis et al. 2011, ApJ 741, 67). The supernovae table gets a ``z_hel`` column.
     """
 
     # --- sample -----------------------------------------------------------------------------
@@ -331,6 +346,10 @@ class MockSettings:
     # shared systematics (covariance tables)
     anchor_systematic: float = 0.0
     sn_systematic: float = 0.0
+    # O/H errors
+    oh_err: float = 0.0
+    # heliocentric redshifts of the Hubble flow (the Sun's speed relative to the CMB frame, km/s)
+    sn_heliocentric_kms: float = 0.0
     # per-band terms (issue 9): band order V, I, H as BANDS
     metallicity_coef_bands: tuple[float, float, float] | None = None
     band_scatter: tuple[float, float, float] | None = None
@@ -426,7 +445,8 @@ class MockSettings:
         _range("outlier_shift", self.outlier_shift)
         if self.outlier_shift[0] < 0:
             raise ValueError("outlier_shift must be >= 0 (blends are brighter by that many mag)")
-        for name in ("scatter_spread", "bias_sd", "sn_scatter", "sigma_v", "anchor_systematic", "sn_systematic"):
+        for name in ("scatter_spread", "bias_sd", "sn_scatter", "sigma_v", "anchor_systematic", "sn_systematic",
+                     "oh_err", "sn_heliocentric_kms"):
             if finite(name, getattr(self, name)) < 0:
                 raise ValueError(f"{name} must be >= 0, got {getattr(self, name)!r}")
         if not finite("bias_err", self.bias_err) > 0:
@@ -620,7 +640,7 @@ def _parallax_group(s: MockSettings, rng: np.random.Generator) -> dict[str, np.n
 
 
 def _supernovae(s: MockSettings, rng: np.random.Generator, names: list[str], mu: np.ndarray,
-                is_host: np.ndarray):
+                is_host: np.ndarray, rng_hel: np.random.Generator | None = None):
     """Supernovae table and its latent table (module docstring, "Supernovae")."""
     import astropy.units as u
     from astropy.table import Column, MaskedColumn, Table
@@ -644,6 +664,11 @@ def _supernovae(s: MockSettings, rng: np.random.Generator, names: list[str], mu:
     mu_cal = mu[cal]
     mu_flow = np.asarray(distance_modulus(z, s.h0, s.q0, s.j0), dtype=float)
     z_obs = z + v_pec / SPEED_OF_LIGHT_KMS
+    z_hel = None
+    if s.sn_heliocentric_kms > 0:  # d_L = (1 + z_hel) d_C(z) = (1 + z_hel) / (1 + z) d_L(z)
+        cos = 2.0 * rng_hel.random(n_flow) - 1.0
+        z_hel = (1.0 + z_obs) * (1.0 + s.sn_heliocentric_kms * cos / SPEED_OF_LIGHT_KMS) - 1.0
+        mu_flow = mu_flow + 5.0 * np.log10((1.0 + z_hel) / (1.0 + z))
 
     width = max(4, len(str(n_flow)))
     sn_names = [f"{names[g]}-sn1" for g in cal] + [f"flow-sn{k + 1:0{width}d}" for k in range(n_flow)]
@@ -657,6 +682,8 @@ def _supernovae(s: MockSettings, rng: np.random.Generator, names: list[str], mu:
     table["mag_err"] = Column(np.concatenate([cal_err, flow_err]), unit=u.mag)
     table["z"] = MaskedColumn(np.concatenate([np.zeros(n_cal), z_obs]),
                               mask=np.arange(n_cal + n_flow) < n_cal)
+    if z_hel is not None:
+        table["z_hel"] = MaskedColumn(np.concatenate([np.zeros(n_cal), z_hel]), mask=np.arange(n_cal + n_flow) < n_cal)
     latent = Table()
     latent["sn"] = Column(sn_names, dtype=str)
     latent["mu"] = Column(mu_all, unit=u.mag)
@@ -798,6 +825,10 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         extra -= shift
         any_extra = True
 
+    oh_true = oh
+    if s.oh_err > 0:  # the star's true O/H about the catalogued one (module docstring, "O/H errors")
+        oh_sd = np.full(n_star_all, s.oh_err)
+        oh_true = oh + oh_sd * rng["oh_errors"].standard_normal(n_star_all)
     pl = s.band_pl
     ratio = dict(zip(BANDS, s.band_extinction_ratios))
     gamma = s.metallicity_coef_bands or (s.metallicity_coef,) * len(BANDS)
@@ -808,7 +839,7 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     mag = np.empty((n_star_all, len(BANDS)))
     for j, b in enumerate(BANDS):
         zp, slope = pl[b]
-        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + gamma[j] * (oh - s.solar_oh)
+        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + gamma[j] * (oh_true - s.solar_oh)
                      + amp[j] * offset + band_offset[:, j] + ratio[b] * a_v + noise[:, j])
         if any_extra:
             mag[:, j] += extra
@@ -827,6 +858,8 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     cep["host"] = Column(hosts_col, dtype=str)
     cep["period"] = Column(10.0**log_p, unit=u.day)
     cep["oh"] = Column(oh, unit=u.dex)
+    if s.oh_err > 0:
+        cep["oh_err"] = Column(oh_sd, unit=u.dex)
     for j, b in enumerate(BANDS):
         cep[f"mag_{b}"] = Column(mag[:, j], unit=u.mag)
         cep[f"mag_{b}_err"] = Column(err[:, j], unit=u.mag)
@@ -859,6 +892,8 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     if plx is not None:
         latent["distance_pc"] = Column(np.concatenate([np.full(n, np.nan), plx["distance_pc"]]), unit=u.pc)
         latent["mu"] = Column(np.concatenate([np.full(n, np.nan), plx["mu"]]), unit=u.mag)
+    if s.oh_err > 0:
+        latent["oh_true"] = Column(oh_true, unit=u.dex)
     if blend is not None:
         latent["outlier"] = Column(blend)
         latent["outlier_shift"] = Column(shift, unit=u.mag)
@@ -909,7 +944,7 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         truth["bias_sd"] = float(s.bias_sd)
     sn = sn_latent = None
     if s.n_hubble_flow:
-        sn, sn_latent = _supernovae(s, rng["supernovae"], names, mu, is_host_gal[:n_gal])
+        sn, sn_latent = _supernovae(s, rng["supernovae"], names, mu, is_host_gal[:n_gal], rng["heliocentric"])
         sn.meta["description"] += f" seed {seed}"
         truth.update(h0=float(s.h0), sn_abs_mag=float(s.sn_abs_mag), sn_scatter=float(s.sn_scatter),
                      sigma_v=float(s.sigma_v), q0=float(s.q0), j0=float(s.j0))
@@ -929,6 +964,8 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
             sn_cov = _shared_covariance([str(x) for x in np.asarray(sn["sn"])[cal]], s.sn_systematic,
                                         ("sn_a", "sn_b"), "calibrator supernovae's magnitudes", seed)
             truth.update(sn_systematic=float(s.sn_systematic), sn_offset=delta_s)
+    if s.oh_err > 0:
+        truth["oh_err"] = float(s.oh_err)
     if s.metallicity_coef_bands is not None:
         g = dict(zip(BANDS, (float(x) for x in s.metallicity_coef_bands)))
         truth["metallicity_coef_bands"] = g

@@ -66,7 +66,8 @@ import numpy as np
 
 from .config import ModelSettings
 
-__all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal",
+__all__ = ["Structure", "LinearArrays", "build_structure", "normal_equations", "log_marginal", "star_offset_var",
+           "sn_rows_y",
            "conditional_mean", "conditional_draw", "residuals", "unpack", "pack", "LINEAR_PARAMETERS",
            "HUBBLE_TILT"]
 
@@ -99,6 +100,17 @@ class Structure:
     anchor_dense: bool = False
     sn_dense: bool = False
     dense_slots: tuple[int, ...] = ()
+    # O/H errors (oh_err): each star's offset variance gains gamma^2 oh_err^2, so gamma is a hyperparameter
+    # (``gamma_sampled``; its term moves to the data side like a parallax star's modulus) unless it is fixed
+    oh_errors: bool = False
+    gamma_sampled: bool = False
+    gamma_fixed: float = 0.0
+    # q0, j0 with a prior (hyperparameters): the Hubble-flow data are shifted from the expansion about
+    # (q0_ref, j0_ref) to the sampled values (:func:`sn_rows_y`)
+    q0_sampled: bool = False
+    j0_sampled: bool = False
+    q0_ref: float = -0.55
+    j0_ref: float = 1.0
     band_params: tuple[str, ...] = ()  # parameters with one value per band (ModelSettings.band_parameters)
 
     @property
@@ -151,6 +163,12 @@ class LinearArrays(NamedTuple):
     # design of the rows with a dense covariance over (the local columns of dense_slots, the globals): (n, q)
     anchor_z: np.ndarray = np.zeros((0, 0))
     sn_z: np.ndarray = np.zeros((0, 0))
+    # O/H errors ((0,) without): the metallicity regressor [O/H]_j - [O/H]_sun and oh_err_j^2 of every star
+    oh_x: np.ndarray = np.zeros(0)
+    oh_var: np.ndarray = np.zeros(0)
+    # free q0/j0 ((0,) without): each SN's CMB-frame redshift (1 for calibrators) and whether it is in the flow
+    sn_zf: np.ndarray = np.zeros(0)
+    sn_flow: np.ndarray = np.zeros(0, bool)
 
 
 def _linear_prior(spec):
@@ -181,15 +199,18 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     """The static :class:`Structure` and the :class:`LinearArrays` for fitted data ``obs``, ``err``, ``mask``
     ((N, k): a band, the Wesenheit index at fixed R, or every band). ``arrays``/``layout`` from
     :func:`ladder.model.model_arrays`."""
-    from .cosmography import distance_modulus, peculiar_velocity_mag
+    from .cosmography import distance_modulus, heliocentric_correction_mag, peculiar_velocity_mag
 
     n, k = obs.shape
     bands = layout.bands
     band_shaped = settings.multiband
     nb = len(bands) if band_shaped else 1
     has_sn, has_flow = layout.has_sn, layout.has_flow
+    oh_var = np.asarray(getattr(arrays, "oh_var", np.zeros(0)), float)
+    oh_errors = bool(settings.metallicity and oh_var.size and np.any(oh_var > 0))
+    gamma_sampled = oh_errors and settings.prior("metallicity_coef").dist != "fixed"
     wanted = {"pl_zero_point": True, "pl_slope": True, "pl_slope_long": settings.pl_break,
-              "metallicity_coef": settings.metallicity, "sn_abs_mag": has_sn, "h0": has_flow}
+              "metallicity_coef": settings.metallicity and not gamma_sampled, "sn_abs_mag": has_sn, "h0": has_flow}
     columns, fixed, bounds = [], [], []
     for name in LINEAR_PARAMETERS:
         if not wanted[name]:
@@ -215,7 +236,11 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
         touched |= {int(x) for x in np.asarray(arrays.sn_slot) if x >= 0}
     structure = Structure(tuple(columns), tuple(fixed), n_local, layout.n_mu, tuple(bands), band_shaped,
                           tuple(bounds), bool(np.all(np.diff(slot0) >= 0)), anchor_dense, sn_dense,
-                          tuple(sorted(touched)), band_params=tuple(settings.band_parameters))
+                          tuple(sorted(touched)), oh_errors, gamma_sampled,
+                          float(settings.prior("metallicity_coef").get("value")) if oh_errors and not gamma_sampled
+                          else 0.0, bool(has_flow and settings.supernovae.q0_prior is not None),
+                          bool(has_flow and settings.supernovae.j0_prior is not None), float(settings.supernovae.q0),
+                          float(settings.supernovae.j0), band_params=tuple(settings.band_parameters))
 
     # The regressors are the model terms themselves (linear in their parameters), evaluated at unit parameter
     # values: M(P) of ladder.terms.pl and the offset of ladder.terms.metallicity.
@@ -298,6 +323,9 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
         z = np.asarray(arrays.sn_z, float)
         s = settings.supernovae
         mu1 = np.asarray(distance_modulus(np.where(flow, z, 1.0), 1.0, s.q0, s.j0), float)
+        z_hel = np.asarray(getattr(arrays, "sn_z_hel", z), float)
+        if z_hel.shape == z.shape:  # d_L = (1 + z_hel) d_C(z_cmb) (ladder.cosmography.heliocentric_correction_mag)
+            mu1 = mu1 + np.asarray(heliocentric_correction_mag(np.where(flow, z_hel, 1.0), np.where(flow, z, 1.0)))
         sn_y = np.where(flow, sn_y - mu1, sn_y)
         sn_var = sn_var + np.where(flow, np.asarray(peculiar_velocity_mag(np.where(flow, z, 1.0), s.sigma_v)) ** 2,
                                    0.0)
@@ -329,6 +357,11 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
                 if g < G:
                     zs[k, pos[int(g)] * n_local] = 1.0
             dense.update(sn_cov=sn_cov, sn_z=zs)
+    if oh_errors:
+        dense.update(oh_x=np.asarray(oh, float), oh_var=oh_var)
+    if structure.q0_sampled or structure.j0_sampled:
+        flow_rows = np.asarray(arrays.sn_slot) < 0
+        dense.update(sn_zf=np.where(flow_rows, np.asarray(arrays.sn_z, float), 1.0), sn_flow=flow_rows)
     lin = LinearArrays(
         **dense,
         y0=y0, var=var, mask=mask, seen=seen, design=design, local=local, slot=slot.astype(np.int64),
@@ -362,13 +395,56 @@ def with_mask(lin: LinearArrays, mask) -> LinearArrays:
     return lin._replace(mask=jnp.asarray(mask), **{k: jnp.asarray(v) for k, v in stats.items()})
 
 
-def _star_y(lin: LinearArrays, mu_par):
-    """(N, k) data of the linear block: parallax stars' own moduli moved to the data side (0 where unseen)."""
+def sn_rows_y(structure: Structure, lin: LinearArrays, cosmo=None):
+    r"""The supernova rows' data: ``lin.sn_y`` (Hubble flow: :math:`m - \mu(z; H_0{=}1, q_0, j_0)` at the run's
+    q0, j0), moved to the sampled ``cosmo = (q0, j0)`` when they are hyperparameters:
+    :math:`+\,\mu(z; 1, q_{0,\mathrm{ref}}, j_{0,\mathrm{ref}}) - \mu(z; 1, q_0, j_0)` on the flow rows."""
+    import jax.numpy as jnp
+
+    if not (structure.q0_sampled or structure.j0_sampled) or cosmo is None:
+        return lin.sn_y
+    from .cosmography import distance_modulus
+
+    q0 = cosmo[0] if structure.q0_sampled else structure.q0_ref
+    j0 = cosmo[1] if structure.j0_sampled else structure.j0_ref
+    shift = distance_modulus(lin.sn_zf, 1.0, structure.q0_ref, structure.j0_ref) - \
+        distance_modulus(lin.sn_zf, 1.0, q0, j0)
+    return lin.sn_y + jnp.where(lin.sn_flow, shift, 0.0)
+
+
+def star_offset_var(structure: Structure, lin: LinearArrays, offset_var, gamma=None):
+    r"""Each star's variance common to all its bands: the intrinsic :math:`s_j^2` plus, with O/H errors,
+    :math:`\gamma^2\sigma_{[\mathrm{O/H}],j}^2` (the metallicity term is linear in O/H, so an O/H error of
+    :math:`\sigma` moves every band of the star by :math:`\gamma\sigma`; the first-order propagation of the
+    error, exact for a term linear in O/H). ``gamma`` is the sampled coefficient (its fixed value otherwise)."""
+    if not structure.oh_errors:
+        return offset_var
+    g = gamma if structure.gamma_sampled else structure.gamma_fixed
+    return offset_var + g**2 * lin.oh_var
+
+
+def _star_shift(structure: Structure, lin: LinearArrays, mu_par, gamma):
+    """(N,) per-star offsets moved to the data side (common to all bands): a parallax star's own modulus and, with
+    a sampled metallicity coefficient, gamma ([O/H]_j - [O/H]_sun); None when there is none."""
+    import jax.numpy as jnp
+
+    m = None
+    if lin.par_star.shape[0]:
+        m = jnp.zeros(lin.sw.shape).at[lin.par_star].set(mu_par)
+    if structure.gamma_sampled:
+        m = gamma * lin.oh_x if m is None else m + gamma * lin.oh_x
+    return m
+
+
+def _star_y(structure: Structure, lin: LinearArrays, mu_par, gamma=None):
+    """(N, k) data of the linear block: parallax stars' own moduli (and a sampled metallicity term) moved to the
+    data side (0 where unseen)."""
     import jax.numpy as jnp
 
     y = jnp.asarray(lin.y0)
-    if lin.par_star.shape[0]:
-        y = y.at[lin.par_star].add(-mu_par[:, None])
+    m = _star_shift(structure, lin, mu_par, gamma)
+    if m is not None:
+        y = y - m[:, None]
     return jnp.where(lin.seen, y, 0.0)
 
 
@@ -386,12 +462,13 @@ class NormalEquations(NamedTuple):
 
 
 def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
-                     include_prior: bool = True) -> NormalEquations:
+                     include_prior: bool = True, gamma=None, cosmo=None) -> NormalEquations:
     r"""Accumulate :math:`A = X^T\Sigma^{-1}X\ [+ P_0]` and :math:`b = X^T\Sigma^{-1}y\ [+ P_0 m_0 + \tau]`
     in arrow form, plus :math:`y^T\Sigma^{-1}y` and :math:`\ln|\Sigma|`.
 
     ``offset_var`` (N,) is each star's :math:`s_j^2`; ``mu_par`` (n_par,) the parallax stars' moduli;
-    ``sn_extra_var`` the SN intrinsic variance :math:`\sigma_\mathrm{SN}^2`. JAX; differentiable.
+    ``sn_extra_var`` the SN intrinsic variance :math:`\sigma_\mathrm{SN}^2`; ``gamma`` the metallicity
+    coefficient when it is a hyperparameter (O/H errors, :func:`star_offset_var`). JAX; differentiable.
     """
     import jax
     import jax.numpy as jnp
@@ -402,10 +479,11 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
     # Per star: C_j^-1 = W - c_j w w^T (Sherman-Morrison), so every inner product is a constant statistic
     # minus c_j times products of the constants sw, g, t; parallax stars' moduli m_j shift their data.
     sw, g = lin.sw, lin.g
+    offset_var = star_offset_var(structure, lin, offset_var, gamma)
     c = offset_factor(offset_var, sw)
     d = 1.0 / (1.0 + offset_var * sw)  # = 1 - c sw
-    if lin.par_star.shape[0]:
-        m = jnp.zeros(sw.shape).at[lin.par_star].set(mu_par)
+    m = _star_shift(structure, lin, mu_par, gamma)
+    if m is not None:
         t = lin.t0 - sw * m
         b_raw = lin.b0 - g.T @ m
         yy_raw = lin.yy0 - 2.0 * jnp.dot(m, lin.t0) + jnp.dot(m * m, sw)
@@ -446,7 +524,8 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
         n_obs = n_obs + lin.anchor_slot.shape[0]
     # supernovae: calibrators mu + M_SN, flow M_SN - a
     if lin.sn_slot.shape[0] and structure.sn_dense:
-        zz, zy, qq, ld = whitened_rows(lin.sn_z, lin.sn_y, lin.sn_var + sn_extra_var, lin.sn_cov)
+        zz, zy, qq, ld = whitened_rows(lin.sn_z, sn_rows_y(structure, lin, cosmo), lin.sn_var + sn_extra_var,
+                                       lin.sn_cov)
         dd, db, yy, logdet = dd + zz, db + zy, yy + qq, logdet + ld
         n_obs = n_obs + lin.sn_slot.shape[0]
     elif lin.sn_slot.shape[0]:
@@ -456,12 +535,13 @@ def normal_equations(structure: Structure, lin: LinearArrays, offset_var, mu_par
         cal = lin.sn_slot < G
         slot = jnp.minimum(lin.sn_slot, G - 1) if G else lin.sn_slot
         hh = hh + jnp.einsum("n,np,nq->pq", sw_, X, X)
-        bh = bh + jnp.einsum("n,np->p", sw_ * lin.sn_y, X)
+        sn_y = sn_rows_y(structure, lin, cosmo)
+        bh = bh + jnp.einsum("n,np->p", sw_ * sn_y, X)
         if G:
             ll = ll.at[slot, 0, 0].add(jnp.where(cal, sw_, 0.0))
             lh = lh.at[slot, 0, :].add(jnp.where(cal, sw_, 0.0)[:, None] * X)
-            bl = bl.at[slot, 0].add(jnp.where(cal, sw_ * lin.sn_y, 0.0))
-        yy = yy + jnp.sum(sw_ * lin.sn_y**2)
+            bl = bl.at[slot, 0].add(jnp.where(cal, sw_ * sn_y, 0.0))
+        yy = yy + jnp.sum(sw_ * sn_y**2)
         logdet = logdet + jnp.sum(jnp.log(v))
         n_obs = n_obs + lin.sn_slot.shape[0]
     if include_prior:
@@ -599,11 +679,12 @@ def _split_dense(structure: Structure, sol: _Solved, ext):
     return loc, h
 
 
-def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
+def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0, gamma=None,
+                 cosmo=None):
     r""":math:`\ln p(y \mid \phi)` with the linear block integrated out exactly (see the module docstring)."""
     import jax.numpy as jnp
 
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, gamma=gamma, cosmo=cosmo)
     sol = _solve(eq, structure.dense_slots)
     proper_l = lin.prior_prec_local > 0
     proper = lin.prior_prec > 0
@@ -616,12 +697,12 @@ def log_marginal(structure: Structure, lin: LinearArrays, offset_var, mu_par=Non
 
 
 def conditional_mean(structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
-                     include_prior: bool = True):
+                     include_prior: bool = True, gamma=None, cosmo=None):
     r""":math:`E[\theta \mid y, \phi] = A^{-1} b`: ``(theta_local (G, L), theta_global (p,))``.
 
     With ``include_prior=False`` (and no tilt) this is the weighted least-squares solution (Aitken 1935,
     Proc. R. Soc. Edinburgh 55, 42)."""
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, include_prior)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, include_prior, gamma, cosmo)
     if not include_prior:  # keep empty bias columns inert
         import jax.numpy as jnp
 
@@ -631,7 +712,8 @@ def conditional_mean(structure: Structure, lin: LinearArrays, offset_var, mu_par
     return _split_dense(structure, sol, sol.mean_h)
 
 
-def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0):
+def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, mu_par=None, sn_extra_var=0.0,
+                     gamma=None, cosmo=None):
     r"""One exact draw of :math:`\theta \sim \mathcal N(A^{-1}b, A^{-1})`: ``(theta_local, theta_global)``.
 
     Globals first, :math:`\theta_\mathrm{glob} = \hat\theta + L_S^{-T} z` with :math:`S = L_S L_S^T`, then each
@@ -641,7 +723,7 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
     import jax.numpy as jnp
     from jax.scipy.linalg import solve_triangular
 
-    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var)
+    eq = normal_equations(structure, lin, offset_var, mu_par, sn_extra_var, gamma=gamma, cosmo=cosmo)
     sol = _solve(eq, structure.dense_slots)
     k1, k2 = jax.random.split(key)
     p = sol.mean_h.shape[0]
@@ -656,12 +738,12 @@ def conditional_draw(key, structure: Structure, lin: LinearArrays, offset_var, m
     return loc, h
 
 
-def residuals(structure: Structure, lin: LinearArrays, theta_local, theta_global, mu_par=None):
+def residuals(structure: Structure, lin: LinearArrays, theta_local, theta_global, mu_par=None, gamma=None):
     r"""(N, k) residuals :math:`y_{jB} - e_j^T\theta_{\mathrm{loc},i} - G_{jB}^T\theta_\mathrm{glob}` of every
     Cepheid (observed minus predicted; 0 where not observed). The one prediction every consumer uses."""
     import jax.numpy as jnp
 
-    y = _star_y(lin, mu_par)
+    y = _star_y(structure, lin, mu_par, gamma)
     loc = jnp.concatenate([theta_local, jnp.zeros((1, structure.n_local))], axis=0)[lin.slot]  # (N, L)
     pred = jnp.sum(lin.local * loc, axis=1)[:, None] + jnp.einsum("nkp,p->nk", lin.design, theta_global)
     return jnp.where(lin.seen, y - pred, 0.0)

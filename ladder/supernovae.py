@@ -10,6 +10,7 @@ host   --     no           galaxy of the hosts table (role host or anchor); empt
 mag    mag    yes          standardised peak magnitude
 mag_err mag   yes          its 1-sigma error, > 0
 z      --     Hubble flow  CMB-frame redshift, > 0
+z_hel  --     no           heliocentric redshift, > 0 (Hubble flow; with the column, every flow row)
 ====== ====== ============ ==============================================================
 
 Like :mod:`ladder.catalog`, this is an input boundary: ECSV units are checked and converted here
@@ -54,6 +55,8 @@ class SupernovaData:
         The table's path (for messages).
     host_names : tuple of str
         The hosts table's galaxies that ``host_index`` points into (for summaries).
+    z_hel : ndarray (n_sn,) or None
+        Heliocentric redshift of the Hubble-flow rows (NaN elsewhere); None when the table has no ``z_hel``.
     cov : ndarray (n_sn, n_sn) or None
         The covariance table (mag^2, :mod:`ladder.covariance`), added to ``diag(mag_err**2)``; None: independent.
     """
@@ -66,6 +69,7 @@ class SupernovaData:
     file: str
     host_names: tuple[str, ...] = ()
     cov: np.ndarray | None = None  # (n_sn, n_sn), mag^2: [data] supernova_covariance, added to diag(mag_err^2)
+    z_hel: np.ndarray | None = None  # (n_sn,) heliocentric redshift (NaN for calibrators); None: no column
 
     @property
     def n_sn(self) -> int:
@@ -126,12 +130,11 @@ def _optional_strings(table, col, file) -> np.ndarray:
     return _strings(table, col, file, required=False)
 
 
-def _redshift(table, file) -> np.ndarray:
-    """The ``z`` column as float64 (NaN where empty); an ECSV unit, if any, must be dimensionless."""
+def _redshift(table, file, col: str = "z") -> np.ndarray:
+    """A redshift column as float64 (NaN where empty); an ECSV unit, if any, must be dimensionless."""
     import astropy.cosmology.units as cu
     import astropy.units as u
 
-    col = "z"
     unit = table[col].unit
     values = _numbers(table, col, file, None, allow_missing=True)
     if unit is None:
@@ -223,6 +226,19 @@ def load_supernovae(path: str | Path, host_names: Sequence[str], host_roles: Seq
     if bad.size:
         raise InputError("must be > 0", file=file, key="z", rows=bad)
 
-    plausibility.warn(plausibility.magnitude_errors(mag_err, "mag_err") + plausibility.redshifts(z), file)
+    z_hel = None
+    if "z_hel" in t.colnames:
+        z_hel = _redshift(t, file, "z_hel")
+        missing = np.flatnonzero(flow & np.isnan(z_hel))
+        if missing.size:
+            raise InputError("supernova in the Hubble flow without a heliocentric redshift (with the column, give it "
+                             "for every Hubble-flow row)", file=file, key="z_hel", rows=missing)
+        with np.errstate(invalid="ignore"):
+            bad = np.flatnonzero(np.isfinite(z_hel) & ~(z_hel > 0))
+        if bad.size:
+            raise InputError("must be > 0", file=file, key="z_hel", rows=bad)
+        z_hel = np.where(flow, z_hel, np.nan)
+    plausibility.warn(plausibility.magnitude_errors(mag_err, "mag_err") + plausibility.redshifts(z)
+                      + (plausibility.redshifts(z_hel, "z_hel") if z_hel is not None else []), file)
     return SupernovaData(sn_names=tuple(str(s) for s in names), host_index=host_index, mag=mag,
-                         mag_err=mag_err, z=z, file=file, host_names=tuple(host_names))
+                         mag_err=mag_err, z=z, file=file, host_names=tuple(host_names), z_hel=z_hel)

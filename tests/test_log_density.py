@@ -35,6 +35,9 @@ MODES = {
     "multiband, uncertain R_V": ({"extinction": "multiband", "rv_err": 0.3}, {}),
     "multiband + mixture": ({"extinction": "multiband", "outliers": "mixture"}, {}),
     "covariance tables": ({}, {"n_hubble_flow": 15, "anchor_systematic": 0.05, "sn_systematic": 0.04}),
+    "metallicity errors": ({}, {"oh_err": 0.2}),
+    "free q0 and j0": ({"free_cosmology": True}, {"n_hubble_flow": 15}),
+    "metallicity errors, multiband": ({"extinction": "multiband"}, {"oh_err": 0.2}),
     "per-galaxy mixture": ({"outliers": "mixture", "outlier_fraction_model": "per_galaxy"}, {}),
     "blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_width": 0.5}, {}),
     "per-galaxy blend": ({"outliers": "mixture", "outlier_component": "blend", "outlier_fraction_model": "per_galaxy"},
@@ -57,6 +60,12 @@ def _setup(tmp_path_factory, mode):
         change.update(band="W", wesenheit=None, bands=("V", "I", "H"),
                       wavelengths=(("V", 0.55), ("I", 0.80), ("H", 1.60)),
                       reddening=dataclasses.replace(cfg.model.reddening, law="fitzpatrick99", rv_err=rv_err))
+    if change.pop("free_cosmology", False):  # q0 ~ N(-0.55, 0.3), j0 ~ U(0, 2): hyperparameters
+        from ladder.config import PriorSpec
+
+        change["supernovae"] = dataclasses.replace(
+            cfg.model.supernovae, q0_prior=PriorSpec("normal", (("loc", -0.55), ("scale", 0.3))),
+            j0_prior=PriorSpec("uniform", (("low", 0.0), ("high", 2.0))))
     settings = dataclasses.replace(cfg.model, **change)
     data = ladder.load_data(dataclasses.replace(cfg, model=settings))
     arrays, layout = model_arrays(data, settings)
@@ -93,6 +102,8 @@ def _random_point(rng, data, settings, layout):
         v["parallax_log_length_scale"] = rng.uniform(6.0, 8.0)
     if layout.has_sn:
         v["sn_abs_mag"], v["sn_scatter"], v["h0"] = rng.normal(-19.2, 0.1), rng.uniform(0.05, 0.2), rng.uniform(60, 80)
+        if settings.supernovae.q0_prior is not None:
+            v["q0"], v["j0"] = rng.normal(-0.55, 0.3), rng.uniform(0.2, 1.8)
     return v
 
 
@@ -171,6 +182,8 @@ def _reference(v, data, settings, layout):
         seen = np.isfinite(mag[j])
         y = (mag[j] - pred0[j] - star_mu[j])[seen]
         s2 = scatter[data.star_host[j]] ** 2
+        if data.oh_err is not None and settings.metallicity_errors:  # O/H error: gamma^2 oh_err^2 on the offset
+            s2 = s2 + v["metallicity_coef"] ** 2 * data.oh_err[j] ** 2
 
         def dens(extra):
             al = alpha[seen]  # C = diag(err^2 + tau^2) + (s^2 + extra) alpha alpha^T
@@ -206,12 +219,14 @@ def _reference(v, data, settings, layout):
     if layout.has_sn:
         sne, s = data.supernovae, settings.supernovae
         lp += N(v["sn_abs_mag"], -19.3, 1.0) + H(v["sn_scatter"], scale=0.3) + stats.uniform.logpdf(v["h0"], 20, 130)
+        if "q0" in v:
+            lp += N(v["q0"], -0.55, 0.3) + stats.uniform.logpdf(v["j0"], 0.0, 2.0)
         used, locs, variances = [], [], []
         for k, name in enumerate(sne.sn_names):
             if name not in layout.supernovae:
                 continue
             if sne.is_flow[k]:
-                z, q0, j0 = sne.z[k], s.q0, s.j0
+                z, q0, j0 = sne.z[k], v.get("q0", s.q0), v.get("j0", s.j0)
                 dl = C_KMS * z / v["h0"] * (1 + (1 - q0) / 2 * z - (1 - q0 - 3 * q0**2 + j0) / 6 * z**2)
                 loc = v["sn_abs_mag"] + 5 * np.log10(dl) + 25
                 pv = 5 / np.log(10) * s.sigma_v / (C_KMS * z)
@@ -232,6 +247,8 @@ def test_full_model_log_density_matches_reference(tmp_path_factory, mode):
     data, settings, arrays, layout, parts = _setup(tmp_path_factory, mode)
     if mode == "covariance tables":  # the mock's run file names both tables: the dense blocks are in the model
         assert parts.structure.anchor_dense and parts.structure.sn_dense
+    if mode.startswith("metallicity errors"):  # the coefficient is a hyperparameter of the structure
+        assert parts.structure.gamma_sampled and "metallicity_coef" not in dict(parts.structure.columns)
     rng = np.random.default_rng(len(mode))
     for _ in range(3):
         v = _random_point(rng, data, settings, layout)

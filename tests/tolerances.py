@@ -140,3 +140,7 @@ BLEND_QUAD_ATOL = 1e-7  # log of a QUADPACK integral with epsabs 1e-14 of a dens
 FRACTION_RTOL = 1e-12  # logit-normal fraction vs scipy.special.expit: the same closed form, float64 rounding only
 JOINT_CHI2_P_PASS = 1e-3  # host moduli vs truth, chi-square with the posterior covariance: a calibrated posterior fails 1 in 1000
 JOINT_CHI2_P_BIASED = 1e-3  # the simpler model on data with the effect: its chi-square must be as unlikely as that to count as biased
+# --- O/H errors (tests/test_metallicity_errors.py) ---
+OH_ERR_MARGINAL_ATOL = 1e-7  # log p(y | gamma) sums terms of O(1e3) (quadratic form, log-determinants): rounding ~1e-12 of those, measured 9e-9
+OH_ERR_GRID_RTOL = 0.08  # a sampled sd (2 x 1500 draws, ESS >= 400 required) vs the grid's: relative MC error <= 1/sqrt(2 x 400) = 3.5%, about 2.3 of them
+OH_ERR_FISHER_RTOL = 0.15  # posterior sd of gamma vs the Fisher expectation: Gaussian without O/H errors (measured 2.4%); with them the posterior follows a ridge of gamma^2 oh_err^2 + scatter^2 cut by scatter >= 0, not Gaussian (measured 10% at the posterior means)

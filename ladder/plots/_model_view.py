@@ -118,7 +118,8 @@ def _band_model(result, arrays=None, means=None):
     n, k = obs.shape
     tl, tg = theta_from_params(parts, p)
     mu_par = mu_parallax(p) if parts.parallax.shape[0] else None
-    pred = np.asarray(parts.observed) - np.asarray(residuals(parts.structure, parts.lin, tl, tg, mu_par))
+    gamma_h = p["metallicity_coef"] if parts.structure.gamma_sampled else None  # a hyperparameter with oh_err
+    pred = np.asarray(parts.observed) - np.asarray(residuals(parts.structure, parts.lin, tl, tg, mu_par, gamma_h))
     absolute = np.asarray(data.is_parallax_group)[data.star_host]
     own = np.zeros(n)
     if mu_par is not None:
@@ -241,7 +242,11 @@ def _sn_points(result) -> _SNPoints:
         if h >= 0:
             expected[k] = float(calibrator_magnitude(mu_mean[cols[h]], m_sn))
         elif np.isfinite(h0):
-            expected[k] = float(hubble_flow_magnitude(z[k], h0, m_sn, s.q0, s.j0))
+            z_hel = None if sne.z_hel is None else sne.z_hel[k]
+            post = result.idata.posterior  # q0, j0: posterior means when they have a prior
+            q0 = float(np.asarray(post["q0"]).mean()) if "q0" in post else s.q0
+            j0 = float(np.asarray(post["j0"]).mean()) if "j0" in post else s.j0
+            expected[k] = float(hubble_flow_magnitude(z[k], h0, m_sn, q0, j0, z_hel))
     return _SNPoints(names=tuple(sne.sn_names), mag=np.asarray(sne.mag, float), err=np.asarray(sne.mag_err, float),
                      z=z, flow=flow, fitted=np.array([nm in fitted_names for nm in sne.sn_names]),
                      host=tuple(hosts), model=expected)

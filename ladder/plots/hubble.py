@@ -69,9 +69,13 @@ def plot_hubble(result, path, *, band_draws: int = 400) -> Path:
     if has_flow:
         n_s = m_d.size
         take = np.unique(np.linspace(0, n_s - 1, min(band_draws, n_s)).astype(int))
-        curves = np.asarray(hubble_flow_magnitude(grid[None, :], h0_d[take, None], m_d[take, None], s.q0, s.j0))
+        post = result.idata.posterior  # q0, j0: their draws when they have a prior, else the run's values
+        q_d = np.asarray(post["q0"]).reshape(-1) if "q0" in post else np.full(n_s, s.q0)
+        j_d = np.asarray(post["j0"]).reshape(-1) if "j0" in post else np.full(n_s, s.j0)
+        curves = np.asarray(hubble_flow_magnitude(grid[None, :], h0_d[take, None], m_d[take, None], q_d[take, None],
+                                                  j_d[take, None]))
         b16, b84 = np.quantile(curves, [0.16, 0.84], axis=0)
-        mean_curve = np.asarray(hubble_flow_magnitude(grid, h0_d.mean(), m_d.mean(), s.q0, s.j0))
+        mean_curve = np.asarray(hubble_flow_magnitude(grid, h0_d.mean(), m_d.mean(), q_d.mean(), j_d.mean()))
         ax.fill_between(grid, b16, b84, color="0.55", alpha=0.35, lw=0, zorder=1)
         ax.plot(grid, mean_curve, color="k", lw=0.9, zorder=3)
         spread = np.sqrt(sig_sn**2 + np.asarray(peculiar_velocity_mag(grid, s.sigma_v)) ** 2)

@@ -43,6 +43,8 @@ LABELS: dict[str, Label] = {
     "h0": Label(r"H_0", "H<sub>0</sub>", "km/s/Mpc", "Hubble constant"),
     "sn_abs_mag": Label(r"M_\mathrm{SN}", "M<sub>SN</sub>", "mag", "SN Ia absolute magnitude"),
     "sn_scatter": Label(r"\sigma_\mathrm{SN}", "&sigma;<sub>SN</sub>", "mag", "SN Ia intrinsic scatter"),
+    "q0": Label(r"q_0", "q<sub>0</sub>", "", "deceleration parameter today"),
+    "j0": Label(r"j_0", "j<sub>0</sub>", "", "jerk parameter today"),
     "photometric_bias": Label(r"\beta", "&beta;", "mag", "photometric bias of a galaxy"),
     "host_scatter": Label(r"\sigma_i", "&sigma;<sub>i</sub>", "mag", "intrinsic scatter of a galaxy"),
     "ebv_mean": Label(r"\overline{E(B-V)}", "&lt;E(B&minus;V)&gt;", "mag", "mean reddening of a galaxy"),

@@ -19,7 +19,7 @@ ApJ 826, 56).
 
 import jax.numpy as jnp
 
-from ..cosmography import distance_modulus, peculiar_velocity_mag
+from ..cosmography import distance_modulus, heliocentric_correction_mag, peculiar_velocity_mag
 
 __all__ = ["calibrator_magnitude", "hubble_flow_magnitude", "sn_magnitude_sd"]
 
@@ -45,7 +45,7 @@ def calibrator_magnitude(mu_host, sn_abs_mag):
     return mu_host + sn_abs_mag
 
 
-def hubble_flow_magnitude(z, h0, sn_abs_mag, q0, j0):
+def hubble_flow_magnitude(z, h0, sn_abs_mag, q0, j0, z_hel=None):
     r"""Expected standardised peak magnitude of a supernova in the Hubble flow at redshift :math:`z`.
 
     .. math::
@@ -56,7 +56,9 @@ def hubble_flow_magnitude(z, h0, sn_abs_mag, q0, j0):
 
     the third-order kinematic luminosity distance of :func:`ladder.cosmography.luminosity_distance_mpc`
     (Visser, M. 2004, Class. Quantum Grav. 21, 2603). Flat :math:`\Lambda`CDM has
-    :math:`q_0 = 3\Omega_m/2 - 1`, :math:`j_0 = 1`.
+    :math:`q_0 = 3\Omega_m/2 - 1`, :math:`j_0 = 1`. With the heliocentric redshift :math:`z_\mathrm{hel}`,
+    :math:`d_L = (1 + z_\mathrm{hel})\,d_C(z)`, i.e. :math:`+5\log_{10}[(1 + z_\mathrm{hel})/(1 + z)]`
+    (:func:`ladder.cosmography.heliocentric_correction_mag`; Davis et al. 2011, ApJ 741, 67).
 
     Parameters
     ----------
@@ -68,12 +70,17 @@ def hubble_flow_magnitude(z, h0, sn_abs_mag, q0, j0):
         :math:`M_\mathrm{SN}` (output ``sn_abs_mag``), mag.
     q0, j0 : float
         Deceleration and jerk parameters today (run settings).
+    z_hel : float, optional
+        Heliocentric redshift (None: the CMB-frame one, no correction).
 
     Returns
     -------
     float, mag
     """
-    return sn_abs_mag + distance_modulus(z, h0, q0, j0)
+    mu = distance_modulus(z, h0, q0, j0)
+    if z_hel is not None:
+        mu = mu + heliocentric_correction_mag(z_hel, z)
+    return sn_abs_mag + mu
 
 
 def sn_magnitude_sd(mag_err, z, sigma_v_kms, sn_scatter, is_flow):

@@ -1,8 +1,11 @@
-"""Bad covariance tables -> one clear message (file, column or key, data rows), exit 2, nothing written.
+"""Bad covariance tables and O/H errors -> one clear message (file, column or key, data rows), exit 2, nothing
+written; an implausible O/H error -> a warning naming it.
 
 The same fixture and checks as tests/test_bad_input.py (real OGLE-IV Cepheids in both Magellanic Clouds as
 anchors, Soszynski et al. 2015, AcA 65, 297; three invented Hubble-flow supernovae of our own scenario), with a
-covariance table ([data] supernova_covariance or anchor_covariance) added and broken one way at a time.
+covariance table ([data] supernova_covariance or anchor_covariance) or an oh_err column added and broken one way
+at a time. The O/H values given to the fixture's stars (8.50 LMC, 8.05 SMC, dex) are round numbers near the
+clouds' published abundances (from memory), used only to make the column valid.
 """
 
 from __future__ import annotations
@@ -14,7 +17,7 @@ from astropy.table import Column, Table
 
 from ladder.cli import EXIT_OK
 from test_bad_input import (Case, Run, _assert_one_clear_error, _both, _doc, _parallax_group, _run_cli, _sn_table,
-                            _snapshot)
+                            _snapshot, _text_cell)
 
 
 def _cov_table(kind, rows, unit="mag2", name=None):
@@ -70,6 +73,42 @@ CASES = [
 ]
 
 
+def _oh_err(values, unit="dex"):
+    """Give the fixture's stars an oh (8.50 LMC, 8.05 SMC) and the oh_err column ``values``; metallicity on."""
+    def f(r: Run):
+        n = len(r.cepheids)
+        r.cepheids["oh"] = Column([8.50 if h == "LMC" else 8.05 for h in r.cepheids["host"]], unit=u.dex)
+        r.cepheids["oh_err"] = Column(np.broadcast_to(np.asarray(values, float), (n,)).copy(),
+                                      unit=unit if r.fmt == "ecsv" else None)
+        r.doc["model"]["metallicity"] = True
+    return f
+
+
+def _oh_err_empty_oh(r: Run):
+    _oh_err(0.1)(r)
+    r.cepheids["oh"] = r.cepheids["oh"].astype(float)
+    from astropy.table import MaskedColumn
+
+    r.cepheids["oh"] = MaskedColumn(r.cepheids["oh"], mask=[i == 2 for i in range(len(r.cepheids))])
+
+
+CEP = "cepheids.{fmt}"
+CASES += [
+    Case("oh-err-negative", _oh_err([0.1] * 4 + [-0.05] + [0.1] * 15), CEP, "oh_err", rows=(5,), also=(">= 0",)),
+    Case("oh-err-not-a-number", _both(_oh_err(0.1), _text_cell("oh_err", 6, "abc")), CEP, "oh_err", rows=(7,),
+         also=("'abc'",)),
+    Case("oh-err-unit", _oh_err(0.1, unit="K"), CEP, "oh_err", also=("cannot be converted",), formats=("ecsv",)),
+    Case("oh-err-without-oh", _oh_err_empty_oh, CEP, "oh_err", rows=(3,), also=("without an oh",)),
+    Case("oh-err-per-band-metallicity", _both(_oh_err(0.1), _doc("model.wesenheit", None),
+                                              _doc("model.metallicity", "per_band"),
+                                              _doc("model.extinction", "multiband"), _doc("model.bands", ["V", "I"]),
+                                              _doc("bands.V.wavelength_um", 0.55), _doc("bands.I.wavelength_um", 0.80)),
+         CEP, "oh_err", also=("per_band", "metallicity_errors = false")),
+    Case("metallicity-errors-not-bool", _both(_oh_err(0.1), _doc("model.metallicity_errors", "yes")), RUN,
+         "model.metallicity_errors", also=("true or false",)),
+]
+
+
 def _expand(cases):
     for c in cases:
         for fmt in c.formats:
@@ -113,3 +152,34 @@ def test_good_covariance_tables_load(fmt, tmp_path, capsys):
                            supernova_covariance=run.dir / sn_cov_file)
     sn = data.supernovae.cov
     assert sn[0, 1] == sn[1, 0] == 0.0002 and sn[1, 2] == sn[2, 1] == 0.0001 and sn[0, 0] == 0.0004
+
+
+@pytest.mark.parametrize("fmt", ["ecsv", "csv"])
+def test_oh_err_in_percent_is_a_warning(fmt, tmp_path, capsys):
+    """O/H errors of 5-20 look like percent: a PlausibilityWarning naming the column and rows (--strict: exit 2)."""
+    run = Run(tmp_path / "run", fmt=fmt)
+    _oh_err([0.1] * 18 + [5.0, 20.0])(run)
+    run.write()
+    code, out, err = _run_cli(["check", run.path], capsys)
+    assert code == EXIT_OK, err
+    warn = [ln for ln in err.splitlines() if "warning:" in ln]
+    assert len(warn) == 1 and "'oh_err'" in warn[0] and "data rows 19, 20" in warn[0] and "percent" in warn[0], err
+    code, out, err = _run_cli(["check", "--strict", run.path], capsys)
+    assert code == 2 and "oh_err" in err
+
+
+def test_metallicity_errors_switch_off_ignores_the_column(tmp_path):
+    """[model] metallicity_errors = false: the column is read (and checked) but the model does not use it."""
+    import ladder
+    from ladder.model import model_arrays
+
+    run = Run(tmp_path / "run")
+    _oh_err(0.2)(run)
+    run.write()
+    cfg = ladder.load_run(run.path)
+    data = ladder.load_data(cfg)
+    assert model_arrays(data, cfg.model)[1].oh_errors
+    import dataclasses
+
+    off = dataclasses.replace(cfg.model, metallicity_errors=False)
+    assert not model_arrays(data, off)[1].oh_errors and off.to_dict()["model"]["metallicity_errors"] is False
