@@ -93,6 +93,7 @@ def _parser() -> argparse.ArgumentParser:
          "anchor_covariance.ecsv"),
         ("--oh-err", "E", "1-sigma error in dex of each star's catalogued O/H (default 0); the magnitudes follow the "
          "true O/H, the table gets an oh_err column"),
+        ("--q0", "Q", "true deceleration parameter of the Hubble flow (default -0.55)"),
         ("--sn-heliocentric", "V", "observer's speed relative to the CMB in km/s (default 0); the supernovae table "
          "gets heliocentric redshifts z_hel"),
         ("--sn-systematic", "S", "sd in mag of one offset shared by every calibrator supernova (default 0; needs "
@@ -269,7 +270,7 @@ def _simulate(args) -> int:
         "hubble_flow": ("n_hubble_flow", int), "h0": ("h0", float), "reddening_law": ("reddening_law", str),
         "r_v": ("r_v", float), "anchor_systematic": ("anchor_systematic", float),
         "sn_systematic": ("sn_systematic", float), "oh_err": ("oh_err", float),
-        "sn_heliocentric": ("sn_heliocentric_kms", float),
+        "sn_heliocentric": ("sn_heliocentric_kms", float), "q0": ("q0", float),
         "r_v": ("r_v", float), "metallicity_coef_bands": ("metallicity_coef_bands", tuple),
         "band_scatter": ("band_scatter", tuple), "strip_amplitudes": ("strip_amplitudes", tuple),
     }

@@ -29,6 +29,14 @@ modulus), :math:`e_j = (1, [\text{has bias}])` (a parallax star has no local col
 Hubble-flow SNe :math:`m_k - \mu(z_k; H_0{=}1) = M_\mathrm{SN} - a + \epsilon` (the kinematic modulus is
 :math:`\mu(z; H_0) = \mu(z; 1) - 5\log_{10} H_0`).
 
+Three further pieces keep the block exact. Rows with a covariance table (``[data] anchor_covariance`` /
+``supernova_covariance``, :mod:`ladder.covariance`) have :math:`C = \mathrm{diag}(\sigma^2) + C_\mathrm{table}`;
+they are whitened with its Cholesky factor (:func:`whitened_rows`), and the galaxies they touch are solved together
+with the globals (``dense_slots``). With O/H errors the variance :math:`\gamma^2\sigma_{[\mathrm{O/H}],j}^2` joins
+each star's common offset (:func:`star_offset_var`), so :math:`\gamma` is a hyperparameter whose term moves to the
+data side; with a prior on q0 or j0 the Hubble-flow data move with them (:func:`sn_rows_y`). Exactness then holds
+given these hyperparameters.
+
 Every consumer derives from this one definition: the numpyro models (:mod:`ladder.model`), the exact
 marginal and closed-form solvers (:func:`normal_equations`, :func:`log_marginal`, :func:`conditional_draw`),
 initial values and clipping (:func:`conditional_mean`), residuals and figures (:func:`residuals`).

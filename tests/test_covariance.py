@@ -260,7 +260,7 @@ def test_shared_parts_widen_h0_as_implied(gls_fit):
     expected = np.sqrt(cov0[-1, -1] + ANCHOR_SYS**2 + SN_SYS**2)
     a = 5 * np.log10(np.asarray(result.idata.posterior["h0"]).ravel())
     np.testing.assert_allclose(a.std(), expected, rtol=COV_GLS_SD_RTOL)
-    assert expected / np.sqrt(cov0[-1, -1]) > 1.15  # measured here: sd(a) 0.087 -> 0.106 mag (H0 +-4.0% -> +-4.9%)
+    assert expected / np.sqrt(cov0[-1, -1]) > 1.15  # measured here: sd(a) 0.088 -> 0.108 mag (H0 +-4.0% -> +-5.0%)
 
 
 def test_recovers_truth_with_tables(gls_fit, mock):
