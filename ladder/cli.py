@@ -271,7 +271,7 @@ def _simulate(args) -> int:
         "r_v": ("r_v", float), "anchor_systematic": ("anchor_systematic", float),
         "sn_systematic": ("sn_systematic", float), "oh_err": ("oh_err", float),
         "sn_heliocentric": ("sn_heliocentric_kms", float), "q0": ("q0", float),
-        "r_v": ("r_v", float), "metallicity_coef_bands": ("metallicity_coef_bands", tuple),
+        "metallicity_coef_bands": ("metallicity_coef_bands", tuple),
         "band_scatter": ("band_scatter", tuple), "strip_amplitudes": ("strip_amplitudes", tuple),
     }
     for dest, (key, kind) in fields.items():
