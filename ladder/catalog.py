@@ -260,6 +260,10 @@ def _numbers(table, col, file, unit, *, allow_missing: bool) -> np.ndarray:
                              file=file, key=col)
         if given != target:
             try:
+                # astropy converts between logarithmic units (1 mag = -0.4 dex), but in a catalogue a
+                # magnitude and an abundance are different quantities: only a positive scale is a conversion.
+                if not u.Quantity(1.0, given).to_value(target) > 0:
+                    raise u.UnitConversionError(f"{given} -> {target}")
                 out = (out * given).to_value(target) if not isinstance(target, u.FunctionUnitBase) \
                     else _function_unit(out, given, target)
             except (u.UnitConversionError, TypeError, ValueError):

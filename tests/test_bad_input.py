@@ -209,6 +209,13 @@ def _drop(table, col):
     return f
 
 
+def _column(col, value, unit, table="cepheids"):
+    def f(r: Run):
+        t = getattr(r, table)
+        t[col] = Column(np.full(len(t), value), name=col, unit=unit)
+    return f
+
+
 def _unit(col, unit, table="cepheids"):
     def f(r: Run):
         getattr(r, table)[col].unit = unit
@@ -399,6 +406,8 @@ UNIT_CASES = [
     Case("period-in-metres", _unit("period", u.m), CEP, "period", also=(" m ",), formats=("ecsv",)),
     Case("mag_V-in-jansky", _unit("mag_V", u.Jy), CEP, "mag_V", also=("Jy",), formats=("ecsv",)),
     Case("mag_I_err-in-days", _unit("mag_I_err", u.day), CEP, "mag_I_err", formats=("ecsv",)),
+    # astropy would turn mag into dex (1 mag = -0.4 dex): an abundance labelled mag is a unit mistake
+    Case("oh-in-mag", _column("oh", 8.5, u.mag), CEP, "oh", also=("mag", "dex"), formats=("ecsv",)),
     Case("period-unit-unrecognised", _unit("period", u.Unit("days", parse_strict="silent")), CEP, "period",
          also=("'days'", "not a recognised unit"), formats=("ecsv",)),
 ]
