@@ -87,6 +87,8 @@ def _parser() -> argparse.ArgumentParser:
         ("--band-scatter", "TV,TI,TH", "independent per-band intrinsic scatter in V, I, H in mag (default: none)"),
         ("--strip-amplitudes", "AV,AI,AH", "amplitude of the intrinsic offset in V, I, H (instability strip: a "
                                            "brighter Cepheid is bluer, e.g. 1.8,1.3,0.6; default 1,1,1)"),
+        ("--bias-band-sd", "S", "sd of a per-galaxy, per-band photometric bias in mag (default 0), reported as "
+                                "hosts columns bias_V, bias_V_err, ... (observed = true + bias)"),
         ("--reddening-law", "LAW", "extinction ratios from ccm89 or fitzpatrick99 (default none: fixed ratios)"),
         ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
         ("--anchor-systematic", "S", "sd in mag of one offset shared by every anchor's mu_geo (default 0); writes "
@@ -271,7 +273,7 @@ def _simulate(args) -> int:
         "r_v": ("r_v", float), "anchor_systematic": ("anchor_systematic", float),
         "sn_systematic": ("sn_systematic", float), "oh_err": ("oh_err", float),
         "sn_heliocentric": ("sn_heliocentric_kms", float), "q0": ("q0", float),
-        "metallicity_coef_bands": ("metallicity_coef_bands", tuple),
+        "metallicity_coef_bands": ("metallicity_coef_bands", tuple), "bias_band_sd": ("bias_band_sd", float),
         "band_scatter": ("band_scatter", tuple), "strip_amplitudes": ("strip_amplitudes", tuple),
     }
     for dest, (key, kind) in fields.items():

@@ -86,6 +86,11 @@ class ModelArrays(NamedTuple):
     anchor_cov: np.ndarray = np.zeros((0, 0))  # (n_anchors, n_anchors) covariance table, mag^2; (0, 0): none
     oh_var: np.ndarray = np.zeros(0)  # (n_stars,) oh_err^2, dex^2, when the metallicity term uses it; (0,): none
     sn_cov: np.ndarray = np.zeros((0, 0))  # (n_sn, n_sn) covariance table, mag^2; (0, 0): none
+    # per-band photometric bias (multiband, hosts columns bias_<B>): one entry per (galaxy, fitted band) given
+    band_bias_host: np.ndarray = np.zeros(0, np.int64)  # (n_bb,) galaxy index
+    band_bias_band: np.ndarray = np.zeros(0, np.int64)  # (n_bb,) fitted band (column) index
+    band_bias_mean: np.ndarray = np.zeros(0)
+    band_bias_err: np.ndarray = np.zeros(0)
 
 
 @dataclass(frozen=True)
@@ -116,6 +121,7 @@ class Layout:
 
     n_flow: int = 0
     oh_errors: bool = False  # O/H errors (oh_err) are propagated (ModelArrays.oh_var)
+    band_bias_labels: tuple[str, ...] = ()  # "galaxy[B]" of each per-band bias entry
 
 
 def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays, Layout]:
@@ -186,9 +192,11 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
     star_mu_index[par_stars] = int(has_d.sum()) + np.arange(par_stars.size)
     anchors = np.flatnonzero(data.is_anchor)
 
+    bb = _band_bias_entries(data, settings)
     if settings.photometric_bias:
-        if data.host_bias is None or not np.isfinite(data.host_bias).any():
-            raise InputError("photometric_bias = true but the hosts table has no bias, bias_err values",
+        if (data.host_bias is None or not np.isfinite(data.host_bias).any()) and not bb[0].size:
+            raise InputError("photometric_bias = true but the hosts table has no bias, bias_err values"
+                             + (" (nor bias_<B>, bias_<B>_err of a fitted band)" if settings.multiband else ""),
                              file=data.files.get("hosts", "hosts table"), key="bias")
         bias_host = np.flatnonzero(np.isfinite(data.host_bias_err))
         grouped = [i for i in bias_host if data.is_parallax_group[i]]
@@ -247,6 +255,7 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         oh_var=oh_var,
         sn_z_hel=(np.where(sn_slot < 0, sne.z_hel[sn_keep] if sne.z_hel is not None else sne.z[sn_keep], 1.0)
                   if sne is not None else np.zeros(0)),
+        band_bias_host=bb[0], band_bias_band=bb[1], band_bias_mean=bb[2], band_bias_err=bb[3],
     )
     layout = Layout(
         galaxies=tuple(data.host_names),
@@ -260,8 +269,41 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         input_bands=settings.fitted_bands,
         n_flow=n_flow,
         oh_errors=bool(oh_var.size and np.any(oh_var > 0)),
+        band_bias_labels=tuple(f"{data.host_names[g]}[{settings.fitted_bands[b]}]" for g, b in zip(bb[0], bb[1])),
     )
     return arrays, layout
+
+
+def _band_bias_entries(data: LadderData, settings: ModelSettings):
+    """Per-band photometric biases the model uses (``photometric_bias = true`` in a multiband fit): every
+    (galaxy, fitted band) with ``bias_<B>``, ``bias_<B>_err`` given. Returns (galaxy, band column, mean, err)
+    arrays. A galaxy may give ``bias`` (every band) or ``bias_<B>`` (per band), not both; a parallax group has
+    no single modulus to shift."""
+    empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0), np.zeros(0))
+    if not (settings.photometric_bias and settings.multiband and data.bias_bands):
+        return empty
+    file = data.files.get("hosts", "hosts table")
+    rows = []
+    for jb, b in enumerate(settings.fitted_bands):
+        if b not in data.bias_bands:
+            continue
+        col = data.bias_bands.index(b)
+        for g in np.flatnonzero(np.isfinite(data.band_bias_err[:, col])):
+            rows.append((g, jb, data.band_bias[g, col], data.band_bias_err[g, col]))
+    if not rows:
+        return empty
+    g = np.array([r[0] for r in rows], np.int64)
+    both = sorted({int(i) for i in g if data.host_bias is not None and np.isfinite(data.host_bias[i])})
+    if both:
+        raise InputError("these galaxies give both bias (every band) and bias_<B> (per band): give one of them, "
+                         "else the bias would count twice", file=file, key="bias", rows=both)
+    grouped = sorted({int(i) for i in g if data.is_parallax_group[i]})
+    if grouped:
+        raise InputError("a parallax group has no single modulus, so a photometric bias cannot be applied to it "
+                         "(leave bias_<B>, bias_<B>_err empty on that row)", file=file,
+                         key=f"bias_{data.bias_bands[0]}", rows=grouped)
+    return (g, np.array([r[1] for r in rows], np.int64), np.array([r[2] for r in rows], float),
+            np.array([r[3] for r in rows], float))
 
 
 def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> list[str]:
@@ -757,6 +799,11 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     mu = sample_parameter("mu", settings.prior("mu"), (layout.n_mu,))
     values = {}
     for name in dict.fromkeys(n for n, _ in st.columns):
+        if name == "band_bias":  # per-band photometric bias, prior N(bias_<B>, bias_<B>_err), non-centred
+            idx = np.asarray(st.index(name))
+            z = numpyro.sample("band_bias_z", dist.Normal(0.0, 1.0).expand((idx.size,)))
+            values[name] = numpyro.deterministic("band_bias", lin.prior_mean[idx] + z / jnp.sqrt(lin.prior_prec[idx]))
+            continue
         shape = band_shape if name in settings.band_parameters else ()
         values[name] = sample_parameter(name, settings.prior(name), shape)
     theta_global = pack(st, values)

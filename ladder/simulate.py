@@ -122,7 +122,7 @@ WESENHEIT_BANDS = ("H", "V", "I")
 #: One child random stream per ingredient, in this order (append new ones at the end only).
 _STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise",
             "parallax", "outliers", "host_scatter", "bias", "supernovae", "systematics",
-            "oh_errors", "heliocentric", "bands")
+            "oh_errors", "heliocentric", "bands", "band_bias")
 
 _SPEED_OF_LIGHT_KMS = 299792.458  # exact (SI); same value as ladder.cosmography, which imports JAX
 
@@ -237,6 +237,11 @@ class MockSettings:
         instability strip (at fixed period a brighter Cepheid is bluer: a_V > a_I > a_H). With
         any of them the W truths ``metallicity_coef``, ``scatter`` are those of W = H - R (V - I):
         gamma_W = gamma_H - R (gamma_V - gamma_I), and the W offset is (a_H - R (a_V - a_I)) s_k.
+
+    Per-band photometric bias
+        ``bias_band_sd`` (0.0: off): b_gB ~ N(0, bias_band_sd) per role-"host" galaxy and band,
+        added to that band (observed = true + b_gB); hosts columns ``bias_<B>`` = b_gB +
+        N(0, ``bias_err``) and ``bias_<B>_err`` (truth ``band_bias`` {galaxy: {band: value}}).
 
     Supernovae
         ``n_hubble_flow`` (0: no supernovae) SNe Ia in the Hubble flow, z uniform in ``sn_z``
@@ -354,6 +359,7 @@ class MockSettings:
     metallicity_coef_bands: tuple[float, float, float] | None = None
     band_scatter: tuple[float, float, float] | None = None
     strip_amplitudes: tuple[float, float, float] | None = None
+    bias_band_sd: float = 0.0
 
     def __post_init__(self) -> None:
         for name in ("n_hosts", "n_anchors", "n_cepheids", "min_cepheids"):
@@ -463,6 +469,8 @@ class MockSettings:
         _range("sn_mag_err", self.sn_mag_err, positive=True)
         if self.sn_systematic > 0 and not self.n_hubble_flow:
             raise ValueError("sn_systematic needs supernovae (n_hubble_flow > 0)")
+        if finite("bias_band_sd", self.bias_band_sd) < 0:
+            raise ValueError(f"bias_band_sd must be >= 0, got {self.bias_band_sd!r}")
         for name in ("metallicity_coef_bands", "band_scatter", "strip_amplitudes"):
             v = getattr(self, name)
             if v is None:
@@ -836,6 +844,13 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     band_offset = np.zeros((n_star_all, len(BANDS)))
     if s.band_scatter is not None:
         band_offset = np.asarray(s.band_scatter, float)[None, :] * rng["bands"].standard_normal((n_star_all, len(BANDS)))
+    band_bias_true = None
+    if s.bias_band_sd > 0:  # per galaxy and band, hosts only: observed = true + bias
+        band_bias_true = np.where(is_host_gal[:, None], s.bias_band_sd * rng["band_bias"].standard_normal((n_all, len(BANDS))),
+                                  0.0)
+        band_bias_meas = band_bias_true + (s.bias_err * rng["band_bias"].standard_normal(band_bias_true.shape)
+                                           if s.noise else 0.0)
+        band_offset = band_offset + band_bias_true[g_of]
     mag = np.empty((n_star_all, len(BANDS)))
     for j, b in enumerate(BANDS):
         zp, slope = pl[b]
@@ -882,6 +897,12 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     if bias_true is not None:
         hosts["bias"] = MaskedColumn(np.where(is_host_gal, bias_meas, 0.0), mask=~is_host_gal, unit=u.mag)
         hosts["bias_err"] = MaskedColumn(np.where(is_host_gal, s.bias_err, 0.0), mask=~is_host_gal, unit=u.mag)
+
+    if band_bias_true is not None:
+        for j, b in enumerate(BANDS):
+            hosts[f"bias_{b}"] = MaskedColumn(np.where(is_host_gal, band_bias_meas[:, j], 0.0), mask=~is_host_gal,
+                                              unit=u.mag)
+            hosts[f"bias_{b}_err"] = MaskedColumn(np.where(is_host_gal, s.bias_err, 0.0), mask=~is_host_gal, unit=u.mag)
 
     latent = Table()
     latent["star"] = Column(stars, dtype=str)
@@ -966,6 +987,9 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
             truth.update(sn_systematic=float(s.sn_systematic), sn_offset=delta_s)
     if s.oh_err > 0:
         truth["oh_err"] = float(s.oh_err)
+    if band_bias_true is not None:
+        truth["band_bias"] = {all_names[g]: dict(zip(BANDS, (float(x) for x in band_bias_true[g]))) for g in range(n_all)}
+        truth["bias_band_sd"] = float(s.bias_band_sd)
     if s.metallicity_coef_bands is not None:
         g = dict(zip(BANDS, (float(x) for x in s.metallicity_coef_bands)))
         truth["metallicity_coef_bands"] = g

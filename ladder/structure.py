@@ -231,6 +231,9 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
         if spec.dist == "uniform":
             bounds.append((name, spec.get("low"), spec.get("high")))
         columns += [(name, b) for b in range(nb)] if per_band and band_shaped else [(name, None)]
+    # per-band photometric biases (multiband): one column per (galaxy, band) entry, prior N(bias_<B>, bias_<B>_err)
+    bb_host = np.asarray(getattr(arrays, "band_bias_host", np.zeros(0, np.int64)))
+    columns += [("band_bias", i) for i in range(bb_host.size)]
     n_local = 2 if settings.photometric_bias else 1
     mu_index0 = np.asarray(arrays.star_mu_index)
     slot0 = np.where(mu_index0 >= layout.n_mu, layout.n_mu, mu_index0)
@@ -266,8 +269,14 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     base_of = {"pl_zero_point": pl(1.0, 0.0, 0.0), "pl_slope": pl(0.0, 1.0, 0.0), "pl_slope_long": pl(0.0, 0.0, 1.0),
                "metallicity_coef": oh, "sn_abs_mag": np.zeros(n), "h0": np.zeros(n)}
 
+    dist_slot = {g: i for i, g in enumerate(layout.distance_galaxies)}
+    bb_slot = np.array([dist_slot[layout.galaxies[g]] for g in bb_host], np.int64)
+    bb_band = np.asarray(getattr(arrays, "band_bias_band", np.zeros(0, np.int64)))
+
     def regressor(name, b):
         """(N, k) values of one global parameter's regressor in the Cepheid rows."""
+        if name == "band_bias":  # 1 for the stars of entry b's galaxy in entry b's band
+            return ((slot0 == bb_slot[b])[:, None] & (np.arange(k) == bb_band[b])[None, :]).astype(float)
         hit = np.ones((n, k)) if b is None else (band_of_col[None, :] == b) * np.ones((n, 1))
         return hit * base_of[name][:, None]
 
@@ -314,9 +323,12 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
 
     p = len(columns)
     pm, pp, tilt = np.zeros(p), np.zeros(p), np.zeros(p)
-    for i, (name, _) in enumerate(columns):
+    for i, (name, b) in enumerate(columns):
         if name == "h0":
             tilt[i] = HUBBLE_TILT if settings.prior("h0").dist == "uniform" else 0.0
+            continue
+        if name == "band_bias":
+            pm[i], pp[i] = float(arrays.band_bias_mean[b]), 1.0 / float(arrays.band_bias_err[b]) ** 2
             continue
         pm[i], pp[i], _ = _linear_prior(settings.prior(name))
 
@@ -768,7 +780,7 @@ def unpack(structure: Structure, theta_global) -> dict:
         if name == "h0":
             out[name] = 10.0 ** (v[..., 0] / 5.0)
         else:
-            out[name] = v if name in structure.band_params else v[..., 0]
+            out[name] = v if name in structure.band_params or name == "band_bias" else v[..., 0]
     for name, value in structure.fixed:
         out.setdefault(name, jnp.asarray(value))
     return out

@@ -316,6 +316,16 @@ def _bias(bias, bias_err):
     return f
 
 
+def _band_bias(band, bias, bias_err):
+    """Add the hosts' per-band bias columns bias_<band>, bias_<band>_err (as :func:`_bias`)."""
+    def f(r: Run):
+        for name, values in ((f"bias_{band}", bias), (f"bias_{band}_err", bias_err)):
+            if values is not None:
+                r.hosts[name] = MaskedColumn([0.0 if v is None else v for v in values], name=name, unit=u.mag,
+                                             mask=[v is None for v in values])
+    return f
+
+
 def _sn_table(rows=SUPERNOVAE):
     """Give the run a supernovae table ([data] supernovae)."""
     def f(r: Run):
@@ -480,6 +490,14 @@ FULL_LADDER_CASES = [
          also=("together",)),
     Case("bias-non-numeric", _both(_bias([0.01, 0.0], [MAG_ERR, MAG_ERR]), _text_cell("bias", 0, "none", "hosts")),
          HOST, "bias", rows=(1,), also=("'none'",)),
+    Case("bias_V-without-bias_V_err-column", _band_bias("V", [0.01, 0.0], None), HOST, "bias_V_err",
+         also=("bias_V",)),
+    Case("bias_V_err-without-bias_V-column", _band_bias("V", None, [MAG_ERR, MAG_ERR]), HOST, "bias_V"),
+    Case("bias_V_err-zero", _band_bias("V", [0.01, 0.0], [MAG_ERR, 0.0]), HOST, "bias_V_err", rows=(2,),
+         also=("> 0",)),
+    Case("bias-and-bias_V-on-one-galaxy",
+         _both(_MULTIBAND, _WAVELENGTHS, _doc("model.photometric_bias", True), _bias([0.01, None], [MAG_ERR, None]),
+               _band_bias("V", [0.02, None], [MAG_ERR, None])), HOST, "bias", rows=(1,), also=("bias_<B>", "twice")),
     Case("photometric_bias-without-bias-columns", _doc("model.photometric_bias", True), HOST, "bias",
          also=("photometric_bias",)),
     Case("photometric_bias-with-empty-bias-columns",

@@ -45,6 +45,7 @@ MODES = {
     "multiband + per-galaxy mixture": ({"extinction": "multiband", "outliers": "mixture",
                                         "outlier_fraction_model": "per_galaxy"}, {}),
     "multiband, per-band metallicity": ({"extinction": "multiband", "metallicity_per_band": True}, {}),
+    "multiband, per-band bias": ({"extinction": "multiband", "photometric_bias": True}, {"bias_band_sd": 0.05}),
     "multiband, per-band scatter + amplitudes + mixture": ({"extinction": "multiband", "scatter_bands": True,
                                                             "offset_amplitudes": True, "outliers": "mixture"}, {}),
 }
@@ -96,6 +97,8 @@ def _random_point(rng, data, settings, layout):
             v["r_v"] = rng.uniform(2.5, 3.8)
     if layout.bias_galaxies:
         v["photometric_bias_z"] = rng.normal(0, 1, len(layout.bias_galaxies))
+    if layout.band_bias_labels:
+        v["band_bias_z"] = rng.normal(0, 1, len(layout.band_bias_labels))
     if layout.parallax_stars:
         n = len(layout.parallax_stars)
         v["parallax_star_u"], v["parallax_offset"] = rng.normal(0, 1, n), rng.normal(0, 0.02)
@@ -135,6 +138,15 @@ def _reference(v, data, settings, layout):
         for z, g in zip(v["photometric_bias_z"], layout.bias_galaxies):
             i = data.host_names.index(g)
             bias[i] = data.host_bias[i] + data.host_bias_err[i] * z
+    band_bias = np.zeros((n_gal, len(settings.fitted_bands)))
+    if "band_bias_z" in v:  # one per (galaxy, band) with bias_<B>: prior N(bias_<B>, bias_<B>_err), standardised
+        lp += N(v["band_bias_z"], 0, 1).sum()
+        k = 0
+        for jb, b in enumerate(settings.fitted_bands):  # entries in band order, galaxies in table order
+            col = data.bias_bands.index(b)
+            for i in np.flatnonzero(np.isfinite(data.band_bias_err[:, col])):
+                band_bias[i, jb] = data.band_bias[i, col] + data.band_bias_err[i, col] * v["band_bias_z"][k]
+                k += 1
     f = None
     if "outlier_fraction" in v:
         f = np.full(n_gal, v["outlier_fraction"])
@@ -158,7 +170,8 @@ def _reference(v, data, settings, layout):
     zp = np.broadcast_to(v["pl_zero_point"], (len(bands),))
     sl = np.broadcast_to(v["pl_slope"], (len(bands),))
     gamma = np.broadcast_to(v["metallicity_coef"], (len(bands),))
-    pred0 = zp[None, :] + sl[None, :] * x[:, None] + gamma[None, :] * oh[:, None] + bias[data.star_host][:, None]
+    pred0 = zp[None, :] + sl[None, :] * x[:, None] + gamma[None, :] * oh[:, None] + bias[data.star_host][:, None] \
+        + band_bias[data.star_host]
     tau = tau if tau.size else np.zeros(len(bands))
     alpha = alpha if alpha.size else np.ones(len(bands))
     star_mu = np.array([mu_of.get(data.host_names[h], np.nan) for h in data.star_host])
