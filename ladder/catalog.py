@@ -42,6 +42,8 @@ class LadderData:
     oh : ndarray (n_stars,), dex; the star's own value, else its host's, else NaN
     parallax, parallax_err : ndarray (n_stars,), mas; stars of ``parallax`` groups only (NaN elsewhere)
     host_bias, host_bias_err : ndarray (n_hosts,), mag; photometric bias estimates (NaN where not given)
+    bias_bands : tuple of str; band_bias, band_bias_err : ndarray (n_hosts, len(bias_bands)), mag: per-band
+        photometric bias estimates (columns ``bias_<B>``, ``bias_<B>_err``; NaN where not given)
     supernovae : SupernovaData or None
     files : dict, role of each input ('cepheids', 'hosts') -> path
     """
@@ -66,6 +68,9 @@ class LadderData:
     host_bias_err: np.ndarray | None = None
     supernovae: object | None = None  # ladder.supernovae.SupernovaData
     anchor_cov: np.ndarray | None = None  # (n_hosts, n_hosts), mag^2: [data] anchor_covariance (0 off the anchors)
+    bias_bands: tuple[str, ...] = ()  # bands with per-band bias columns bias_<B>, bias_<B>_err in the hosts table
+    band_bias: np.ndarray | None = None  # (n_hosts, len(bias_bands)), mag; NaN where not given
+    band_bias_err: np.ndarray | None = None
     oh_err: np.ndarray | None = None  # (n_stars,), dex: 1-sigma error of oh (0 where empty); None: no column
 
     @property
@@ -260,6 +265,10 @@ def _numbers(table, col, file, unit, *, allow_missing: bool) -> np.ndarray:
                              file=file, key=col)
         if given != target:
             try:
+                # astropy converts between logarithmic units (1 mag = -0.4 dex), but in a catalogue a
+                # magnitude and an abundance are different quantities: only a positive scale is a conversion.
+                if not u.Quantity(1.0, given).to_value(target) > 0:
+                    raise u.UnitConversionError(f"{given} -> {target}")
                 out = (out * given).to_value(target) if not isinstance(target, u.FunctionUnitBase) \
                     else _function_unit(out, given, target)
             except (u.UnitConversionError, TypeError, ValueError):
@@ -339,6 +348,30 @@ def _read_hosts(path: Path):
     return t, names, roles, geo["mu_geo"], geo["mu_geo_err"], oh, bias, bias_err, findings
 
 
+def _band_biases(t, file):
+    """Per-band bias columns ``bias_<B>``, ``bias_<B>_err`` of the hosts table (each pair as :func:`_optional_pair`):
+    ``(bands, values (n, k), errors (n, k))``."""
+    n = len(t)
+    bands = []
+    for c in t.colnames:
+        m = re.fullmatch(r"bias_(.+)", c)
+        if m and m.group(1) != "err" and not m.group(1).endswith("_err"):
+            bands.append(m.group(1))
+    for c in t.colnames:  # an error column without its value column
+        m = re.fullmatch(r"bias_(.+)_err", c)
+        if m and m.group(1) not in bands:
+            raise InputError(f"column {c} needs its companion column bias_{m.group(1)}", file=file,
+                             key=f"bias_{m.group(1)}")
+    vals, errs = [], []
+    for b in bands:
+        v, e = _optional_pair(t, f"bias_{b}", f"bias_{b}_err", file, n)
+        vals.append(v)
+        errs.append(e)
+    if not bands:
+        return (), None, None
+    return tuple(bands), np.stack(vals, axis=1), np.stack(errs, axis=1)
+
+
 def _optional_pair(t, col, err_col, file, n, unit="mag"):
     """Optional value/error columns: both or neither; NaN where empty; errors > 0 where given."""
     if col not in t.colnames and err_col not in t.colnames:
@@ -412,7 +445,8 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
         naming the file, the column and the first offending rows.
     """
     hosts, cepheids = Path(hosts), Path(cepheids)
-    _, hnames, roles, mu_geo, mu_geo_err, host_oh, bias, bias_err, host_findings = _read_hosts(hosts)
+    host_table, hnames, roles, mu_geo, mu_geo_err, host_oh, bias, bias_err, host_findings = _read_hosts(hosts)
+    bias_bands, band_bias, band_bias_err = _band_biases(host_table, str(hosts))
     file = str(cepheids)
     t = read_table(cepheids)
     _require(t, ["star", "host", "period"], file)
@@ -509,5 +543,6 @@ def load_catalogues(cepheids: str | Path, hosts: str | Path, supernovae: str | P
         star_names=tuple(stars), star_host=star_host, log_period=np.log10(period), bands=tuple(bands),
         mag=mag, mag_err=err, oh=oh, files=files,
         star_rows=np.arange(len(t)), parallax=parallax, parallax_err=parallax_err, host_bias=bias,
-        host_bias_err=bias_err, supernovae=sne, anchor_cov=anchor_cov, oh_err=oh_err,
+        host_bias_err=bias_err, supernovae=sne, anchor_cov=anchor_cov, oh_err=oh_err, bias_bands=bias_bands,
+        band_bias=band_bias, band_bias_err=band_bias_err,
     )

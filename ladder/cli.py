@@ -81,6 +81,14 @@ def _parser() -> argparse.ArgumentParser:
         ("--bias-sd", "S", "sd of the per-galaxy photometric bias in mag (default 0); the bias the catalogue has: observed = true + bias (positive = measured too faint), the same in every band and so in W"),
         ("--hubble-flow", "N", "supernovae in the Hubble flow, plus one per host galaxy (default 0: none)"),
         ("--h0", "H", "true Hubble constant in km/s/Mpc (default 68.5, invented)"),
+        ("--metallicity-coef-bands", "GV,GI,GH", "one metallicity coefficient per band V, I, H in mag/dex (default: "
+                                                 "the W value in every band; a negative first value needs the = form, "
+                                                 "--metallicity-coef-bands=-0.3,-0.2,-0.1)"),
+        ("--band-scatter", "TV,TI,TH", "independent per-band intrinsic scatter in V, I, H in mag (default: none)"),
+        ("--strip-amplitudes", "AV,AI,AH", "amplitude of the intrinsic offset in V, I, H (instability strip: a "
+                                           "brighter Cepheid is bluer, e.g. 1.8,1.3,0.6; default 1,1,1)"),
+        ("--bias-band-sd", "S", "sd of a per-galaxy, per-band photometric bias in mag (default 0), reported as "
+                                "hosts columns bias_V, bias_V_err, ... (observed = true + bias)"),
         ("--reddening-law", "LAW", "extinction ratios from ccm89 or fitzpatrick99 (default none: fixed ratios)"),
         ("--r-v", "R", "R_V = A_V / E(B-V) (default 3.1)"),
         ("--anchor-systematic", "S", "sd in mag of one offset shared by every anchor's mu_geo (default 0); writes "
@@ -265,6 +273,8 @@ def _simulate(args) -> int:
         "r_v": ("r_v", float), "anchor_systematic": ("anchor_systematic", float),
         "sn_systematic": ("sn_systematic", float), "oh_err": ("oh_err", float),
         "sn_heliocentric": ("sn_heliocentric_kms", float), "q0": ("q0", float),
+        "metallicity_coef_bands": ("metallicity_coef_bands", tuple), "bias_band_sd": ("bias_band_sd", float),
+        "band_scatter": ("band_scatter", tuple), "strip_amplitudes": ("strip_amplitudes", tuple),
     }
     for dest, (key, kind) in fields.items():
         text = getattr(args, dest)
@@ -273,6 +283,15 @@ def _simulate(args) -> int:
         flag = "--" + dest.replace("_", "-")
         if kind is str:
             changes[key] = None if text.strip().lower() == "none" else text.strip().lower()
+            continue
+        if kind is tuple:  # one number per band V, I, H, comma-separated
+            try:
+                values = tuple(float(x) for x in text.split(","))
+            except ValueError:
+                raise InputError(f"needs three comma-separated numbers (V, I, H), got {text!r}", key=flag) from None
+            if len(values) != 3 or not all(math.isfinite(v) for v in values):
+                raise InputError(f"needs three finite comma-separated numbers (V, I, H), got {text!r}", key=flag)
+            changes[key] = values
             continue
         try:
             value = kind(text)

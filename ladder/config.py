@@ -117,6 +117,7 @@ DEFAULT_PRIORS: dict[str, PriorSpec] = {
     "outlier_fraction": _p("uniform", low=0.0, high=0.5),
     "outlier_fraction_spread": _p("halfnormal", scale=1.0),
     "band_scatter": _p("halfnormal", scale=0.2),
+    "offset_log_amplitude": _p("normal", loc=0.0, scale=0.5),
     "h0": _p("uniform", low=20.0, high=150.0),
     "sn_abs_mag": _p("normal", loc=-19.3, scale=1.0),
     "sn_scatter": _p("halfnormal", scale=0.3),
@@ -222,6 +223,7 @@ class ModelSettings:
     outlier_component: str = "broad"  # "broad" (symmetric, extra sd outlier_width) | "blend" (brighter, mean width)
     metallicity_per_band: bool = False  # [model] metallicity = "per_band" (multiband: one gamma per band)
     scatter_bands: bool = False  # multiband: an independent per-band intrinsic scatter besides the common offset
+    offset_amplitudes: bool = False  # multiband: the common offset enters band B as alpha_B s (instability strip)
     metallicity_errors: bool = True  # [model] metallicity_errors: use the cepheids' oh_err column when it is there
     clip_sigma: float = 3.0
     photometric_bias: bool = False
@@ -247,6 +249,15 @@ class ModelSettings:
         return self.multiband or (self.wesenheit is not None and self.wesenheit.from_law)
 
     @property
+    def band_parameters(self) -> tuple[str, ...]:
+        """Linear parameters with one value per fitted band: the PL parameters in a multiband fit, and the
+        metallicity coefficient with ``metallicity = "per_band"``. The one rule every consumer uses."""
+        if not self.multiband:
+            return ()
+        return ("pl_zero_point", "pl_slope", "pl_slope_long") + (("metallicity_coef",) if self.metallicity_per_band
+                                                                  else ())
+
+    @property
     def fitted_bands(self) -> tuple[str, ...]:
         """Bands whose magnitudes the model reads."""
         if self.multiband:
@@ -268,6 +279,8 @@ class ModelSettings:
             d["outlier_component"] = self.outlier_component
         if self.scatter_bands:
             d["scatter_bands"] = True
+        if self.offset_amplitudes:
+            d["offset_amplitudes"] = True
         if not self.metallicity_errors:
             d["metallicity_errors"] = False
         if self.multiband:
@@ -646,7 +659,7 @@ def _parse_bands(sec: _Section | None) -> tuple[tuple[str, float], ...]:
 _MODEL_KEYS = {"band", "bands", "metallicity", "solar_oh", "wesenheit", "priors", "extinction", "scatter", "outliers",
                "outlier_width", "clip_sigma", "photometric_bias", "pl_break", "pl_break_period", "reddening",
                "parallax", "supernovae", "outlier_fraction", "outlier_component", "scatter_bands",
-               "metallicity_errors"}
+               "offset_amplitudes", "metallicity_errors"}
 
 
 def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
@@ -701,6 +714,10 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
     if scatter_bands and extinction != "multiband":
         raise InputError("scatter_bands = true adds a per-band intrinsic scatter to the fit of several bands: it "
                          "needs extinction = \"multiband\"", file=sec.file, key="model.scatter_bands")
+    offset_amplitudes = sec.get("offset_amplitudes", bool, False)
+    if offset_amplitudes and extinction != "multiband":
+        raise InputError("offset_amplitudes = true gives the intrinsic offset one amplitude per fitted band: it needs "
+                         "extinction = \"multiband\"", file=sec.file, key="model.offset_amplitudes")
     outliers = _choice(sec, "outliers", OUTLIER_MODES)
     fraction_model = _choice(sec, "outlier_fraction", OUTLIER_FRACTION_MODES)
     component = _choice(sec, "outlier_component", OUTLIER_COMPONENTS)
@@ -719,6 +736,7 @@ def _parse_model(sec: _Section | None, wavelengths=()) -> ModelSettings:
         metallicity=bool(metallicity),
         metallicity_per_band=metallicity == "per_band",
         scatter_bands=scatter_bands,
+        offset_amplitudes=offset_amplitudes,
         metallicity_errors=sec.get("metallicity_errors", bool, True),
         outlier_fraction_model=fraction_model,
         outlier_component=component,

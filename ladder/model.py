@@ -21,7 +21,9 @@ stars) and :math:`M_B(P)` the PL relation (optionally broken). Each piece is a t
 Symbols ↔ output names: :math:`\mu_i` ``mu`` (dim ``host``), :math:`M_B` ``pl_zero_point``, :math:`b` ``pl_slope``,
 :math:`b_\mathrm{long}` ``pl_slope_long``, :math:`\gamma` ``metallicity_coef``, :math:`\sigma_\mathrm{int}`
 ``scatter`` (per galaxy: ``host_scatter``, spread ``scatter_spread``), :math:`\tau_B` ``band_scatter``
-(``scatter_bands``: an independent per-band part of the intrinsic scatter), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
+(``scatter_bands``: an independent per-band part of the intrinsic scatter), :math:`\alpha_B` ``offset_amplitude``
+(``offset_amplitudes``: :math:`s_j` enters band B as :math:`\alpha_B s_j`), :math:`\gamma_B` ``metallicity_coef``
+with dim ``band`` (``metallicity = "per_band"``), :math:`R` ``wesenheit_r``, :math:`R_V` ``r_v``,
 :math:`E(B-V)_j` ``ebv`` (galaxy mean ``ebv_mean``), :math:`\beta_i` ``photometric_bias``, :math:`f`
 ``outlier_fraction`` (per galaxy ``host_outlier_fraction``, logit spread ``outlier_fraction_spread``), :math:`\varpi_0` ``parallax_offset``, :math:`H_0` ``h0``, :math:`M_\mathrm{SN}` ``sn_abs_mag``,
 :math:`\sigma_\mathrm{SN}` ``sn_scatter``.
@@ -43,13 +45,14 @@ from .config import ModelSettings, PriorSpec
 from .errors import InputError
 
 __all__ = ["ModelArrays", "Layout", "model_arrays", "ModelParts", "model_parts", "fitted_data", "marginal_model",
-           "full_model", "star_logpdf", "pointwise", "theta_from_params", "GLOBAL_PARAMETERS", "global_parameters",
+           "star_variances", "band_noise_from_params", "full_model", "star_logpdf", "pointwise", "theta_from_params", "GLOBAL_PARAMETERS", "global_parameters",
            "DERIVED_PER_STAR", "star_residuals", "wesenheit_ratio_value"]
 
 #: Global parameters in output order (vector-valued ones get one row per band).
 GLOBAL_PARAMETERS = ("pl_zero_point", "pl_slope", "pl_slope_long", "metallicity_coef", "scatter", "scatter_spread",
-                     "band_scatter", "wesenheit_r", "r_v", "outlier_fraction", "outlier_fraction_spread",
-                     "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag", "sn_scatter", "q0", "j0")
+                     "band_scatter", "offset_amplitude", "wesenheit_r", "r_v", "outlier_fraction",
+                     "outlier_fraction_spread", "parallax_offset", "parallax_length_scale", "h0", "sn_abs_mag",
+                     "sn_scatter", "q0", "j0")
 #: Per-star deterministic quantities recorded for summaries, not diagnosed as parameters.
 DERIVED_PER_STAR = ("outlier_prob", "ebv")
 
@@ -83,6 +86,11 @@ class ModelArrays(NamedTuple):
     anchor_cov: np.ndarray = np.zeros((0, 0))  # (n_anchors, n_anchors) covariance table, mag^2; (0, 0): none
     oh_var: np.ndarray = np.zeros(0)  # (n_stars,) oh_err^2, dex^2, when the metallicity term uses it; (0,): none
     sn_cov: np.ndarray = np.zeros((0, 0))  # (n_sn, n_sn) covariance table, mag^2; (0, 0): none
+    # per-band photometric bias (multiband, hosts columns bias_<B>): one entry per (galaxy, fitted band) given
+    band_bias_host: np.ndarray = np.zeros(0, np.int64)  # (n_bb,) galaxy index
+    band_bias_band: np.ndarray = np.zeros(0, np.int64)  # (n_bb,) fitted band (column) index
+    band_bias_mean: np.ndarray = np.zeros(0)
+    band_bias_err: np.ndarray = np.zeros(0)
 
 
 @dataclass(frozen=True)
@@ -113,6 +121,7 @@ class Layout:
 
     n_flow: int = 0
     oh_errors: bool = False  # O/H errors (oh_err) are propagated (ModelArrays.oh_var)
+    band_bias_labels: tuple[str, ...] = ()  # "galaxy[B]" of each per-band bias entry
 
 
 def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays, Layout]:
@@ -155,6 +164,10 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
                 raise InputError("O/H errors (oh_err) are propagated through one metallicity coefficient; with "
                                  "metallicity = \"per_band\" they are not supported (set [model] metallicity_errors "
                                  "= false, or metallicity = true)", file=file, key="oh_err")
+            if settings.offset_amplitudes:  # the O/H variance is shared equally by the bands, not by amplitudes
+                raise InputError("O/H errors (oh_err) add a variance every band shares equally; with "
+                                 "offset_amplitudes = true they are not supported (set [model] metallicity_errors "
+                                 "= false, or offset_amplitudes = false)", file=file, key="oh_err")
             oh_var = np.asarray(data.oh_err, float) ** 2
     else:
         oh = np.zeros(data.n_stars)
@@ -179,9 +192,11 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
     star_mu_index[par_stars] = int(has_d.sum()) + np.arange(par_stars.size)
     anchors = np.flatnonzero(data.is_anchor)
 
+    bb = _band_bias_entries(data, settings)
     if settings.photometric_bias:
-        if data.host_bias is None or not np.isfinite(data.host_bias).any():
-            raise InputError("photometric_bias = true but the hosts table has no bias, bias_err values",
+        if (data.host_bias is None or not np.isfinite(data.host_bias).any()) and not bb[0].size:
+            raise InputError("photometric_bias = true but the hosts table has no bias, bias_err values"
+                             + (" (nor bias_<B>, bias_<B>_err of a fitted band)" if settings.multiband else ""),
                              file=data.files.get("hosts", "hosts table"), key="bias")
         bias_host = np.flatnonzero(np.isfinite(data.host_bias_err))
         grouped = [i for i in bias_host if data.is_parallax_group[i]]
@@ -240,6 +255,7 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         oh_var=oh_var,
         sn_z_hel=(np.where(sn_slot < 0, sne.z_hel[sn_keep] if sne.z_hel is not None else sne.z[sn_keep], 1.0)
                   if sne is not None else np.zeros(0)),
+        band_bias_host=bb[0], band_bias_band=bb[1], band_bias_mean=bb[2], band_bias_err=bb[3],
     )
     layout = Layout(
         galaxies=tuple(data.host_names),
@@ -253,8 +269,41 @@ def model_arrays(data: LadderData, settings: ModelSettings) -> tuple[ModelArrays
         input_bands=settings.fitted_bands,
         n_flow=n_flow,
         oh_errors=bool(oh_var.size and np.any(oh_var > 0)),
+        band_bias_labels=tuple(f"{data.host_names[g]}[{settings.fitted_bands[b]}]" for g, b in zip(bb[0], bb[1])),
     )
     return arrays, layout
+
+
+def _band_bias_entries(data: LadderData, settings: ModelSettings):
+    """Per-band photometric biases the model uses (``photometric_bias = true`` in a multiband fit): every
+    (galaxy, fitted band) with ``bias_<B>``, ``bias_<B>_err`` given. Returns (galaxy, band column, mean, err)
+    arrays. A galaxy may give ``bias`` (every band) or ``bias_<B>`` (per band), not both; a parallax group has
+    no single modulus to shift."""
+    empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0), np.zeros(0))
+    if not (settings.photometric_bias and settings.multiband and data.bias_bands):
+        return empty
+    file = data.files.get("hosts", "hosts table")
+    rows = []
+    for jb, b in enumerate(settings.fitted_bands):
+        if b not in data.bias_bands:
+            continue
+        col = data.bias_bands.index(b)
+        for g in np.flatnonzero(np.isfinite(data.band_bias_err[:, col])):
+            rows.append((g, jb, data.band_bias[g, col], data.band_bias_err[g, col]))
+    if not rows:
+        return empty
+    g = np.array([r[0] for r in rows], np.int64)
+    both = sorted({int(i) for i in g if data.host_bias is not None and np.isfinite(data.host_bias[i])})
+    if both:
+        raise InputError("these galaxies give both bias (every band) and bias_<B> (per band): give one of them, "
+                         "else the bias would count twice", file=file, key="bias", rows=both)
+    grouped = sorted({int(i) for i in g if data.is_parallax_group[i]})
+    if grouped:
+        raise InputError("a parallax group has no single modulus, so a photometric bias cannot be applied to it "
+                         "(leave bias_<B>, bias_<B>_err empty on that row)", file=file,
+                         key=f"bias_{data.bias_bands[0]}", rows=grouped)
+    return (g, np.array([r[1] for r in rows], np.int64), np.array([r[2] for r in rows], float),
+            np.array([r[3] for r in rows], float))
 
 
 def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> list[str]:
@@ -267,6 +316,7 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
         "metallicity_coef": settings.metallicity, "scatter": True,
         "scatter_spread": settings.scatter_model == "per_host",
         "band_scatter": settings.scatter_bands,
+        "offset_amplitude": settings.offset_amplitudes,
         "wesenheit_r": False,  # R is fixed in every model (an uncertain R is refused by the run-file parser)
         "r_v": settings.needs_law and settings.reddening.free,
         "outlier_fraction": settings.outliers == "mixture",
@@ -280,7 +330,7 @@ def global_parameters(settings: ModelSettings, layout: Layout | None = None) -> 
     for name in GLOBAL_PARAMETERS:
         if not wanted[name]:
             continue
-        if name in ("wesenheit_r", "r_v", "parallax_length_scale", "q0", "j0") or \
+        if name in ("wesenheit_r", "r_v", "parallax_length_scale", "offset_amplitude", "q0", "j0") or \
                 settings.prior(name).dist != "fixed":
             names.append(name)
     return names
@@ -549,7 +599,34 @@ def _photometric_modulus(resid0, var, mask, a=None):
     return jnp.where(ok, (s2 * t0 - s1 * t1) / safe, plain), jnp.where(ok, s2 / safe, plain_var)
 
 
-def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, outliers=True):
+def star_variances(parts: ModelParts, band_scatter=None):
+    """(N, k) variances of the fitted magnitudes: photometric, plus the per-band intrinsic part with
+    ``scatter_bands`` (:func:`ladder.terms.noise.band_variances`)."""
+    from .terms.noise import band_variances
+
+    return parts.lin.var if band_scatter is None else band_variances(parts.lin.var, band_scatter[None, :])
+
+
+def _band_noise(parts: ModelParts, resid, extinction, band_noise):
+    """Residuals, variances, extinction and log Jacobian with the per-band noise terms applied: the per-band
+    scatter (:func:`ladder.terms.noise.band_variances`) and the offset amplitudes
+    (:func:`ladder.terms.noise.amplitude_scaled`). ``band_noise`` = ``(band_scatter, amplitude)``, each (k,) or
+    None."""
+    import jax
+
+    from .terms.noise import amplitude_scaled
+
+    tau, amp = band_noise if band_noise is not None else (None, None)
+    var, logjac = star_variances(parts, tau), 0.0
+    if amp is not None:
+        resid, var, logjac = jax.vmap(amplitude_scaled, in_axes=(0, 0, 0, None))(resid, var, parts.lin.mask, amp)
+        if extinction is not None:
+            extinction = (extinction[0] / amp, extinction[1])
+    return resid, var, extinction, logjac
+
+
+def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, outliers=True,
+                    band_noise=None):
     """(N,) log densities of every star under the core and (with ``outliers``) the outlier component: the
     broad Normal (offset variance + outlier_width^2) or the one-sided blend
     (:func:`ladder.terms.outliers.blend_logpdf`). ``(core, other or None)``."""
@@ -558,42 +635,46 @@ def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_va
     from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf
     from .terms.outliers import blend_logpdf
 
-    var, mask = parts.lin.var, parts.lin.mask
+    resid, var, extinction, logjac = _band_noise(parts, resid, extinction, band_noise)
+    mask = parts.lin.mask
     if extinction is None:
         dens = lambda s2: jax.vmap(common_offset_normal_logpdf)(resid, var, mask, s2)  # noqa: E731
     else:
         a, rate = extinction
         dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
             resid, var, mask, s2, a, rate)
-    core = dens(offset_var)
+    core = dens(offset_var) + logjac
     if not outliers:
         return core, None
     if settings.outlier_component == "blend":  # one fitted magnitude only (the run-file parser refuses multiband)
         other = jax.vmap(blend_logpdf, in_axes=(0, 0, 0, 0, None))(resid, var, mask, offset_var,
                                                                    settings.outlier_width)
     else:
-        other = dens(offset_var + settings.outlier_width**2)
+        other = dens(offset_var + settings.outlier_width**2) + logjac
     return core, other
 
 
-def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None):
+def star_logpdf(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None, fraction=None,
+                band_noise=None):
     r"""(N,) log density of each Cepheid's magnitudes given its residuals (N, k): the common-offset Normal
     (:func:`ladder.terms.noise.common_offset_normal_logpdf`), with E(B-V) integrated out when ``extinction``
     = ``(a, rate)`` (:func:`ladder.terms.noise.reddened_star_logpdf`), and the outlier mixture
     (:func:`ladder.terms.outliers.mixture_logpdf`; outlier component broad or blend) when ``fraction`` (a scalar
-    or one per star) is given. Clipped stars give 0."""
+    or one per star) is given; ``band_noise`` = ``(band_scatter, offset_amplitude)`` the per-band terms of the
+    intrinsic scatter (``scatter_bands``, ``offset_amplitudes``; each (k,) or None).
+    Clipped stars give 0."""
     import jax.numpy as jnp
 
     from .terms.outliers import mixture_logpdf
 
-    core, other = _component_logs(parts, settings, resid, offset_var, extinction, fraction is not None)
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction, fraction is not None, band_noise)
     if fraction is not None:
         core = mixture_logpdf(core, other, fraction)
     return jnp.where(jnp.any(parts.lin.mask, axis=1), core, 0.0)
 
 
 def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_var, extinction=None,
-                    fraction=None):
+                    fraction=None, band_noise=None):
     """(N,) conditional probability of the outlier component (broad or blend), and (N,) posterior-mean E(B-V)
     (zeros without extinction), at these parameters."""
     import jax
@@ -602,15 +683,16 @@ def star_membership(parts: ModelParts, settings: ModelSettings, resid, offset_va
     from .terms.noise import reddening_posterior_mean
     from .terms.outliers import membership_probability
 
-    var, mask = parts.lin.var, parts.lin.mask
+    r, var, ext, _ = _band_noise(parts, resid, extinction, band_noise)
+    mask = parts.lin.mask
     n = resid.shape[0]
     ebv = jnp.zeros(n)
     if extinction is not None:
-        a, rate = extinction
-        ebv = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(resid, var, mask, offset_var, a, rate)
+        a, rate = ext
+        ebv = jax.vmap(reddening_posterior_mean, in_axes=(0, 0, 0, 0, None, 0))(r, var, mask, offset_var, a, rate)
     if fraction is None:
         return jnp.zeros(n), ebv
-    core, other = _component_logs(parts, settings, resid, offset_var, extinction)
+    core, other = _component_logs(parts, settings, resid, offset_var, extinction, band_noise=band_noise)
     return membership_probability(core, other, fraction), ebv
 
 
@@ -718,7 +800,12 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     mu = sample_parameter("mu", settings.prior("mu"), (layout.n_mu,))
     values = {}
     for name in dict.fromkeys(n for n, _ in st.columns):
-        shape = band_shape if name.startswith("pl_") else ()
+        if name == "band_bias":  # per-band photometric bias, prior N(bias_<B>, bias_<B>_err), non-centred
+            idx = np.asarray(st.index(name))
+            z = numpyro.sample("band_bias_z", dist.Normal(0.0, 1.0).expand((idx.size,)))
+            values[name] = numpyro.deterministic("band_bias", lin.prior_mean[idx] + z / jnp.sqrt(lin.prior_prec[idx]))
+            continue
+        shape = band_shape if name in settings.band_parameters else ()
         values[name] = sample_parameter(name, settings.prior(name), shape)
     theta_global = pack(st, values)
     local = [mu]
@@ -734,6 +821,7 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
     theta_local = jnp.stack(local, axis=1)
     gamma = _metallicity_site(parts, settings)
     offset_var = star_offset_var(st, lin, _scatter_sites(parts, settings, n_gal), gamma)
+    band_noise = _band_noise_sites(settings, band_shape)
 
     params = {}
     if settings.needs_law and settings.reddening.free:
@@ -756,7 +844,8 @@ def full_model(parts: ModelParts, settings: ModelSettings, layout: Layout):
                                               None if extinction is None else extinction[0])
         mu_par = _parallax_sites(parts, settings, base, jnp.sqrt(var_base + offset_var[lin.par_star]))
     resid = residuals(st, lin, theta_local, theta_global, mu_par, gamma)
-    numpyro.factor("cepheids", jnp.sum(star_logpdf(parts, settings, resid, offset_var, extinction, fraction)))
+    numpyro.factor("cepheids", jnp.sum(star_logpdf(parts, settings, resid, offset_var, extinction, fraction,
+                                                   band_noise)))
     sn_var = 0.0
     if layout.has_sn:
         sn_var = sample_parameter("sn_scatter", settings.prior("sn_scatter")) ** 2
@@ -792,6 +881,39 @@ def offset_var_from_params(parts: ModelParts, settings: ModelSettings, params: d
     return jnp.broadcast_to(s**2, parts.star_galaxy.shape)
 
 
+def band_noise_from_params(parts: ModelParts, settings: ModelSettings, params: dict):
+    """``(band_scatter, offset_amplitude)`` at ``params``: the per-band widths (k,) (``scatter_bands``) and the
+    offset amplitudes (k,) (``offset_amplitudes``), each None when off."""
+    import jax.numpy as jnp
+
+    tau = amp = None
+    if settings.scatter_bands:
+        tau = jnp.asarray(params["band_scatter"]) if "band_scatter" in params else \
+            jnp.full(parts.lin.var.shape[1], settings.prior("band_scatter").get("value"))
+    if settings.offset_amplitudes:
+        amp = jnp.asarray(params["offset_amplitude"])
+    return tau, amp
+
+
+def _band_noise_sites(settings: ModelSettings, band_shape):
+    """Sites of the per-band noise terms: ``band_scatter`` (k,), and the offset amplitudes
+    alpha_B = exp(eta_B) with sum_B eta_B = 0 (``offset_log_amplitude_free``: the first k - 1, prior from
+    ``[model.priors] offset_log_amplitude``; output ``offset_amplitude``)."""
+    import jax.numpy as jnp
+    import numpyro
+
+    from .priors import sample_parameter
+
+    tau = amp = None
+    if settings.scatter_bands:
+        tau = sample_parameter("band_scatter", settings.prior("band_scatter"), band_shape)
+    if settings.offset_amplitudes:
+        k = band_shape[0]
+        free = sample_parameter("offset_log_amplitude_free", settings.prior("offset_log_amplitude"), (k - 1,))
+        amp = numpyro.deterministic("offset_amplitude", jnp.exp(jnp.concatenate([free, -jnp.sum(free, keepdims=True)])))
+    return tau, amp
+
+
 def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
     """At one posterior draw (output-named ``params``): per-star log densities (N,), residuals (N, k), the
     outlier membership (N,), E(B-V) (N,), and the anchors' and supernovae's log densities."""
@@ -805,13 +927,14 @@ def pointwise(parts: ModelParts, settings: ModelSettings, params: dict):
     mu_par = mu_parallax(params) if parts.parallax.shape[0] else None
     resid = residuals(parts.structure, parts.lin, theta_local, theta_global, mu_par, gamma)
     extinction, fraction = nonlinear_inputs(parts, settings, params)
-    logp = star_logpdf(parts, settings, resid, offset_var, extinction, fraction)
-    q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction)
+    band_noise = band_noise_from_params(parts, settings, params)
+    logp = star_logpdf(parts, settings, resid, offset_var, extinction, fraction, band_noise)
+    q, ebv = star_membership(parts, settings, resid, offset_var, extinction, fraction, band_noise)
     sn_var = params["sn_scatter"] ** 2 if "sn_scatter" in params else \
         (jnp.asarray(settings.prior("sn_scatter").get("value")) ** 2 if parts.lin.sn_slot.shape[0] else 0.0)
     a_ll, sn_ll = other_logpdf(parts, theta_local, theta_global, sn_var, cosmo_from_params(parts, params))
     clean = resid if extinction is None else resid - ebv[:, None] * extinction[0][None, :]
-    w = jnp.where(parts.lin.seen, 1.0 / parts.lin.var, 0.0)
+    w = jnp.where(parts.lin.seen, 1.0 / star_variances(parts, band_noise[0]), 0.0)
     star_resid = jnp.sum(w * clean, axis=1) / jnp.sum(w, axis=1)
     return {"cepheids": logp, "resid": resid, "star_resid": star_resid, "outlier_prob": q, "ebv": ebv,
             "anchors": a_ll, "supernovae": sn_ll}

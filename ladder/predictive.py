@@ -12,6 +12,8 @@ For Cepheid *j* (fitted columns *B*) at parameters :math:`\theta, \phi`:
     \text{ in every band)},
 
     E_j \sim \mathrm{Exponential}(\text{mean } \bar E_i) \ (\text{multiband extinction}),
+    \quad \sigma_{jB}^2 \to \sigma_{jB}^2 + \tau_B^2 \ (\texttt{scatter\_bands}),
+    \quad s_j \to \alpha_B s_j \ (\texttt{offset\_amplitudes}),
 
 with :math:`\hat m` the model's prediction (:func:`ladder.structure.residuals`: observed minus residual) and
 the per-galaxy scatter, outlier fraction (global or per galaxy) and extinction exactly as in :func:`ladder.model.star_logpdf`. Anchors,
@@ -61,7 +63,8 @@ def replicate_stars_given(noise: dict, parts, settings, params: dict):
     extinction). JAX."""
     import jax.numpy as jnp
 
-    from .model import gamma_from_params, mu_parallax, nonlinear_inputs, offset_var_from_params, theta_from_params
+    from .model import (band_noise_from_params, gamma_from_params, mu_parallax, nonlinear_inputs,
+                        offset_var_from_params, star_variances, theta_from_params)
     from .structure import residuals, star_offset_var
 
     lin = parts.lin
@@ -80,8 +83,10 @@ def replicate_stars_given(noise: dict, parts, settings, params: dict):
         else:
             var_s = jnp.where(member, offset_var + settings.outlier_width**2, offset_var)
     s = jnp.sqrt(var_s) * noise["offset"]
-    eps = jnp.sqrt(lin.var) * noise["error"]
-    rep = pred + (s + shift)[:, None] + eps
+    tau, amp = band_noise_from_params(parts, settings, params)
+    eps = jnp.sqrt(star_variances(parts, tau)) * noise["error"]  # photometric (+ per-band intrinsic)
+    amp = jnp.ones(pred.shape[1]) if amp is None else amp  # offset_amplitudes: the offset enters band B as alpha_B s_j
+    rep = pred + s[:, None] * amp[None, :] + shift[:, None] + eps
     if extinction is not None:
         a, rate = extinction
         e = noise["exponential"] / rate

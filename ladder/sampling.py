@@ -38,15 +38,16 @@ DIMS = {
     "log_distance_pc": "parallax_star", "parallax_star_u": "parallax_star", "parallax_star_w": "parallax_star",
     "photometric_bias": "bias_galaxy", "photometric_bias_z": "bias_galaxy",
     "host_outlier_fraction": "galaxy", "host_outlier_fraction_z": "galaxy",
-    "metallicity_coef": "band", "band_scatter": "band",  # vectors only in per-band modes
+    "metallicity_coef": "band", "band_scatter": "band", "offset_amplitude": "band",  # vectors only in per-band modes
+    "offset_log_amplitude_free": "band_free", "band_bias": "band_bias_entry", "band_bias_z": "band_bias_entry",
 }
 #: Sampler coordinates that are not model parameters: kept in the ``sampler_aux`` group, out of ``posterior``.
 AUX_SITES = ("host_scatter_z", "photometric_bias_z", "parallax_star_u", "parallax_star_w", "parallax_log_length_scale",
-             "host_outlier_fraction_z")
+             "host_outlier_fraction_z", "offset_log_amplitude_free", "band_bias_z")
 #: Per-star and per-galaxy latent vectors: many, nearly independent, standardised; a dense mass matrix over
 #: them cannot be estimated in a short warm-up, so they get a diagonal one.
 _DIAGONAL_SITES = ("parallax_star_u", "parallax_star_w", "host_scatter_z", "photometric_bias_z", "ebv_mean",
-                   "host_outlier_fraction_z")
+                   "host_outlier_fraction_z", "offset_log_amplitude_free", "band_bias_z")
 #: ``log_likelihood = "auto"`` keeps per-star values up to this many (stars x draws).
 AUTO_STAR_LIMIT = 20_000_000
 
@@ -73,7 +74,9 @@ def _coords(layout: Layout) -> dict[str, list[str]]:
     return {"galaxy": list(layout.galaxies), "distance_galaxy": list(layout.distance_galaxies),
             "band": list(layout.bands), "star": list(layout.stars), "parallax_star": list(layout.parallax_stars),
             "bias_galaxy": list(layout.bias_galaxies), "anchor": list(layout.anchors),
-            "sn": list(layout.supernovae), "fitted_band": list(layout.input_bands)
+            "sn": list(layout.supernovae), "band_free": list(layout.bands)[:-1],
+            "band_bias_entry": list(layout.band_bias_labels),  # offset_log_amplitude_free
+            "fitted_band": list(layout.input_bands)
             if len(layout.input_bands) > 1 and layout.bands == layout.input_bands else None}
 
 
@@ -206,6 +209,9 @@ def initial_values(parts: ModelParts, layout: Layout, settings: ModelSettings, m
         for k, v in unpack(parts.structure, glob).items():
             if k in dict(parts.structure.fixed):
                 continue
+            if k == "band_bias":  # sampled as its standardised coordinate
+                init["band_bias_z"] = np.zeros(np.shape(v))
+                continue
             init[k] = np.asarray(v)
         if parts.bias_slots.shape[0]:
             init["photometric_bias_z"] = np.zeros(parts.bias_slots.shape[0])
@@ -213,6 +219,10 @@ def initial_values(parts: ModelParts, layout: Layout, settings: ModelSettings, m
             init["r_v"] = settings.reddening.rv
         if settings.multiband:
             init["ebv_mean"] = np.full(len(layout.galaxies), 0.1)
+        if settings.scatter_bands:
+            init["band_scatter"] = np.full(len(layout.bands), 0.03)
+        if settings.offset_amplitudes:
+            init["offset_log_amplitude_free"] = np.zeros(len(layout.bands) - 1)
         if settings.outliers == "mixture":
             init["outlier_fraction"] = 0.05
             if settings.outlier_fraction_model == "per_galaxy":

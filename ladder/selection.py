@@ -30,7 +30,8 @@ from .errors import InputError
 __all__ = ["apply_selection", "selection_report"]
 
 #: LadderData fields with one entry per galaxy (everything else with one entry per star is per star).
-_HOST_FIELDS = ("host_names", "host_roles", "mu_geo", "mu_geo_err", "host_oh", "host_bias", "host_bias_err")
+_HOST_FIELDS = ("host_names", "host_roles", "mu_geo", "mu_geo_err", "host_oh", "host_bias", "host_bias_err",
+                "band_bias", "band_bias_err")
 _STAR_FIELDS = ("star_names", "star_host", "log_period", "mag", "mag_err", "oh", "star_rows", "parallax",
                 "parallax_err", "oh_err")
 

@@ -122,7 +122,7 @@ WESENHEIT_BANDS = ("H", "V", "I")
 #: One child random stream per ingredient, in this order (append new ones at the end only).
 _STREAMS = ("counts", "distances", "anchors", "metallicity", "reddening", "periods", "scatter", "errors", "noise",
             "parallax", "outliers", "host_scatter", "bias", "supernovae", "systematics",
-            "oh_errors", "heliocentric")
+            "oh_errors", "heliocentric", "bands", "band_bias")
 
 _SPEED_OF_LIGHT_KMS = 299792.458  # exact (SI); same value as ladder.cosmography, which imports JAX
 
@@ -228,6 +228,20 @@ class MockSettings:
         ``bias_sd`` (0.0): b_g ~ N(0, bias_sd) added to all magnitudes of the stars of
         role-"host" galaxies (observed = true + b_g, so W too moves by b_g); hosts table columns ``bias`` = b_g + N(0, ``bias_err`` = 0.02)
         and ``bias_err`` (masked for anchors and the parallax group).
+
+    Per-band terms (band order V, I, H)
+        ``metallicity_coef_bands`` (None: ``metallicity_coef`` in every band): one metallicity
+        coefficient per band. ``band_scatter`` (None: off): an independent intrinsic offset
+        N(0, tau_B) per star and band besides the common one. ``strip_amplitudes`` (None: 1 in
+        every band): the common offset enters band B as a_B s_k, the finite width of the
+        instability strip (at fixed period a brighter Cepheid is bluer: a_V > a_I > a_H). With
+        any of them the W truths ``metallicity_coef``, ``scatter`` are those of W = H - R (V - I):
+        gamma_W = gamma_H - R (gamma_V - gamma_I), and the W offset is (a_H - R (a_V - a_I)) s_k.
+
+    Per-band photometric bias
+        ``bias_band_sd`` (0.0: off): b_gB ~ N(0, bias_band_sd) per role-"host" galaxy and band,
+        added to that band (observed = true + b_gB); hosts columns ``bias_<B>`` = b_gB +
+        N(0, ``bias_err``) and ``bias_<B>_err`` (truth ``band_bias`` {galaxy: {band: value}}).
 
     Supernovae
         ``n_hubble_flow`` (0: no supernovae) SNe Ia in the Hubble flow, z uniform in ``sn_z``
@@ -341,6 +355,11 @@ class MockSettings:
     oh_err: float = 0.0
     # heliocentric redshifts of the Hubble flow (the Sun's speed relative to the CMB frame, km/s)
     sn_heliocentric_kms: float = 0.0
+    # per-band terms (issue 9): band order V, I, H as BANDS
+    metallicity_coef_bands: tuple[float, float, float] | None = None
+    band_scatter: tuple[float, float, float] | None = None
+    strip_amplitudes: tuple[float, float, float] | None = None
+    bias_band_sd: float = 0.0
 
     def __post_init__(self) -> None:
         for name in ("n_hosts", "n_anchors", "n_cepheids", "min_cepheids"):
@@ -450,6 +469,17 @@ class MockSettings:
         _range("sn_mag_err", self.sn_mag_err, positive=True)
         if self.sn_systematic > 0 and not self.n_hubble_flow:
             raise ValueError("sn_systematic needs supernovae (n_hubble_flow > 0)")
+        if finite("bias_band_sd", self.bias_band_sd) < 0:
+            raise ValueError(f"bias_band_sd must be >= 0, got {self.bias_band_sd!r}")
+        for name in ("metallicity_coef_bands", "band_scatter", "strip_amplitudes"):
+            v = getattr(self, name)
+            if v is None:
+                continue
+            if not isinstance(v, (tuple, list)) or len(v) != len(BANDS):
+                raise ValueError(f"{name} needs one value per band {BANDS}, got {v!r}")
+            vals = [finite(name, x) for x in v]
+            if name != "metallicity_coef_bands" and min(vals) < 0:
+                raise ValueError(f"{name} must be >= 0 in every band, got {v!r}")
 
     @property
     def band_extinction_ratios(self) -> tuple[float, float, float]:
@@ -809,11 +839,23 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
         oh_true = oh + oh_sd * rng["oh_errors"].standard_normal(n_star_all)
     pl = s.band_pl
     ratio = dict(zip(BANDS, s.band_extinction_ratios))
+    gamma = s.metallicity_coef_bands or (s.metallicity_coef,) * len(BANDS)
+    amp = s.strip_amplitudes or (1.0,) * len(BANDS)
+    band_offset = np.zeros((n_star_all, len(BANDS)))
+    if s.band_scatter is not None:
+        band_offset = np.asarray(s.band_scatter, float)[None, :] * rng["bands"].standard_normal((n_star_all, len(BANDS)))
+    band_bias_true = None
+    if s.bias_band_sd > 0:  # per galaxy and band, hosts only: observed = true + bias
+        band_bias_true = np.where(is_host_gal[:, None], s.bias_band_sd * rng["band_bias"].standard_normal((n_all, len(BANDS))),
+                                  0.0)
+        band_bias_meas = band_bias_true + (s.bias_err * rng["band_bias"].standard_normal(band_bias_true.shape)
+                                           if s.noise else 0.0)
+        band_offset = band_offset + band_bias_true[g_of]
     mag = np.empty((n_star_all, len(BANDS)))
     for j, b in enumerate(BANDS):
         zp, slope = pl[b]
-        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + s.metallicity_coef * (oh_true - s.solar_oh)
-                     + offset + ratio[b] * a_v + noise[:, j])
+        mag[:, j] = (mu_star + zp + slope * (log_p - 1.0) + gamma[j] * (oh_true - s.solar_oh)
+                     + amp[j] * offset + band_offset[:, j] + ratio[b] * a_v + noise[:, j])
         if any_extra:
             mag[:, j] += extra
 
@@ -855,6 +897,12 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
     if bias_true is not None:
         hosts["bias"] = MaskedColumn(np.where(is_host_gal, bias_meas, 0.0), mask=~is_host_gal, unit=u.mag)
         hosts["bias_err"] = MaskedColumn(np.where(is_host_gal, s.bias_err, 0.0), mask=~is_host_gal, unit=u.mag)
+
+    if band_bias_true is not None:
+        for j, b in enumerate(BANDS):
+            hosts[f"bias_{b}"] = MaskedColumn(np.where(is_host_gal, band_bias_meas[:, j], 0.0), mask=~is_host_gal,
+                                              unit=u.mag)
+            hosts[f"bias_{b}_err"] = MaskedColumn(np.where(is_host_gal, s.bias_err, 0.0), mask=~is_host_gal, unit=u.mag)
 
     latent = Table()
     latent["star"] = Column(stars, dtype=str)
@@ -939,6 +987,22 @@ def simulate(settings: MockSettings, seed: int) -> Mock:
             truth.update(sn_systematic=float(s.sn_systematic), sn_offset=delta_s)
     if s.oh_err > 0:
         truth["oh_err"] = float(s.oh_err)
+    if band_bias_true is not None:
+        truth["band_bias"] = {all_names[g]: dict(zip(BANDS, (float(x) for x in band_bias_true[g]))) for g in range(n_all)}
+        truth["bias_band_sd"] = float(s.bias_band_sd)
+    if s.metallicity_coef_bands is not None:
+        g = dict(zip(BANDS, (float(x) for x in s.metallicity_coef_bands)))
+        truth["metallicity_coef_bands"] = g
+        truth["metallicity_coef"] = g["H"] - r * (g["V"] - g["I"])  # W = H - R (V - I)
+    if s.band_scatter is not None or s.strip_amplitudes is not None:  # the W offset: (a_H - R (a_V - a_I)) s + ...
+        a = dict(zip(BANDS, (float(x) for x in amp)))
+        t = dict(zip(BANDS, (float(x) for x in (s.band_scatter or (0.0,) * len(BANDS)))))
+        truth["scatter"] = math.sqrt(((a["H"] - r * (a["V"] - a["I"])) * s.scatter) ** 2
+                                     + t["H"] ** 2 + r**2 * (t["V"] ** 2 + t["I"] ** 2))
+        if s.band_scatter is not None:
+            truth["band_scatter"] = t
+        if s.strip_amplitudes is not None:
+            truth["strip_amplitudes"] = a
     truth["seed"] = seed
     truth["settings"] = dataclasses.asdict(s)
     return Mock(settings=s, seed=seed, cepheids=cep, hosts=hosts, truth=truth, latent=latent,

@@ -7,7 +7,8 @@ scatter; R or R_V are fixed here), every observation of the ladder is linear in
 * per galaxy *i* (the *local* block, :math:`L` columns): its modulus :math:`\mu_i` and, with
   ``photometric_bias``, its bias :math:`\beta_i`;
 * shared (the *global* block, :math:`p` columns): PL zero point(s) :math:`M_B` and slope(s) :math:`b_B`
-  (:math:`b_{\mathrm{long},B}` above a break), the metallicity coefficient :math:`\gamma`, the SN absolute
+  (:math:`b_{\mathrm{long},B}` above a break), the metallicity coefficient :math:`\gamma` (one per band,
+  :math:`\gamma_B`, with ``metallicity = "per_band"``), the SN absolute
   magnitude :math:`M_\mathrm{SN}` and :math:`a = 5\log_{10} H_0`.
 
 For Cepheid *j* of galaxy *i* in fitted column (band) *B*:
@@ -17,7 +18,7 @@ For Cepheid *j* of galaxy *i* in fitted column (band) *B*:
     y_{jB} \equiv m_{jB} - c_{jB} = e_j^\top \theta_{\mathrm{loc},i} + G_{jB}^\top \theta_\mathrm{glob}
              + \epsilon_{jB} + s_j, \qquad
     G_{jB} = \big(\delta_{B}\,;\ \delta_{B}\,x^\mathrm{short}_j\,;\ \delta_{B}\,x^\mathrm{long}_j\,;\
-             [\mathrm{O/H}]_j - [\mathrm{O/H}]_\odot\big),
+             [\mathrm{O/H}]_j - [\mathrm{O/H}]_\odot\ [\text{per band: } \delta_B(\dots)]\big),
 
 where :math:`c_{jB}` holds every fixed contribution (parameters with a ``fixed`` prior, a parallax star's own
 modulus), :math:`e_j = (1, [\text{has bias}])` (a parallax star has no local column), :math:`x^\mathrm{short}
@@ -27,6 +28,14 @@ modulus), :math:`e_j = (1, [\text{has bias}])` (a parallax star has no local col
 :math:`\mu_{\mathrm{geo},a} = \mu_a + \epsilon`; SN calibrators :math:`m_k = \mu_i + M_\mathrm{SN} + \epsilon`;
 Hubble-flow SNe :math:`m_k - \mu(z_k; H_0{=}1) = M_\mathrm{SN} - a + \epsilon` (the kinematic modulus is
 :math:`\mu(z; H_0) = \mu(z; 1) - 5\log_{10} H_0`).
+
+Three further pieces keep the block exact. Rows with a covariance table (``[data] anchor_covariance`` /
+``supernova_covariance``, :mod:`ladder.covariance`) have :math:`C = \mathrm{diag}(\sigma^2) + C_\mathrm{table}`;
+they are whitened with its Cholesky factor (:func:`whitened_rows`), and the galaxies they touch are solved together
+with the globals (``dense_slots``). With O/H errors the variance :math:`\gamma^2\sigma_{[\mathrm{O/H}],j}^2` joins
+each star's common offset (:func:`star_offset_var`), so :math:`\gamma` is a hyperparameter whose term moves to the
+data side; with a prior on q0 or j0 the Hubble-flow data move with them (:func:`sn_rows_y`). Exactness then holds
+given these hyperparameters.
 
 Every consumer derives from this one definition: the numpyro models (:mod:`ladder.model`), the exact
 marginal and closed-form solvers (:func:`normal_equations`, :func:`log_marginal`, :func:`conditional_draw`,
@@ -110,6 +119,7 @@ class Structure:
     j0_sampled: bool = False
     q0_ref: float = -0.55
     j0_ref: float = 1.0
+    band_params: tuple[str, ...] = ()  # parameters with one value per band (ModelSettings.band_parameters)
 
     @property
     def dense(self) -> bool:
@@ -219,13 +229,16 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
         if not wanted[name]:
             continue
         spec = settings.prior(name)
-        per_band = name in ("pl_zero_point", "pl_slope", "pl_slope_long")
+        per_band = name in settings.band_parameters
         if spec.dist == "fixed":
             fixed.append((name, float(spec.get("value"))))
             continue
         if spec.dist == "uniform":
             bounds.append((name, spec.get("low"), spec.get("high")))
         columns += [(name, b) for b in range(nb)] if per_band and band_shaped else [(name, None)]
+    # per-band photometric biases (multiband): one column per (galaxy, band) entry, prior N(bias_<B>, bias_<B>_err)
+    bb_host = np.asarray(getattr(arrays, "band_bias_host", np.zeros(0, np.int64)))
+    columns += [("band_bias", i) for i in range(bb_host.size)]
     n_local = 2 if settings.photometric_bias else 1
     mu_index0 = np.asarray(arrays.star_mu_index)
     slot0 = np.where(mu_index0 >= layout.n_mu, layout.n_mu, mu_index0)
@@ -243,7 +256,7 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
                           float(settings.prior("metallicity_coef").get("value")) if oh_errors and not gamma_sampled
                           else 0.0, bool(has_flow and settings.supernovae.q0_prior is not None),
                           bool(has_flow and settings.supernovae.j0_prior is not None), float(settings.supernovae.q0),
-                          float(settings.supernovae.j0))
+                          float(settings.supernovae.j0), band_params=tuple(settings.band_parameters))
 
     # The regressors are the model terms themselves (linear in their parameters), evaluated at unit parameter
     # values: M(P) of ladder.terms.pl and the offset of ladder.terms.metallicity.
@@ -261,8 +274,14 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     base_of = {"pl_zero_point": pl(1.0, 0.0, 0.0), "pl_slope": pl(0.0, 1.0, 0.0), "pl_slope_long": pl(0.0, 0.0, 1.0),
                "metallicity_coef": oh, "sn_abs_mag": np.zeros(n), "h0": np.zeros(n)}
 
+    dist_slot = {g: i for i, g in enumerate(layout.distance_galaxies)}
+    bb_slot = np.array([dist_slot[layout.galaxies[g]] for g in bb_host], np.int64)
+    bb_band = np.asarray(getattr(arrays, "band_bias_band", np.zeros(0, np.int64)))
+
     def regressor(name, b):
         """(N, k) values of one global parameter's regressor in the Cepheid rows."""
+        if name == "band_bias":  # 1 for the stars of entry b's galaxy in entry b's band
+            return ((slot0 == bb_slot[b])[:, None] & (np.arange(k) == bb_band[b])[None, :]).astype(float)
         hit = np.ones((n, k)) if b is None else (band_of_col[None, :] == b) * np.ones((n, 1))
         return hit * base_of[name][:, None]
 
@@ -270,7 +289,7 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
     seen = np.asarray(mask, bool)
     y0 = np.where(seen, obs, 0.0)
     for name, value in fixed:  # fixed contributions move to the data side
-        for b in (range(nb) if band_shaped and name.startswith("pl_") else [None]):
+        for b in (range(nb) if name in settings.band_parameters else [None]):
             y0 = y0 - value * regressor(name, b)
     weight = np.asarray(arrays.star_weight, float) > 0
     mask = seen & weight[:, None]
@@ -309,9 +328,12 @@ def build_structure(arrays, layout, settings: ModelSettings, obs, err, mask):
 
     p = len(columns)
     pm, pp, tilt = np.zeros(p), np.zeros(p), np.zeros(p)
-    for i, (name, _) in enumerate(columns):
+    for i, (name, b) in enumerate(columns):
         if name == "h0":
             tilt[i] = HUBBLE_TILT if settings.prior("h0").dist == "uniform" else 0.0
+            continue
+        if name == "band_bias":
+            pm[i], pp[i] = float(arrays.band_bias_mean[b]), 1.0 / float(arrays.band_bias_err[b]) ** 2
             continue
         pm[i], pp[i], _ = _linear_prior(settings.prior(name))
 
@@ -776,7 +798,7 @@ def unpack(structure: Structure, theta_global) -> dict:
         if name == "h0":
             out[name] = 10.0 ** (v[..., 0] / 5.0)
         else:
-            out[name] = v if structure.band_shaped and name.startswith("pl_") else v[..., 0]
+            out[name] = v if name in structure.band_params or name == "band_bias" else v[..., 0]
     for name, value in structure.fixed:
         out.setdefault(name, jnp.asarray(value))
     return out

@@ -15,8 +15,8 @@ QUANTILES = (0.05, 0.16, 0.50, 0.84, 0.95)
 #: UnitsWarning about its two slashes, kept as written for readers).
 UNITS = {"pl_zero_point": "mag", "pl_slope": "mag/dex", "pl_slope_long": "mag/dex", "metallicity_coef": "mag/dex",
          "scatter": "mag", "scatter_spread": "", "wesenheit_r": "", "r_v": "", "outlier_fraction": "",
-         "outlier_fraction_spread": "", "band_scatter": "mag", "parallax_offset": "mas", "parallax_length_scale": "pc",
-         "h0": "km/s/Mpc", "sn_abs_mag": "mag", "sn_scatter": "mag", "q0": "", "j0": ""}
+         "outlier_fraction_spread": "", "band_scatter": "mag", "offset_amplitude": "", "parallax_offset": "mas",
+         "parallax_length_scale": "pc", "h0": "km/s/Mpc", "sn_abs_mag": "mag", "sn_scatter": "mag", "q0": "", "j0": ""}
 
 
 def _flat(x) -> np.ndarray:

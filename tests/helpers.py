@@ -39,9 +39,19 @@ def _posterior(result):
 
 
 def pulls(result, truth: dict, names) -> dict:
-    """(posterior mean - truth) / posterior sd of each named global parameter."""
+    """(posterior mean - truth) / posterior sd of each named global parameter; a vector-valued truth (e.g. one
+    value per band, in the order of the variable's last dimension) gives one pull per element, ``name[label]``."""
     post = _posterior(result)
-    return {n: float((np.asarray(post[n]).mean() - truth[n]) / np.asarray(post[n]).std()) for n in names}
+    out = {}
+    for n in names:
+        t, x = np.asarray(truth[n], float), np.asarray(post[n])
+        if t.ndim:
+            x = x.reshape(-1, t.size)
+            for i, lab in enumerate(post[n][post[n].dims[-1]].values):
+                out[f"{n}[{lab}]"] = float((x[:, i].mean() - t[i]) / x[:, i].std())
+        else:
+            out[n] = float((x.mean() - t) / x.std())
+    return out
 
 
 def joint_chi2(result, true_mu: dict, galaxies=None) -> tuple[float, int, float]:

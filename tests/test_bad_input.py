@@ -209,6 +209,13 @@ def _drop(table, col):
     return f
 
 
+def _column(col, value, unit, table="cepheids"):
+    def f(r: Run):
+        t = getattr(r, table)
+        t[col] = Column(np.full(len(t), value), name=col, unit=unit)
+    return f
+
+
 def _unit(col, unit, table="cepheids"):
     def f(r: Run):
         getattr(r, table)[col].unit = unit
@@ -309,6 +316,16 @@ def _bias(bias, bias_err):
     return f
 
 
+def _band_bias(band, bias, bias_err):
+    """Add the hosts' per-band bias columns bias_<band>, bias_<band>_err (as :func:`_bias`)."""
+    def f(r: Run):
+        for name, values in ((f"bias_{band}", bias), (f"bias_{band}_err", bias_err)):
+            if values is not None:
+                r.hosts[name] = MaskedColumn([0.0 if v is None else v for v in values], name=name, unit=u.mag,
+                                             mask=[v is None for v in values])
+    return f
+
+
 def _sn_table(rows=SUPERNOVAE):
     """Give the run a supernovae table ([data] supernovae)."""
     def f(r: Run):
@@ -399,6 +416,8 @@ UNIT_CASES = [
     Case("period-in-metres", _unit("period", u.m), CEP, "period", also=(" m ",), formats=("ecsv",)),
     Case("mag_V-in-jansky", _unit("mag_V", u.Jy), CEP, "mag_V", also=("Jy",), formats=("ecsv",)),
     Case("mag_I_err-in-days", _unit("mag_I_err", u.day), CEP, "mag_I_err", formats=("ecsv",)),
+    # astropy would turn mag into dex (1 mag = -0.4 dex): an abundance labelled mag is a unit mistake
+    Case("oh-in-mag", _column("oh", 8.5, u.mag), CEP, "oh", also=("mag", "dex"), formats=("ecsv",)),
     Case("period-unit-unrecognised", _unit("period", u.Unit("days", parse_strict="silent")), CEP, "period",
          also=("'days'", "not a recognised unit"), formats=("ecsv",)),
 ]
@@ -471,6 +490,14 @@ FULL_LADDER_CASES = [
          also=("together",)),
     Case("bias-non-numeric", _both(_bias([0.01, 0.0], [MAG_ERR, MAG_ERR]), _text_cell("bias", 0, "none", "hosts")),
          HOST, "bias", rows=(1,), also=("'none'",)),
+    Case("bias_V-without-bias_V_err-column", _band_bias("V", [0.01, 0.0], None), HOST, "bias_V_err",
+         also=("bias_V",)),
+    Case("bias_V_err-without-bias_V-column", _band_bias("V", None, [MAG_ERR, MAG_ERR]), HOST, "bias_V"),
+    Case("bias_V_err-zero", _band_bias("V", [0.01, 0.0], [MAG_ERR, 0.0]), HOST, "bias_V_err", rows=(2,),
+         also=("> 0",)),
+    Case("bias-and-bias_V-on-one-galaxy",
+         _both(_MULTIBAND, _WAVELENGTHS, _doc("model.photometric_bias", True), _bias([0.01, None], [MAG_ERR, None]),
+               _band_bias("V", [0.02, None], [MAG_ERR, None])), HOST, "bias", rows=(1,), also=("bias_<B>", "twice")),
     Case("photometric_bias-without-bias-columns", _doc("model.photometric_bias", True), HOST, "bias",
          also=("photometric_bias",)),
     Case("photometric_bias-with-empty-bias-columns",
@@ -576,6 +603,8 @@ FULL_LADDER_TOML_CASES = [
              also=("multiband",)),
     TomlCase("toml-scatter_bands-string", _both(_MULTIBAND, _WAVELENGTHS, _doc("model.scatter_bands", "yes")), RUN,
              "model.scatter_bands", also=("true or false",)),
+    TomlCase("toml-offset_amplitudes-one-band", _doc("model.offset_amplitudes", True), RUN, "model.offset_amplitudes",
+             also=("multiband",)),
     TomlCase("toml-outlier_fraction-without-mixture", _doc("model.outlier_fraction", "per_galaxy"), RUN,
              "model.outlier_fraction", also=("mixture",)),
     TomlCase("toml-outlier_fraction-unknown", _both(_doc("model.outliers", "mixture"),
@@ -679,6 +708,9 @@ SIMULATE_CASES = [
     (["--outlier-fraction", "-0.1"], "--outlier-fraction", ("[0, 1]",)),
     (["--outlier-fraction-far", "1.5"], "--outlier-fraction-far", ("[0, 1]",)),
     (["--outlier-shift-scale", "0"], "--outlier-shift-scale", ("> 0",)),
+    (["--band-scatter", "0.1,0.05"], "--band-scatter", ("three",)),
+    (["--strip-amplitudes", "1.8,x,0.6"], "--strip-amplitudes", ("three",)),
+    (["--strip-amplitudes", "1.8,-1,0.6"], "--strip-amplitudes", (">= 0",)),
     (["--h0", "-5"], "--h0", ("> 0",)),
     (["--h0", "fast"], "--h0", ("number", "'fast'")),
     (["--h0", "inf"], "--h0", ("finite",)),

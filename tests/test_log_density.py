@@ -44,6 +44,10 @@ MODES = {
                          {}),
     "multiband + per-galaxy mixture": ({"extinction": "multiband", "outliers": "mixture",
                                         "outlier_fraction_model": "per_galaxy"}, {}),
+    "multiband, per-band metallicity": ({"extinction": "multiband", "metallicity_per_band": True}, {}),
+    "multiband, per-band bias": ({"extinction": "multiband", "photometric_bias": True}, {"bias_band_sd": 0.05}),
+    "multiband, per-band scatter + amplitudes + mixture": ({"extinction": "multiband", "scatter_bands": True,
+                                                            "offset_amplitudes": True, "outliers": "mixture"}, {}),
 }
 
 
@@ -75,7 +79,12 @@ def _random_point(rng, data, settings, layout):
     v = {"mu": np.array([30.0 if r == "host" else 18.5 for r, g in zip(data.host_roles, data.host_names)
                          if g in layout.distance_galaxies]) + rng.normal(0, 0.05, layout.n_mu),
          "pl_zero_point": rng.normal(-5.0, 0.3, band), "pl_slope": rng.normal(-3.0, 0.2, band),
-         "metallicity_coef": rng.normal(-0.2, 0.05), "scatter": rng.uniform(0.05, 0.12)}
+         "metallicity_coef": rng.normal(-0.2, 0.05, band if settings.metallicity_per_band else ()),
+         "scatter": rng.uniform(0.05, 0.12)}
+    if settings.scatter_bands:
+        v["band_scatter"] = rng.uniform(0.01, 0.1, nb)
+    if settings.offset_amplitudes:
+        v["offset_log_amplitude_free"] = rng.normal(0.0, 0.3, nb - 1)
     if settings.scatter_model == "per_host":
         v["scatter_spread"], v["host_scatter_z"] = rng.uniform(0.1, 0.5), rng.normal(0, 1, n_gal)
     if settings.outliers == "mixture":
@@ -88,6 +97,8 @@ def _random_point(rng, data, settings, layout):
             v["r_v"] = rng.uniform(2.5, 3.8)
     if layout.bias_galaxies:
         v["photometric_bias_z"] = rng.normal(0, 1, len(layout.bias_galaxies))
+    if layout.band_bias_labels:
+        v["band_bias_z"] = rng.normal(0, 1, len(layout.band_bias_labels))
     if layout.parallax_stars:
         n = len(layout.parallax_stars)
         v["parallax_star_u"], v["parallax_offset"] = rng.normal(0, 1, n), rng.normal(0, 0.02)
@@ -108,7 +119,14 @@ def _reference(v, data, settings, layout):
     """log joint of the sampler coordinates ``v``, written independently with scipy."""
     N, H = stats.norm.logpdf, stats.halfnorm.logpdf
     lp = N(v["mu"], 25.0, 15.0).sum() + N(v["pl_zero_point"], -5.0, 5.0).sum() + N(v["pl_slope"], -3.0, 2.0).sum()
-    lp += N(v["metallicity_coef"], 0.0, 0.5) + H(v["scatter"], scale=0.3)
+    lp += N(v["metallicity_coef"], 0.0, 0.5).sum() + H(v["scatter"], scale=0.3)
+    tau = alpha = np.zeros(0)
+    if "band_scatter" in v:
+        lp += H(v["band_scatter"], scale=0.2).sum()
+        tau = v["band_scatter"]
+    if "offset_log_amplitude_free" in v:  # log amplitudes summing to zero, the first k - 1 free
+        lp += N(v["offset_log_amplitude_free"], 0.0, 0.5).sum()
+        alpha = np.exp(np.append(v["offset_log_amplitude_free"], -v["offset_log_amplitude_free"].sum()))
     n_gal = len(layout.galaxies)
     scatter = np.full(n_gal, v["scatter"])
     if "host_scatter_z" in v:
@@ -120,6 +138,15 @@ def _reference(v, data, settings, layout):
         for z, g in zip(v["photometric_bias_z"], layout.bias_galaxies):
             i = data.host_names.index(g)
             bias[i] = data.host_bias[i] + data.host_bias_err[i] * z
+    band_bias = np.zeros((n_gal, len(settings.fitted_bands)))
+    if "band_bias_z" in v:  # one per (galaxy, band) with bias_<B>: prior N(bias_<B>, bias_<B>_err), standardised
+        lp += N(v["band_bias_z"], 0, 1).sum()
+        k = 0
+        for jb, b in enumerate(settings.fitted_bands):  # entries in band order, galaxies in table order
+            col = data.bias_bands.index(b)
+            for i in np.flatnonzero(np.isfinite(data.band_bias_err[:, col])):
+                band_bias[i, jb] = data.band_bias[i, col] + data.band_bias_err[i, col] * v["band_bias_z"][k]
+                k += 1
     f = None
     if "outlier_fraction" in v:
         f = np.full(n_gal, v["outlier_fraction"])
@@ -142,7 +169,11 @@ def _reference(v, data, settings, layout):
     x, oh = data.log_period - 1.0, data.oh - settings.solar_oh
     zp = np.broadcast_to(v["pl_zero_point"], (len(bands),))
     sl = np.broadcast_to(v["pl_slope"], (len(bands),))
-    pred0 = zp[None, :] + sl[None, :] * x[:, None] + v["metallicity_coef"] * oh[:, None] + bias[data.star_host][:, None]
+    gamma = np.broadcast_to(v["metallicity_coef"], (len(bands),))
+    pred0 = zp[None, :] + sl[None, :] * x[:, None] + gamma[None, :] * oh[:, None] + bias[data.star_host][:, None] \
+        + band_bias[data.star_host]
+    tau = tau if tau.size else np.zeros(len(bands))
+    alpha = alpha if alpha.size else np.ones(len(bands))
     star_mu = np.array([mu_of.get(data.host_names[h], np.nan) for h in data.star_host])
     if layout.parallax_stars:
         lp += stats.uniform.logpdf(v["parallax_log_length_scale"], np.log(100.0), np.log(1e5) - np.log(100.0))
@@ -168,7 +199,8 @@ def _reference(v, data, settings, layout):
             s2 = s2 + v["metallicity_coef"] ** 2 * data.oh_err[j] ** 2
 
         def dens(extra):
-            cov = np.diag(err[j][seen] ** 2) + (s2 + extra) * np.ones((seen.sum(), seen.sum()))
+            al = alpha[seen]  # C = diag(err^2 + tau^2) + (s^2 + extra) alpha alpha^T
+            cov = np.diag(err[j][seen] ** 2 + tau[seen] ** 2) + (s2 + extra) * np.outer(al, al)
             if a is None:
                 return stats.multivariate_normal(np.zeros(seen.sum()), cov).logpdf(y)
             lam = 1.0 / v["ebv_mean"][data.star_host[j]]

@@ -38,6 +38,8 @@ MODES = {
     "blend": {"outliers": "mixture", "outlier_component": "blend", "outlier_width": 0.4},
     "multiband + per-galaxy mixture": {"extinction": "multiband", "outliers": "mixture",
                                        "outlier_fraction_model": "per_galaxy"},
+    "multiband, per-band scatter + amplitudes": {"extinction": "multiband", "scatter_bands": True,
+                                                 "offset_amplitudes": True},
 }
 
 
@@ -73,6 +75,10 @@ def _params(parts, layout, settings, truth):
             p["host_outlier_fraction"] = jnp.linspace(0.05, 0.4, n_gal)
     if settings.multiband:
         p["ebv_mean"] = jnp.linspace(0.1, 0.3, n_gal)
+    if settings.scatter_bands:
+        p["band_scatter"] = jnp.linspace(0.02, 0.1, nb)
+    if settings.offset_amplitudes:
+        p["offset_amplitude"] = jnp.exp(jnp.linspace(0.4, -0.4, nb))
     return p
 
 
@@ -86,26 +92,32 @@ def test_replicates_follow_the_model_density(mock_run, mode):
     keys = jax.random.split(jax.random.PRNGKey(7), N_REP)
     j = int(np.flatnonzero(np.asarray(parts.star_galaxy) == len(layout.galaxies) - 1)[0])  # a star of the last galaxy
     rep = np.asarray(jax.jit(jax.vmap(lambda k: replicate_stars(k, parts, settings, params)[j]))(keys))  # (N_REP, k)
-    from ladder.model import nonlinear_inputs, offset_var_from_params, theta_from_params
+    from ladder.model import band_noise_from_params, nonlinear_inputs, offset_var_from_params, theta_from_params
     from ladder.structure import residuals
 
     tl, tg = theta_from_params(parts, params)
     pred = np.asarray(parts.observed - residuals(parts.structure, parts.lin, tl, tg))[j]
     ov = offset_var_from_params(parts, settings, params)
     ext, frac = nonlinear_inputs(parts, settings, params)
+    band_noise = band_noise_from_params(parts, settings, params)
     k = rep.shape[1]
     for b in range(k):
         # the model's marginal density of band b for star j, on a grid, from star_logpdf with only band b seen
-        sd = float(np.sqrt(parts.lin.var[j, b] + ov[j] + (settings.outlier_width**2 if frac is not None else 0)))
+        amp_b = float(np.asarray(params["offset_amplitude"])[b]) if "offset_amplitude" in params else 1.0
+        tau_b = float(np.asarray(params["band_scatter"])[b]) if "band_scatter" in params else 0.0
+        sd = float(np.sqrt(parts.lin.var[j, b] + tau_b**2 + amp_b**2 * (ov[j] + (settings.outlier_width**2
+                                                                             if frac is not None else 0))))
         blend = 12 * settings.outlier_width if settings.outlier_component == "blend" else 0.0  # only brighter
-        lo, hi = pred[b] - 12 * sd - blend, pred[b] + 12 * sd + (3.0 if ext is not None else 0.0)
-        grid = np.linspace(lo, hi, 6001)
+        # the extinction tail a_B E, E exponential: to 15 of its scales (mass beyond ~3e-7), not a fixed 3 mag
+        tail = 15.0 * float(np.asarray(ext[0])[b] / np.asarray(ext[1])[j]) if ext is not None else 0.0
+        lo, hi = pred[b] - 12 * sd - blend, pred[b] + 12 * sd + tail
+        grid = np.linspace(lo, hi, 20001)
         only_b = parts.lin.mask & (jnp.arange(k) == b)[None, :]
         parts_b = parts._replace(lin=parts.lin._replace(mask=only_b, seen=only_b))
 
         def dens(y):
             resid = jnp.zeros(parts.lin.y0.shape).at[j, b].set(y - pred[b])
-            return star_logpdf(parts_b, settings, resid, ov, ext, frac)[j]
+            return star_logpdf(parts_b, settings, resid, ov, ext, frac, band_noise)[j]
 
         logp = np.asarray(jax.jit(jax.vmap(dens))(jnp.asarray(grid)))
         pdf = np.exp(logp - logp.max())
@@ -119,7 +131,9 @@ def test_replicates_follow_the_model_density(mock_run, mode):
         f_j = None if frac is None else float(np.asarray(frac)[j] if np.ndim(frac) else frac)
         e_s2 = float(ov[j]) + (f_j * settings.outlier_width**2 if frac is not None else 0.0)
         var_e = float(1.0 / rate[j]) ** 2
-        cov = np.diag(np.asarray(parts.lin.var[j])) + e_s2 + var_e * np.outer(a, a)
+        tau = np.asarray(params.get("band_scatter", np.zeros(k)))
+        amp = np.asarray(params.get("offset_amplitude", np.ones(k)))
+        cov = np.diag(np.asarray(parts.lin.var[j]) + tau**2) + e_s2 * np.outer(amp, amp) + var_e * np.outer(a, a)
         np.testing.assert_allclose(np.cov(rep.T), cov, rtol=PREDICTIVE_COV_RTOL)
 
 

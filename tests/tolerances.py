@@ -120,7 +120,7 @@ PREDICTIVE_FLAG_P = 0.01  # a predictive p-value below 1% flags a galaxy (common
 PREDICTIVE_PASS_P = 0.005  # 200 replicates resolve p to 0.005; posterior predictive p-values of a correct model concentrate near 0.5 (they use the data twice), so none of 12 falls below 0.005 by chance for a correct model
 # --- covariance tables (tests/test_covariance.py) ---
 COV_CONDITIONAL_RTOL = 1e-8  # A^-1 b with whitened dense rows and a joint solve vs numpy inverses of the dense C; condition ~1e6, rounding only
-COV_MARGINAL_ATOL = 1e-7  # log p(y|phi) ~ -1e3, whitened blocks vs scipy's dense multivariate normal: rounding ~1e-10 relative
+COV_MARGINAL_RTOL = 1e-9  # log p(y|phi) ~ -1e3, whitened blocks vs scipy's dense multivariate normal: rounding ~1e-10 relative (relative, as MARGINAL_VS_DENSE_RTOL: an absolute bound fails as n grows)
 COV_DIAGONAL_RTOL = 1e-10  # a diagonal table through the dense path vs the same variances on the independent path; rounding only
 COV_GLS_MEAN_IN_SD = 0.1  # 6000 exact draws: MC error of a mean is sd/77 = 0.013 sd; 0.1 sd is ~7.7 standard errors
 COV_GLS_SD_RTOL = 0.06  # 6000 exact draws: relative MC error of an sd is 1/sqrt(2 x 6000) = 0.9%; 0.06 is ~6.5 standard errors
@@ -141,6 +141,6 @@ FRACTION_RTOL = 1e-12  # logit-normal fraction vs scipy.special.expit: the same 
 JOINT_CHI2_P_PASS = 1e-3  # host moduli vs truth, chi-square with the posterior covariance: a calibrated posterior fails 1 in 1000
 JOINT_CHI2_P_BIASED = 1e-3  # the simpler model on data with the effect: its chi-square must be as unlikely as that to count as biased
 # --- O/H errors (tests/test_metallicity_errors.py) ---
-OH_ERR_MARGINAL_ATOL = 1e-7  # log p(y | gamma) sums terms of O(1e3) (quadratic form, log-determinants): rounding ~1e-12 of those, measured 9e-9
+OH_ERR_MARGINAL_RTOL = 1e-9  # log p(y | gamma) sums terms of O(1e3) (quadratic form, log-determinants): rounding ~1e-12 of those, measured 9e-9 absolute (~1e-11 relative)
 OH_ERR_GRID_RTOL = 0.08  # a sampled sd (2 x 1500 draws, ESS >= 400 required) vs the grid's: relative MC error <= 1/sqrt(2 x 400) = 3.5%, about 2.3 of them
 OH_ERR_FISHER_RTOL = 0.15  # posterior sd of gamma vs the Fisher expectation: Gaussian without O/H errors (measured 2.4%); with them the posterior follows a ridge of gamma^2 oh_err^2 + scatter^2 cut by scatter >= 0, not Gaussian (measured 10% at the posterior means)

@@ -125,15 +125,16 @@ def _band_model(result, arrays=None, means=None):
     if mu_par is not None:
         own[np.asarray(parts.lin.par_star)] = np.asarray(mu_par)
     gamma = p.get("metallicity_coef", jnp.asarray(0.0)) if model.metallicity else jnp.asarray(0.0)
-    metal = np.asarray(metallicity_offset(np.asarray(arrays.oh, float), model.solar_oh, gamma), float) \
-        if model.metallicity else np.zeros(n)
+    # (n, 1), or (n, k) with one coefficient per band
+    metal = np.asarray(metallicity_offset(np.asarray(arrays.oh, float)[:, None], model.solar_oh,
+                                          jnp.atleast_1d(gamma)[None, :]), float) if model.metallicity else np.zeros((n, 1))
     ext = np.zeros((n, k))
     extinction, _ = nonlinear_inputs(parts, model, p)
     if extinction is not None:
         ebv = np.asarray(pointwise(parts, model, p)["ebv"])
         ext = ebv[:, None] * np.asarray(extinction[0])[None, :]
-    line = pred - metal[:, None] - own[:, None]
-    return {"obs": obs, "err": err, "mask": mask, "correction": metal[:, None] + ext,
+    line = pred - metal - own[:, None]
+    return {"obs": obs, "err": err, "mask": mask, "correction": metal + ext,
             "own_mu": own[:, None] * np.ones((1, k)), "line": line, "bands": bands, "absolute": absolute}
 
 

@@ -36,6 +36,7 @@ LABELS: dict[str, Label] = {
     "outlier_fraction": Label(r"f_\mathrm{out}", "f<sub>out</sub>", "", "fraction of outliers (per galaxy: median)"),
     "outlier_fraction_spread": Label(r"s_f", "s<sub>f</sub>", "", "spread of the per-galaxy outlier fraction (logit)"),
     "host_outlier_fraction": Label(r"f_i", "f<sub>i</sub>", "", "outlier fraction of a galaxy"),
+    "offset_amplitude": Label(r"\alpha", "&alpha;", "", "amplitude of the intrinsic offset in a band (geometric mean 1)"),
     "band_scatter": Label(r"\tau", "&tau;", "mag", "per-band part of the intrinsic scatter"),
     "parallax_offset": Label(r"\varpi_0", "&varpi;<sub>0</sub>", "mas", "parallax zero-point offset"),
     "parallax_length_scale": Label(r"L", "L", "pc", "length scale of the parallax distance prior"),

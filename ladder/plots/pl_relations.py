@@ -191,7 +191,6 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
     bias_d = _bias_draws(result)
     layout = _layout(result)
     bias_gal = set(layout.bias_galaxies) if model.photometric_bias else set()
-    gamma_d = _draws(result, "metallicity_coef")
 
     lo, hi = pts.log_period.min(), pts.log_period.max()
     pad = 0.05 * (hi - lo if hi > lo else 1.0)
@@ -215,6 +214,7 @@ def plot_pl_relations(result, path, *, max_columns: int = 6, band_draws: int = 4
         sll = _draws(result, "pl_slope_long", b_param)
         shift = bias_d[:, i] + (mu_d[:, mu_col[i]] if i in mu_col else 0.0)
         if model.metallicity:  # the points carry the mean metallicity term; the band its spread, at the mean O/H
+            gamma_d = _draws(result, "metallicity_coef", b_param)
             shift = shift + (gamma_d - gamma_d.mean()) * (float(np.nanmean(data.oh[sel])) - model.solar_oh)
         lines = shift[take, None] + _pl_line(result, grid[None, :], zp[take, None], sl[take, None], sll[take, None])
         b16, b84 = np.quantile(lines, [0.16, 0.84], axis=0)

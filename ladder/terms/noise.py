@@ -1,8 +1,49 @@
-"""Noise model of one Cepheid's magnitudes: independent errors plus a star-level common offset."""
+"""Noise model of one Cepheid's magnitudes: independent errors plus a star-level common offset (and, optionally, an
+independent per-band part of the intrinsic scatter, :func:`band_variances`)."""
 
-__all__ = ["precision_weights", "offset_factor", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
+__all__ = ["band_variances", "amplitude_scaled", "precision_weights", "offset_factor", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
 
 _LOG_2PI = 1.8378770664093453
+
+
+def band_variances(var, band_scatter):
+    r"""Per-band variances of one star's magnitudes with an independent per-band part of the intrinsic scatter.
+
+    With ``[model] scatter_bands = true`` a star's intrinsic offset is a common part :math:`s_j` shared by its
+    bands plus an independent part :math:`t_{jB} \sim \mathcal N(0, \tau_B^2)` per band (one width per band,
+    output ``band_scatter``), so its covariance is
+
+    .. math:: C_j = D_j + \mathrm{diag}(\tau_B^2) + s_j^2\,\mathbf 1\mathbf 1^T,
+
+    i.e. the diagonal :math:`D_j = \mathrm{diag}(\sigma_{jB}^2)` becomes :math:`\sigma_{jB}^2 + \tau_B^2`, and
+    every formula below (Sherman-Morrison with :math:`w_B = 1/(\sigma_{jB}^2 + \tau_B^2)`) holds unchanged. An
+    instability strip of finite width makes a star's offset differ between bands (at fixed period a brighter
+    Cepheid is bluer: e.g. Madore & Freedman 1991, PASP 103, 933); the per-band part absorbs the band-to-band
+    differences of the offsets that one common offset cannot. ``var`` (k,) mag^2, ``band_scatter`` (k,) mag.
+    """
+    return var + band_scatter**2
+
+
+def amplitude_scaled(resid, var, mask, amplitude):
+    r"""One star's residuals and variances rescaled so that a common offset with per-band amplitudes becomes the
+    common offset of :func:`common_offset_normal_logpdf`.
+
+    With ``[model] offset_amplitudes = true`` the star's intrinsic offset enters band :math:`B` as
+    :math:`\alpha_B s_j` (output ``offset_amplitude``, geometric mean 1): a star displaced within the
+    instability strip is brighter *and bluer*, by amounts that differ between bands (e.g. Madore & Freedman 1991,
+    PASP 103, 933). Its covariance is :math:`C = D + s^2\alpha\alpha^T = A(A^{-1}DA^{-1} + s^2\mathbf 1\mathbf
+    1^T)A` with :math:`A = \mathrm{diag}(\alpha)`, so with :math:`r'_B = r_B/\alpha_B` and
+    :math:`\sigma'^2_B = \sigma_B^2/\alpha_B^2`
+
+    .. math:: \ln\mathcal N(r \mid 0, C) = \ln\mathcal N(r' \mid 0, D' + s^2\mathbf 1\mathbf 1^T)
+              - \sum_{B\ \mathrm{observed}} \ln\alpha_B
+
+    (a linear change of variables; an extinction vector :math:`a` becomes :math:`a/\alpha`). Returns
+    ``(r', var', log_jacobian)``.
+    """
+    import jax.numpy as jnp
+
+    return resid / amplitude, var / amplitude**2, -jnp.sum(jnp.where(mask, jnp.log(amplitude), 0.0))
 
 
 def precision_weights(var, mask, offset_var):
