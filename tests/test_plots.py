@@ -46,7 +46,7 @@ WI_R = 1.55
 WAVELENGTHS = (("I", 0.80), ("V", 0.55))
 N_PER_CLOUD = 80
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
-TINY = SamplerSettings(chains=2, warmup=200, draws=200, seed=1, progress=False)
+TINY = SamplerSettings(chains=2, warmup=200, draws=200, seed=1, progress=False, max_draws=200)  # figures need draws, not convergence: no extension
 
 
 def _clouds() -> LadderData:
