@@ -449,16 +449,11 @@ def run_calibration(run_file, out_dir, replications: int, *, workers: int | None
     ``ranks.ecsv``, ``coverage.ecsv``, ``uniformity.ecsv``, ``calibration.json`` and ``sbc.png`` are written
     together. Returns ``(ranks, coverage, uniformity)`` astropy tables.
     """
-    from .sweep import run_tasks
+    from .sweep import prepare_out, run_tasks
 
     say = progress or (lambda line: None)
     plan = plan_calibration(run_file, replications, seed, n_ranks)
-    out = Path(out_dir)
-    if out.exists() and not out.is_dir():
-        raise InputError("exists and is not a directory", file=str(out), key="--out")
-    if workers is not None and workers < 1:
-        raise InputError(f"must be >= 1, got {workers}", key="--workers")
-    out.mkdir(parents=True, exist_ok=True)
+    out = prepare_out(out_dir, workers)
     records: dict[int, dict] = {}
     for i in range(replications):
         rec = _read_record(out, i, plan.key)

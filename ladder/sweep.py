@@ -204,12 +204,7 @@ def run_sweep(run_file: str | Path, out_dir: str | Path, *, workers: int | None 
     """
     say = progress or (lambda line: None)
     plan = plan_sweep(run_file)
-    out = Path(out_dir)
-    if out.exists() and not out.is_dir():
-        raise InputError("exists and is not a directory", file=str(out), key="--out")
-    if workers is not None and workers < 1:
-        raise InputError(f"must be >= 1, got {workers}", key="--workers")
-    out.mkdir(parents=True, exist_ok=True)
+    out = prepare_out(out_dir, workers)
     status: dict[str, dict] = {}
     todo = []
     for name, cfg in plan.configs.items():
@@ -281,6 +276,17 @@ def _run_distributed(plan, todo, out, workers, scheduler, plots, argv, report, s
               workers=workers, scheduler=scheduler, report=report, say=say, label="sweep",
               failed=lambda name, exc: {"variant": name, "status": "failed", "error": f"{type(exc).__name__}: {exc}",
                                         "seconds": 0.0})
+
+
+def prepare_out(out_dir, workers: int | None) -> Path:
+    """Check ``--out`` and ``--workers`` of a sweep or a calibration, then create the directory."""
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise InputError("exists and is not a directory", file=str(out), key="--out")
+    if workers is not None and workers < 1:
+        raise InputError(f"must be >= 1, got {workers}", key="--workers")
+    out.mkdir(parents=True, exist_ok=True)
+    return out
 
 
 def run_tasks(fn: Callable, tasks: dict[str, tuple], *, workers: int | None = None, scheduler: str | None = None,
