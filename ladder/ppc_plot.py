@@ -30,7 +30,7 @@ def plot_predictive_check(table, path, *, max_rows: int = 60) -> Path:
     ax.scatter(ratio, y, c=colors, s=18)
     ax.axvline(1.0, color="0.4", lw=0.8)
     ax.set_yticks(y, [f"{table['galaxy'][i]} ({table['n_cepheids'][i]})" for i in order], fontsize=7)
-    ax.set_xlabel("T_obs / mean T_rep  (capped chi-square of residuals)")
+    ax.set_xlabel("T_obs / mean T_rep\n(capped chi-square of residuals)")
     ax.set_title("observed vs replicated discrepancy per galaxy", fontsize=9)
     bx.scatter(np.maximum(p, 1e-3), y, c=colors, s=18, marker="o", label="dispersion, sum min(z^2, 25)")
     bx.scatter(np.maximum(p4, 1e-3), y, c=colors, s=22, marker="x", label="tails, sum z^4")
@@ -39,7 +39,7 @@ def plot_predictive_check(table, path, *, max_rows: int = 60) -> Path:
     bx.set_xlim(8e-4, 1.2)
     bx.axvline(0.01, color="C3", lw=0.8, ls=":")
     bx.set_yticks(y, [""] * n)
-    bx.set_xlabel("predictive p-value P(T_rep >= T_obs)  (p < 1e-3 drawn at 1e-3)")
+    bx.set_xlabel("predictive p-value P(T_rep >= T_obs)\n(p < 1e-3 drawn at 1e-3)")
     bx.set_title("red: p < 0.01 (the model rarely produces data like these)", fontsize=9)
     if len(table) > n:
         fig.suptitle(f"the {n} lowest p-values of {len(table)} galaxies", fontsize=9)
