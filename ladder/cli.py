@@ -504,7 +504,19 @@ class _Terminated(KeyboardInterrupt):
 
 
 def _on_sigterm(signum, frame):
+    from .outputs import note_signal
+
+    note_signal(signum)
     raise _Terminated()
+
+
+def _on_sigint(signum, frame):
+    """Python's own SIGINT handler, plus a record: a KeyboardInterrupt swallowed in a finalizer is still acted
+    on before outputs are written (:data:`ladder.outputs._SEEN`)."""
+    from .outputs import note_signal
+
+    note_signal(signum)
+    raise KeyboardInterrupt
 
 
 def console_main() -> None:
@@ -532,10 +544,15 @@ def main(argv: list[str] | None = None) -> int:
     import signal
     import threading
 
+    from .outputs import note_signal
+
     args = _parser().parse_args(argv)
-    previous = None
+    previous, previous_int = None, None
+    note_signal(None)
     if threading.current_thread() is threading.main_thread():
         previous = signal.signal(signal.SIGTERM, _on_sigterm)
+        if signal.getsignal(signal.SIGINT) is signal.default_int_handler:  # an ignored SIGINT stays ignored
+            previous_int = signal.signal(signal.SIGINT, _on_sigint)
     try:
         return {"fit": _fit, "check": _check, "simulate": _simulate, "report": _report, "verify": _verify,
                 "sweep": _sweep, "compare": _compare, "calibrate": _calibrate}[args.command](args)
@@ -552,6 +569,8 @@ def main(argv: list[str] | None = None) -> int:
     finally:
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)
+        if previous_int is not None:
+            signal.signal(signal.SIGINT, previous_int)
 
 
 if __name__ == "__main__":  # pragma: no cover

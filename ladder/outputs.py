@@ -36,6 +36,21 @@ def check_out_dir(out_dir: str | Path, force: bool) -> Path:
     return out
 
 
+#: Signals the command's handlers received (:func:`note_signal`, called by ladder.cli). Python cannot raise an
+#: exception from a finalizer or a weakref callback ("Exception ignored in ..."): a signal that lands there is
+#: swallowed, and the run would go on to write its outputs. It stays recorded here and is acted on before any
+#: output set is written (:class:`_SignalsHeld`).
+_SEEN: list[int] = []
+
+
+def note_signal(signum: int | None) -> None:
+    """Record a received signal (``None``: forget them all, at the start of a command)."""
+    if signum is None:
+        _SEEN.clear()
+    else:
+        _SEEN.append(signum)
+
+
 class _SignalsHeld:
     """Hold SIGINT/SIGTERM for a few file operations: a signal that comes meanwhile is recorded, and the
     handler that was installed before is called for it on leaving (so a KeyboardInterrupt is raised there).
@@ -49,9 +64,17 @@ class _SignalsHeld:
 
     def __enter__(self):
         import signal
+        import sys
         import threading
 
         if threading.current_thread() is threading.main_thread():
+            if _SEEN:
+                sig = _SEEN[0]
+                _SEEN.clear()
+                if not isinstance(sys.exc_info()[1], KeyboardInterrupt):  # swallowed (see _SEEN): act on it now
+                    handler = signal.getsignal(sig)
+                    if callable(handler):
+                        handler(sig, None)  # raises (KeyboardInterrupt, or SIGTERM's subclass of it)
             for name in ("SIGINT", "SIGTERM"):
                 sig = getattr(signal, name, None)
                 if sig is not None:
