@@ -690,6 +690,11 @@ def _assert_one_clear_error(code, out, err, case: Case, fmt: str):
 
 @pytest.mark.parametrize(("case", "fmt", "command"), ALL_CASES)
 def test_bad_input_gives_one_clear_error(case, fmt, command, tmp_path, capsys):
+    check_case(case, fmt, command, tmp_path, capsys)
+
+
+def check_case(case, fmt, command, tmp_path, capsys):
+    """Write the case's run, run the command in-process: exit 2, one clear message, nothing written."""
     run = Run(tmp_path / "run", fmt=fmt)
     case.mutate(run)
     run.write()

@@ -16,8 +16,8 @@ import pytest
 from astropy.table import Column, Table
 
 from ladder.cli import EXIT_OK
-from test_bad_input import (Case, Run, _assert_one_clear_error, _both, _doc, _parallax_group, _run_cli, _sn_table,
-                            _snapshot, _text_cell)
+from test_bad_input import (Case, Run, _both, _doc, _parallax_group, _run_cli, _sn_table,
+                            _text_cell, check_case)
 
 
 def _cov_table(kind, rows, unit="mag2", name=None):
@@ -118,16 +118,7 @@ def _expand(cases):
 
 @pytest.mark.parametrize(("case", "fmt", "command"), list(_expand(CASES)))
 def test_bad_covariance_gives_one_clear_error(case, fmt, command, tmp_path, capsys):
-    run = Run(tmp_path / "run", fmt=fmt)
-    case.mutate(run)
-    run.write()
-    out_dir = tmp_path / "out"
-    before = _snapshot(tmp_path)
-    argv = [command, run.dir / case.run_name] + (["--out", out_dir] if command == "fit" else [])
-    code, out, err = _run_cli(argv, capsys)
-    _assert_one_clear_error(code, out, err, case, fmt)
-    assert not out_dir.exists()
-    assert _snapshot(tmp_path) == before
+    check_case(case, fmt, command, tmp_path, capsys)
 
 
 @pytest.mark.parametrize("fmt", ["ecsv", "csv"])
