@@ -46,7 +46,7 @@ import numpy as np
 from .errors import InputError
 
 __all__ = ["LEVELS", "N_RANKS", "HOSTS_CHI2", "improper_priors", "check_proper", "draw_truth", "simulate_like",
-           "run_replication", "run_calibration", "calibration_tables", "sbc_figure", "CalibrationPlan",
+           "run_replication", "run_calibration", "calibration_tables", "CalibrationPlan",
            "plan_calibration", "SUMMARY_FILES"]
 
 #: Nominal levels of the central intervals whose coverage is tabulated.
@@ -588,52 +588,6 @@ def calibration_tables(records: list[dict], plan: CalibrationPlan):
     return ranks, coverage, uniformity
 
 
-# ----------------------------------------------------------------------------- figure
-def sbc_figure(ranks, n_ranks: int = N_RANKS, max_panels: int = 30):
-    """Rank histograms, one panel per quantity (replications that passed), with the 99% band of the counts a
-    uniform rank gives (binomial; Talts et al. 2018, Fig. 3). Returns a matplotlib Figure or None."""
-    from scipy import stats
-
-    from .plots._style import ROLE_COLORS, _figure
-
-    ok = ranks[(ranks["status"] == "done") & ranks["passed"]] if len(ranks) else ranks
-    labels = list(dict.fromkeys(str(p) for p in ok["parameter"])) if len(ok) else []
-    if not labels:
-        return None
-    shown = labels[:max_panels]
-    ncol = min(5, len(shown))
-    nrow = math.ceil(len(shown) / ncol)
-    fig = _figure(2.6 * ncol + 0.4, 2.1 * nrow + 0.8)
-    axes = fig.subplots(nrow, ncol, squeeze=False)
-    for ax in axes.ravel()[len(shown):]:
-        ax.set_visible(False)
-    for ax, label in zip(axes.ravel(), shown):
-        r = np.asarray(ok["rank"][ok["parameter"] == label], int)
-        n = r.size
-        b = _bins(n_ranks + 1, n, per_bin=10.0)
-        b = max(b, 2) if (n_ranks + 1) % 2 == 0 else b
-        counts = np.bincount(r * b // (n_ranks + 1), minlength=b)
-        lo, hi = stats.binom.ppf([0.005, 0.995], n, 1.0 / b)
-        edges = np.linspace(0, n_ranks + 1, b + 1)
-        ax.axhspan(lo, hi, color="0.85", lw=0)
-        ax.axhline(n / b, color="0.5", lw=0.8)
-        ax.stairs(counts, edges, fill=True, color=ROLE_COLORS["host"], alpha=0.6)
-        for y in (lo, hi):  # the band's edges on top of the bars: a bar below the band shows too
-            ax.axhline(y, color="0.35", lw=0.7, ls=":")
-        ax.set_xlim(0, n_ranks + 1)
-        ax.set_title(label, fontsize=8)
-        ax.tick_params(labelsize=7)
-    for ax in axes[-1]:
-        ax.set_xlabel(f"rank of truth (of {n_ranks + 1})", fontsize=7)
-    for ax in axes[:, 0]:
-        ax.set_ylabel("replications", fontsize=7)
-    more = f"; {len(labels) - len(shown)} more in ranks.ecsv" if len(labels) > len(shown) else ""
-    fig.suptitle(f"Rank histograms of {int(np.unique(np.asarray(ok['replication'])).size)} replications "
-                 f"(grey: 99% band of one bin's count for uniform ranks, so ~1 bin in 100 falls outside by chance{more})", fontsize=9)
-    fig.tight_layout()
-    return fig
-
-
 # ----------------------------------------------------------------------------- writing
 def _write_summary(out: Path, plan: CalibrationPlan, tables, plots: bool, argv) -> None:
     """Write the summary files into a fresh directory, then move them into ``out`` with SIGINT/SIGTERM held:
@@ -664,6 +618,8 @@ def _write_summary(out: Path, plan: CalibrationPlan, tables, plots: bool, argv) 
         (tmp / "calibration.json").write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
         if plots:
             from .plots._style import _save
+
+            from .plots.sbc import sbc_figure
 
             fig = sbc_figure(ranks, plan.n_ranks)
             if fig is not None:

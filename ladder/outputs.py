@@ -130,7 +130,7 @@ def write_outputs(result, out_dir, *, config=None, force=False, argv=None, plots
         if ppc is not None:
             ppc.write(tmp / "ppc.ecsv", format="ascii.ecsv")
             if plots:
-                from .ppc_plot import plot_predictive_check
+                from .plots.predictive_check import plot_predictive_check
 
                 plot_predictive_check(ppc, tmp / "ppc.png")
         for name, table in (extra_tables or {}).items():
