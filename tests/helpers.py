@@ -181,3 +181,41 @@ def fit_ensemble(root, seeds, n_hosts=4, n_cepheids=120, draws=400, cache=None):
         truth = json.loads((root / f"mock{seed}" / "truth.json").read_text())
         out.append((az.from_netcdf(str(root / f"fit{seed}" / "posterior.nc")), truth))
     return out
+
+
+def signal_mid_run(args, marker: str, delay_s: float, sig, timeout: float = 300) -> tuple[int, str, str]:
+    """Run ``python -m ladder ARGS`` as a real process, send ``sig`` ``delay_s`` seconds after a stderr line
+    containing ``marker``; return (exit code, stdout, stderr).
+
+    A child inherits an ignored SIGINT (e.g. pytest started in the background); with a handler here it starts
+    with the default disposition, as from an interactive shell.
+    """
+    import signal
+    import subprocess
+    import sys
+    import time
+    from pathlib import Path
+
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        proc = subprocess.Popen([sys.executable, "-m", "ladder", *map(str, args)],
+                                cwd=Path(__file__).resolve().parents[1], stdout=subprocess.PIPE,
+                                stderr=subprocess.PIPE, text=True)
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    try:
+        head = []
+        for line in proc.stderr:
+            head.append(line)
+            if marker in line:
+                break
+        assert any(marker in ln for ln in head), "".join(head)
+        time.sleep(delay_s)
+        assert proc.poll() is None, f"ladder {args[0]} ended before it could be interrupted"
+        proc.send_signal(sig)
+        stdout, rest = proc.communicate(timeout=timeout)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    return proc.returncode, stdout, "".join(head) + rest

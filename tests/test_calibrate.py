@@ -225,10 +225,8 @@ def test_signal_mid_calibration_keeps_the_earlier_summary(calibrated, tmp_path, 
     the summary files of the earlier calibration stay byte for byte, no partial summary is left, the finished
     records are kept (rerunning resumes), and the exit code is the shell's 128 + signal."""
     import shutil
-    import signal
-    import subprocess
-    import sys
-    import time
+
+    from helpers import signal_mid_run
 
     run, out, _ = calibrated
     copy = tmp_path / "cal"
@@ -236,30 +234,9 @@ def test_signal_mid_calibration_keeps_the_earlier_summary(calibrated, tmp_path, 
     summary = {n: (copy / n).read_bytes() for n in ("ranks.ecsv", "coverage.ecsv", "uniformity.ecsv",
                                                      "calibration.json", "sbc.png")}
     records = {p.name: p.read_bytes() for p in (copy / "replications").iterdir()}
-    previous = signal.signal(signal.SIGINT, signal.default_int_handler)  # the child starts with the default
-    try:
-        proc = subprocess.Popen([sys.executable, "-m", "ladder", "calibrate", str(run), "--replications", "40",
-                                 "--out", str(copy), "--workers", "1"], cwd=Path(__file__).resolve().parents[1],
-                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    finally:
-        signal.signal(signal.SIGINT, previous)
-    try:
-        head = []
-        for line in proc.stderr:
-            head.append(line)
-            if "Dask cluster" in line:
-                break
-        assert any("Dask cluster" in ln for ln in head), "".join(head)
-        time.sleep(2.0)
-        assert proc.poll() is None, "the calibration ended before it could be interrupted"
-        proc.send_signal(sig)
-        _, rest = proc.communicate(timeout=120)
-    finally:
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait()
-    err = "".join(head) + rest
-    assert proc.returncode == code, err
+    returncode, _, err = signal_mid_run(["calibrate", run, "--replications", "40", "--out", copy, "--workers", "1"],
+                                        "Dask cluster", 2.0, sig, timeout=120)
+    assert returncode == code, err
     assert "calibration interrupted" in err and "Traceback" not in err, err
     assert {n: (copy / n).read_bytes() for n in summary} == summary
     assert not [p for p in copy.iterdir() if p.name.startswith(".summary")]

@@ -5,8 +5,6 @@ samples; exit codes follow the shell's 128 + signal number convention (SIGINT 2 
 """
 
 import signal
-import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -14,8 +12,8 @@ import pytest
 
 from ladder.cli import EXIT_SIGINT, EXIT_SIGTERM, main
 from ladder.simulate import MockSettings, simulate, write_mock
+from helpers import signal_mid_run
 
-ROOT = Path(__file__).resolve().parents[1]
 #: Sequential chains of this length keep the process sampling for several seconds after compilation, and a
 #: signal is acted on at the latest when the chain in progress ends (a few seconds).
 #: NUTS (the default would draw this mock's posterior independently in ~3 s, over before the signal).
@@ -47,32 +45,10 @@ def runs(tmp_path_factory):
                          ids=["SIGINT", "SIGTERM"])
 def test_signal_mid_fit_writes_nothing_and_keeps_the_earlier_set(runs, sig, code):
     long_run, out, before = runs
-    # A child inherits an ignored SIGINT (e.g. pytest started in the background); with a handler here it
-    # starts with the default disposition, as from an interactive shell.
-    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
-    try:
-        proc = subprocess.Popen(
-            [sys.executable, "-m", "ladder", "fit", str(long_run), "--out", str(out), "--force", "--no-plots"],
-            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    finally:
-        signal.signal(signal.SIGINT, previous)
-    try:
-        head = []
-        for line in proc.stderr:  # the CLI announces the sampler just before it starts
-            head.append(line)
-            if "warm-up" in line:
-                break
-        assert any("warm-up" in ln for ln in head), "".join(head)
-        time.sleep(SIGNAL_DELAY_S)
-        assert proc.poll() is None, "the fit ended before it could be interrupted"
-        proc.send_signal(sig)
-        stdout, rest = proc.communicate(timeout=300)
-    finally:
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait()
-    err = "".join(head) + rest
-    assert proc.returncode == code, err
+    # the CLI announces the sampler ("... warm-up ...") just before it starts
+    returncode, stdout, err = signal_mid_run(["fit", long_run, "--out", out, "--force", "--no-plots"],
+                                             "warm-up", SIGNAL_DELAY_S, sig)
+    assert returncode == code, err
     assert "ladder: interrupted; nothing was written" in err, err
     assert "Traceback" not in err, err
     assert stdout == ""  # no headline: no result
