@@ -632,17 +632,19 @@ def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_va
     (:func:`ladder.terms.outliers.blend_logpdf`). ``(core, other or None)``."""
     import jax
 
-    from .terms.noise import common_offset_normal_logpdf, reddened_star_logpdf
+    from .terms.noise import band_sums, offset_logpdf_from_sums, reddened_logpdf_from_sums
     from .terms.outliers import blend_logpdf
 
     resid, var, extinction, logjac = _band_noise(parts, resid, extinction, band_noise)
     mask = parts.lin.mask
+    # the band sums do not depend on the offset variance: formed once, shared by both components
     if extinction is None:
-        dens = lambda s2: jax.vmap(common_offset_normal_logpdf)(resid, var, mask, s2)  # noqa: E731
+        sums = band_sums(resid, var, mask)
+        dens = lambda s2: offset_logpdf_from_sums(sums, s2)  # noqa: E731
     else:
         a, rate = extinction
-        dens = lambda s2: jax.vmap(reddened_star_logpdf, in_axes=(0, 0, 0, 0, None, 0))(  # noqa: E731
-            resid, var, mask, s2, a, rate)
+        sums = band_sums(resid, var, mask, a)
+        dens = lambda s2: reddened_logpdf_from_sums(sums, s2, rate)  # noqa: E731
     core = dens(offset_var) + logjac
     if not outliers:
         return core, None

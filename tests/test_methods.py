@@ -24,6 +24,7 @@ from ladder.model import model_arrays, model_parts
 from ladder.simulate import MockSettings, simulate, write_mock
 from ladder.structure import conditional_draw, conditional_mean, log_marginal
 from tolerances import (METHOD_MEAN_IN_SD, METHOD_SD_RTOL, MARGINAL_VS_DENSE_RTOL, CONDITIONAL_VS_DENSE_RTOL,
+                        CURVATURE_MASS_VS_DENSE_RTOL,
                         EXACT_DRAW_MEAN_Z)
 
 
@@ -197,3 +198,39 @@ def test_gls_refuses_free_hyperparameters(tmp_path_factory):
     mixture = dataclasses.replace(cfg.model, outliers="mixture")
     with pytest.raises(ladder.InputError, match="mixture"):
         ladder.fit(data, mixture, dataclasses.replace(cfg.sampler, method="marginal"))
+
+
+def test_nuts_starting_mass_is_the_posterior_covariance_of_a_gaussian_model(tmp_path_factory):
+    """NUTS starts its warm-up from the inverse Hessian of the log posterior at the starting point
+    (``ladder.sampling.curvature_mass``). With every hyperparameter fixed the posterior is Gaussian, so that
+    matrix is exactly the posterior covariance of the linear block: checked against the dense
+    (X^T Sigma^-1 X + Lambda0)^-1 written here with numpy (Bishop 2006, PRML eq. 3.51)."""
+    from numpyro.infer import init_to_value
+
+    from ladder.model import full_model
+    from ladder.sampling import _dense_block, curvature_mass, initial_values, traced_model
+
+    cfg, data, truth = _mock(tmp_path_factory, "mass", n_hosts=5, n_anchors=2, n_cepheids=250)
+    priors = dict(cfg.model.priors)
+    priors["scatter"] = PriorSpec("fixed", (("value", truth["scatter"]),))
+    settings = dataclasses.replace(cfg.model, priors=tuple(priors.items()))
+    arrays, layout = model_arrays(data, settings)
+    parts = model_parts(arrays, layout, settings)
+    init = initial_values(parts, layout, settings, "nuts")
+    model, ap = traced_model(full_model, parts, settings, layout)
+    strategy = init_to_value(values={k: jnp.asarray(v) for k, v in init.items()})
+    inverse_mass, blocks = curvature_mass(model, ap, strategy, _dense_block(init))
+    (block,) = blocks  # no per-star or per-galaxy latents here: one dense block over everything
+    got = np.asarray(inverse_mass[block])
+
+    n = parts.lin.y0.shape[0]
+    X, y, Sigma, m0, prec = _dense(parts, np.full(n, truth["scatter"] ** 2), None, 0.0)
+    want = np.linalg.inv(X.T @ np.linalg.solve(Sigma, X) + np.diag(prec))
+    st, L = parts.structure, parts.structure.n_local
+    cols = {"mu": np.arange(st.n_galaxies) * L}
+    for name in block:
+        if name != "mu":
+            cols[name] = np.atleast_1d(np.asarray(st.index(name))) + st.n_galaxies * L
+    order = np.concatenate([cols[k] for k in block])
+    np.testing.assert_allclose(got, want[np.ix_(order, order)], rtol=CURVATURE_MASS_VS_DENSE_RTOL,
+                               atol=CURVATURE_MASS_VS_DENSE_RTOL * np.abs(want).max())

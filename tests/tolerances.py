@@ -144,3 +144,6 @@ JOINT_CHI2_P_BIASED = 1e-3  # the simpler model on data with the effect: its chi
 OH_ERR_MARGINAL_RTOL = 1e-9  # log p(y | gamma) sums terms of O(1e3) (quadratic form, log-determinants): rounding ~1e-12 of those, measured 9e-9 absolute (~1e-11 relative)
 OH_ERR_GRID_RTOL = 0.08  # a sampled sd (2 x 1500 draws, ESS >= 400 required) vs the grid's: relative MC error <= 1/sqrt(2 x 400) = 3.5%, about 2.3 of them
 OH_ERR_FISHER_RTOL = 0.15  # posterior sd of gamma vs the Fisher expectation: Gaussian without O/H errors (measured 2.4%); with them the posterior follows a ridge of gamma^2 oh_err^2 + scatter^2 cut by scatter >= 0, not Gaussian (measured 10% at the posterior means)
+
+# --- NUTS starting mass matrix (tests/test_methods.py) ---
+CURVATURE_MASS_VS_DENSE_RTOL = 1e-7  # autodiff Hessian inverted (eigh) vs the dense posterior covariance (numpy inv); condition ~1e6, rounding ~1e-10

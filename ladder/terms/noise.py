@@ -1,7 +1,9 @@
 """Noise model of one Cepheid's magnitudes: independent errors plus a star-level common offset (and, optionally, an
 independent per-band part of the intrinsic scatter, :func:`band_variances`)."""
 
-__all__ = ["band_variances", "amplitude_scaled", "precision_weights", "offset_factor", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
+from typing import NamedTuple
+
+__all__ = ["BandSums", "band_sums", "offset_logpdf_from_sums", "reddened_logpdf_from_sums", "band_variances", "amplitude_scaled", "precision_weights", "offset_factor", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
 
 _LOG_2PI = 1.8378770664093453
 
@@ -46,19 +48,19 @@ def amplitude_scaled(resid, var, mask, amplitude):
     return resid / amplitude, var / amplitude**2, -jnp.sum(jnp.where(mask, jnp.log(amplitude), 0.0))
 
 
-def precision_weights(var, mask, offset_var):
-    r"""The inverse of one star's band covariance :math:`C = D + s^2\,\mathbf 1\mathbf 1^T` in closed form.
+def precision_weights(var, mask):
+    r"""The diagonal part of the inverse of one star's band covariance :math:`C = D + s^2\,\mathbf 1\mathbf 1^T`.
 
     By the Sherman-Morrison formula :math:`C^{-1} = W - c\,w w^T` with :math:`w_b = 1/\sigma_b^2` on the bands
-    observed (``mask``; 0 elsewhere) and :math:`c = s^2 / (1 + s^2 \sum_b w_b)`, so that for any band vectors
-    :math:`u^T C^{-1} v = \sum_b w_b u_b v_b - c\,(\sum_b w_b u_b)(\sum_b w_b v_b)`. Returns ``(w, c)``:
-    (k,) and a scalar. Used by the per-star likelihood below and by the normal equations of
-    :mod:`ladder.structure`.
+    observed (``mask``; 0 elsewhere) and :math:`c = s^2 / (1 + s^2 \sum_b w_b)` (:func:`offset_factor`), so that
+    for any band vectors :math:`u^T C^{-1} v = \sum_b w_b u_b v_b - c\,(\sum_b w_b u_b)(\sum_b w_b v_b)`.
+    Returns ``w`` (..., k). The per-star densities below take their band sums (:func:`band_sums`) once and
+    evaluate any :math:`s^2` from them; the normal equations of :mod:`ladder.structure` use the same
+    :func:`offset_factor`.
     """
     import jax.numpy as jnp
 
-    w = jnp.where(mask, 1.0 / jnp.where(mask, var, 1.0), 0.0)
-    return w, offset_factor(offset_var, jnp.sum(w))
+    return jnp.where(mask, 1.0 / jnp.where(mask, var, 1.0), 0.0)
 
 
 def offset_factor(offset_var, sum_w):
@@ -92,27 +94,53 @@ def common_offset_normal_logpdf(resid, var, mask, offset_var):
     offset_var : float
         :math:`s^2`, mag².
     """
+    return offset_logpdf_from_sums(band_sums(resid, var, mask), offset_var)
+
+
+class BandSums(NamedTuple):
+    r"""Sums over one star's observed bands (or, on arrays (..., k), over the last axis) with the weights
+    :math:`w_b = 1/\sigma_b^2` of :func:`precision_weights`: everything the densities below need, computed once
+    and shared by every offset variance (the outlier mixture evaluates two) -- the sums do not depend on it."""
+
+    w: object  #: sum w_b
+    wr: object  #: sum w_b r_b
+    wrr: object  #: sum w_b r_b^2
+    logdet: object  #: sum ln sigma_b^2 (the diagonal's log-determinant)
+    n: object  #: number of bands observed
+    wa: object = None  #: sum w_b a_b (with an extinction vector a)
+    waa: object = None  #: sum w_b a_b^2
+    war: object = None  #: sum w_b a_b r_b
+
+
+def band_sums(resid, var, mask, a=None) -> BandSums:
+    """The :class:`BandSums` of residuals ``resid``, variances ``var`` and ``mask`` (..., k), and of an
+    extinction vector ``a`` (k,) or (..., k) if given."""
     import jax.numpy as jnp
 
-    w, c = precision_weights(var, mask, offset_var)
+    w = precision_weights(var, mask)
     r = jnp.where(mask, resid, 0.0)
-    swr = jnp.sum(w * r)
-    quad = jnp.sum(w * r * r) - c * swr * swr
-    logdet = jnp.sum(jnp.where(mask, jnp.log(jnp.where(mask, var, 1.0)), 0.0)) + jnp.log1p(offset_var * jnp.sum(w))
-    n = jnp.sum(mask)
-    return -0.5 * (quad + logdet + n * _LOG_2PI)
+    wr = w * r
+    sums = dict(w=jnp.sum(w, -1), wr=jnp.sum(wr, -1), wrr=jnp.sum(wr * r, -1), n=jnp.sum(mask, -1),
+                logdet=jnp.sum(jnp.where(mask, jnp.log(jnp.where(mask, var, 1.0)), 0.0), -1))
+    if a is not None:
+        wa = w * a
+        sums.update(wa=jnp.sum(wa, -1), waa=jnp.sum(wa * a, -1), war=jnp.sum(wa * r, -1))
+    return BandSums(**sums)
 
 
-def _quadratic_terms(resid, var, mask, offset_var, a):
+def offset_logpdf_from_sums(sums: BandSums, offset_var):
+    """:func:`common_offset_normal_logpdf` from the star's :class:`BandSums` at offset variance ``offset_var``."""
+    import jax.numpy as jnp
+
+    c = offset_factor(offset_var, sums.w)
+    quad = sums.wrr - c * sums.wr * sums.wr
+    return -0.5 * (quad + sums.logdet + jnp.log1p(offset_var * sums.w) + sums.n * _LOG_2PI)
+
+
+def _quadratic_terms(sums: BandSums, offset_var):
     """A = a^T C^-1 a and B = a^T C^-1 r for C = diag(var) + s^2 11^T (:func:`precision_weights`)."""
-    import jax.numpy as jnp
-
-    w, c = precision_weights(var, mask, offset_var)
-    r = jnp.where(mask, resid, 0.0)
-    wa, wr = jnp.sum(w * a), jnp.sum(w * r)
-    A = jnp.sum(w * a * a) - c * wa * wa
-    B = jnp.sum(w * a * r) - c * wa * wr
-    return A, B
+    c = offset_factor(offset_var, sums.w)
+    return sums.waa - c * sums.wa * sums.wa, sums.war - c * sums.wa * sums.wr
 
 
 def reddened_star_logpdf(resid, var, mask, offset_var, a, rate):
@@ -132,11 +160,16 @@ def reddened_star_logpdf(resid, var, mask, offset_var, a, rate):
     This is the Gaussian integral over the half line :math:`E \ge 0` (an exponentially modified
     Gaussian); it removes one latent parameter per star from the sampler.
     """
+    return reddened_logpdf_from_sums(band_sums(resid, var, mask, a), offset_var, rate)
+
+
+def reddened_logpdf_from_sums(sums: BandSums, offset_var, rate):
+    """:func:`reddened_star_logpdf` from the star's :class:`BandSums` (with the extinction vector)."""
     import jax.numpy as jnp
     from jax.scipy.special import log_ndtr
 
-    base = common_offset_normal_logpdf(resid, var, mask, offset_var)
-    A, B = _quadratic_terms(resid, var, mask, offset_var, a)
+    base = offset_logpdf_from_sums(sums, offset_var)
+    A, B = _quadratic_terms(sums, offset_var)
     A = jnp.maximum(A, 1e-12)
     e_hat = (B - rate) / A
     return base + jnp.log(rate) + 0.5 * A * e_hat**2 + 0.5 * jnp.log(2 * jnp.pi / A) + log_ndtr(e_hat * jnp.sqrt(A))
@@ -150,7 +183,7 @@ def reddening_posterior_mean(resid, var, mask, offset_var, a, rate):
     import jax.numpy as jnp
     from jax.scipy.special import log_ndtr
 
-    A, B = _quadratic_terms(resid, var, mask, offset_var, a)
+    A, B = _quadratic_terms(band_sums(resid, var, mask, a), offset_var)
     A = jnp.maximum(A, 1e-12)
     e_hat = (B - rate) / A
     t = e_hat * jnp.sqrt(A)
