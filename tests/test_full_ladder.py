@@ -189,6 +189,8 @@ def test_h0_and_extinction_recovered(hubble):
     mock, result = hubble
     t = mock.truth
     assert result.diagnostics.passed, result.diagnostics.report()
+    # 2,700 fitted magnitudes: NUTS starts its warm-up from the curvature, and says so
+    assert result.method == "nuts" and any("curvature" in n for n in result.diagnostics.notes), result.diagnostics.notes
     assert_recovers(result, t, names=["h0", "sn_abs_mag", "sn_scatter", "r_v", "metallicity_coef", "scatter"])
     assert "h0" in list(result.parameters["name"])
     assert result.parameters[list(result.parameters["name"]).index("h0")]["unit"] == "km/s/Mpc"
