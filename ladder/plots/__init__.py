@@ -1,7 +1,8 @@
 r"""Figures of a fit, one module per figure: PL relation per galaxy (:mod:`.pl_relations`), corner plot of the
 global parameters (:mod:`.corner`), distance forest plot (:mod:`.distances`), Hubble diagram of the supernovae
 (:mod:`.hubble`), the posterior predictive check (:mod:`.predictive_check`), the rank histograms of a
-calibration by simulation (:mod:`.sbc`); shared style in :mod:`._style`, the one label mapping in :mod:`.labels`.
+calibration by simulation (:mod:`.sbc`), the summary of a systematics sweep (:mod:`.sweep`); shared style in
+:mod:`._style`, the one label mapping in :mod:`.labels`.
 
 matplotlib only, drawn on :class:`matplotlib.figure.Figure` objects with the Agg canvas (no ``pyplot``, so no
 global figure state and no interactive backend); matplotlib is imported only when a figure is drawn. The
@@ -20,9 +21,10 @@ from .hubble import plot_hubble
 from .pl_relations import plot_pl_relations
 from .predictive_check import plot_predictive_check
 from .sbc import sbc_figure
+from .sweep import sweep_figure
 
 __all__ = ["PLPoints", "pl_points", "pl_residuals", "plot_pl_relations", "plot_corner", "plot_distances",
-           "plot_hubble", "plot_predictive_check", "sbc_figure", "write_all_plots", "MAX_CORNER_AXES"]
+           "plot_hubble", "plot_predictive_check", "sbc_figure", "sweep_figure", "write_all_plots", "MAX_CORNER_AXES"]
 
 
 # ----------------------------------------------------------------------------- all
