@@ -98,6 +98,12 @@ def test_strict_exit_3_on_failed_diagnostics(fitted, tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 3
     assert "DIAGNOSTICS FAILED" in err and "bulk ESS" in err
+    # the same from the run file alone: [sampler] strict = true, no --strict; the outputs are written first
+    run.write_text(text.replace("[sampler]", "[sampler]\nstrict = true", 1))
+    code = main(["fit", str(run), "--out", str(tmp_path / "o2"), "--no-plots"])
+    err = capsys.readouterr().err
+    assert code == 3, err
+    assert "DIAGNOSTICS FAILED" in err and (tmp_path / "o2" / "diagnostics.json").is_file()
 
 
 def test_cli_subprocess_check(fitted):
