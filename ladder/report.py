@@ -524,6 +524,13 @@ def _cell(v) -> str:
     return _e(v)
 
 
+def _report_start(kind: str, run: str, intro_html: str) -> tuple[str, list[str]]:
+    """Title and opening of a sweep's or a calibration's report page: the heading and the muted introduction
+    (``intro_html`` already escaped where it holds values)."""
+    title = f"ladder {kind} report: {Path(run).name}" if run else f"ladder {kind} report"
+    return title, [f"<h1>{_e(title)}</h1>", f'<p class="muted">{intro_html}</p>']
+
+
 # ----------------------------------------------------------------------------- sweep directory
 def sweep_html(out_dir: str | Path) -> str:
     """Report of a sweep directory (``ladder sweep``): its table (``sweep.ecsv``) and figure (``sweep.png``)."""
@@ -534,13 +541,11 @@ def sweep_html(out_dir: str | Path) -> str:
     if table is None:
         raise InputError("not a sweep directory: missing sweep.ecsv", file=str(out))
     run = str(table.meta.get("run_file", ""))
-    title = f"ladder sweep report: {Path(run).name}" if run else "ladder sweep report"
-    parts: list[str] = []
-    add = parts.append
-    add(f"<h1>{_e(title)}</h1>")
-    add(f'<p class="muted">Sweep directory <code>{_e(out.resolve())}</code>; run file <code>{_e(run)}</code>. '
+    title, parts = _report_start(
+        "sweep", run, f"Sweep directory <code>{_e(out.resolve())}</code>; run file <code>{_e(run)}</code>. "
         "Each variant's own result set (and its report, <code>ladder report DIR/VARIANT</code>) is in its "
-        "subdirectory. This file holds everything it shows.</p>")
+        "subdirectory. This file holds everything it shows.")
+    add = parts.append
     bad = [r for r in table if str(r["status"]) != "done" or not bool(r["passed"])]
     if bad:
         items = "".join(f"<li><b>{_e(r['variant'])}</b>: "
@@ -587,15 +592,13 @@ def calibration_html(out_dir: str | Path) -> str:
         raise InputError("not a finished calibration directory: missing coverage.ecsv or uniformity.ecsv",
                          file=str(out))
     run = ((meta.get("inputs") or {}).get("run") or {}).get("path", "")
-    title = f"ladder calibration report: {Path(run).name}" if run else "ladder calibration report"
-    parts: list[str] = []
-    add = parts.append
-    add(f"<h1>{_e(title)}</h1>")
-    add(f'<p class="muted">Calibration directory <code>{_e(out.resolve())}</code>. Calibration by simulation '
+    title, parts = _report_start(
+        "calibration", run, f"Calibration directory <code>{_e(out.resolve())}</code>. Calibration by simulation "
         "(Talts et al. 2018, arXiv:1804.06788; Modrak et al. 2023, Bayesian Analysis): parameters drawn from the "
         "run's priors, catalogues simulated with the run's structure, fitted with its settings; the rank of each "
         "truth among the posterior draws is uniform and each interval covers its truth at its nominal rate when "
-        "the posterior is calibrated. This file holds everything it shows.</p>")
+        "the posterior is calibrated. This file holds everything it shows.")
+    add = parts.append
     n_rep, done = int(meta.get("replications", 0)), int(meta.get("done", 0))
     gate, failed = int(meta.get("failed_diagnostics", 0)), int(meta.get("failed", 0))
     off = [r for r in coverage if int(r["n"]) and not bool(r["within_2sd"])]
