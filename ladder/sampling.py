@@ -310,43 +310,32 @@ def curvature_mass(model, array_parts, init_strategy, dense):
     the latter as an explicit list of blocks (numpyro pairs the two by block)."""
     import jax
     import jax.numpy as jnp
+    from jax.flatten_util import ravel_pytree
     from numpyro.infer.util import initialize_model
 
     def curvature(ap):
         info = initialize_model(jax.random.PRNGKey(0), model, model_args=(ap,), init_strategy=init_strategy)
-        z = info.param_info.z
-        names = sorted(z)
-        sizes = [int(np.size(z[k])) for k in names]
-        shapes = [jnp.shape(z[k]) for k in names]
-
-        def potential(flat):
-            parts = jnp.split(flat, np.cumsum(sizes)[:-1])
-            return info.potential_fn({k: p.reshape(s) for k, p, s in zip(names, parts, shapes)})
-
-        flat = jnp.concatenate([jnp.ravel(z[k]) for k in names])
-        grad = jax.grad(potential)
+        flat, unravel = ravel_pytree(info.param_info.z)  # sites in sorted order
+        grad = jax.grad(lambda x: info.potential_fn(unravel(x)))
 
         def column(v):  # H v, forward over reverse
             return jax.jvp(grad, (flat,), (v,))[1]
 
         # column by column in small batches: jax.hessian would carry every direction through the model at once
         # (memory ~ dimension x catalogue; GBs for 1,000 galaxy scatters over 10^5 stars)
-        return jax.lax.map(column, jnp.eye(flat.shape[0], dtype=flat.dtype), batch_size=_HESSIAN_BATCH)
+        hess = jax.lax.map(column, jnp.eye(flat.shape[0], dtype=flat.dtype), batch_size=_HESSIAN_BATCH)
+        return hess, {k: jnp.size(v) for k, v in info.param_info.z.items()}
 
-    z_shapes = jax.eval_shape(lambda ap: initialize_model(
-        jax.random.PRNGKey(0), model, model_args=(ap,), init_strategy=init_strategy).param_info.z, array_parts)
-    names = sorted(z_shapes)
-    hess = np.asarray(jax.jit(curvature)(array_parts))
+    hess, sizes = jax.jit(curvature)(array_parts)
+    hess = np.asarray(hess)
     if not np.all(np.isfinite(hess)):
         return None, dense
     hess = 0.5 * (hess + hess.T)
     lam, vec = np.linalg.eigh(hess)
     cov = (vec / np.maximum(lam, _MIN_CURVATURE)) @ vec.T
-    index, start = {}, 0
-    for k in names:
-        size = int(np.prod(z_shapes[k].shape, dtype=int))
-        index[k] = np.arange(start, start + size)
-        start += size
+    names = sorted(sizes)
+    ends = np.cumsum([int(sizes[k]) for k in names])
+    index = {k: np.arange(e - int(sizes[k]), e) for k, e in zip(names, ends)}
     blocks = [tuple(sorted(names))] if dense is True else list(dense or [])
     out = {}
     for block in blocks:
