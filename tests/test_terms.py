@@ -94,3 +94,24 @@ def test_reddened_star_marginal_matches_quadrature():
     assert float(got) == pytest.approx(np.log(ref), rel=1e-9)
     mean_ref = quad(lambda e: e * f(e), 0, 5, epsabs=0, epsrel=1e-12, limit=200)[0] / ref
     assert float(reddening_posterior_mean(resid, var, np.ones(3, bool), s2, a, rate)) == pytest.approx(mean_ref, rel=1e-7)
+
+
+def test_log_normal_cdf_matches_scipy_log_ndtr_and_its_derivative():
+    # Reference: scipy.special.log_ndtr (Cephes) and phi/Phi from scipy's densities, from the far lower tail
+    # (the asymptotic branch) through 0 to where Phi rounds to 1.
+    from scipy.special import log_ndtr
+
+    from ladder.terms.noise import _LOG_CDF_SERIES_BELOW, log_normal_cdf
+    from tolerances import LOG_CDF_ATOL, LOG_CDF_GRAD_RTOL, LOG_CDF_RTOL
+
+    t = np.concatenate([-np.logspace(3, -3, 600), [0.0], np.logspace(-3, np.log10(40.0), 300),
+                        [_LOG_CDF_SERIES_BELOW - 1e-9, _LOG_CDF_SERIES_BELOW, _LOG_CDF_SERIES_BELOW + 1e-9]])
+    got = np.asarray(log_normal_cdf(jnp.asarray(t)))
+    ref = log_ndtr(t)
+    np.testing.assert_allclose(got, ref, rtol=LOG_CDF_RTOL, atol=LOG_CDF_ATOL)
+    small = (ref != 0) & (np.abs(ref) < 1e-3)  # Phi near 1: the value itself is tiny, so check it relatively
+    np.testing.assert_allclose(got[small], ref[small], rtol=1e-10)
+    grad = np.asarray(jax.vmap(jax.grad(log_normal_cdf))(jnp.asarray(t)))
+    keep = t < 35  # phi(t) underflows beyond
+    np.testing.assert_allclose(grad[keep], np.exp(norm.logpdf(t[keep]) - ref[keep]), rtol=LOG_CDF_GRAD_RTOL)
+    assert np.all(np.isfinite(grad))

@@ -146,4 +146,9 @@ OH_ERR_GRID_RTOL = 0.08  # a sampled sd (2 x 1500 draws, ESS >= 400 required) vs
 OH_ERR_FISHER_RTOL = 0.15  # posterior sd of gamma vs the Fisher expectation: Gaussian without O/H errors (measured 2.4%); with them the posterior follows a ridge of gamma^2 oh_err^2 + scatter^2 cut by scatter >= 0, not Gaussian (measured 10% at the posterior means)
 
 # --- NUTS starting mass matrix (tests/test_methods.py) ---
-CURVATURE_MASS_VS_DENSE_RTOL = 1e-7  # autodiff Hessian inverted (eigh) vs the dense posterior covariance (numpy inv); condition ~1e6, rounding ~1e-10
+CURVATURE_MASS_VS_DENSE_RTOL = 1e-7  # central differences of the autodiff gradient (exact for this quadratic potential up to rounding) inverted (eigh) vs the dense posterior covariance (numpy inv); condition ~1e6, rounding ~1e-10
+
+# --- log of the normal distribution function (tests/test_terms.py) ---
+LOG_CDF_ATOL = 5e-10  # vs scipy.special.log_ndtr on t in [-1e3, 40]: rounding where erfc serves; below t = -30 the asymptotic series' first omitted term, 105/t^8 <= 1.6e-10
+LOG_CDF_RTOL = 1e-12  # relative, where |log Phi| is tiny (t > 0) or huge (t << 0): erfc's own relative accuracy (~1e-13 measured at t = 34)
+LOG_CDF_GRAD_RTOL = 1e-9  # d/dt log Phi = phi/Phi by autodiff vs scipy densities; series truncation 1.5e-10 relative at t = -1e3
