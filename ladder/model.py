@@ -393,6 +393,7 @@ class ModelParts(NamedTuple):
     log_period: np.ndarray  # (N,)
     oh: np.ndarray  # (N,) 12 + log(O/H) (0 where metallicity is off)
     gamma0: object = 0.0  # with O/H errors: a starting metallicity coefficient (the fit without them)
+    var_logdet: object = None  # (N,) sum of ln(variance) over each star's fitted bands (data only: formed once)
 
 
 def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, init_scatter: float = 0.1):
@@ -445,10 +446,12 @@ def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, in
         w = np.where(m, 1.0 / v, 0.0)
         base = (w * r).sum(axis=1) / w.sum(axis=1)
         phot_var = 1.0 / w.sum(axis=1)
+    var = np.asarray(lin.var)
+    var_logdet = np.sum(np.where(mask, np.log(np.where(mask, var, 1.0)), 0.0), axis=1)
     return ModelParts(structure, jlin, np.asarray(arrays.star_host, np.int64), np.asarray(arrays.wavelength),
                       np.asarray(arrays.parallax, float), np.asarray(arrays.parallax_err, float), base, phot_var,
                       bias_slots, np.where(mask, obs, 0.0), np.asarray(arrays.log_period, float),
-                      np.asarray(arrays.oh, float), 0.0 if gamma0 is None else gamma0)
+                      np.asarray(arrays.oh, float), 0.0 if gamma0 is None else gamma0, var_logdet)
 
 
 # ----------------------------------------------------------------------------- shared pieces of both models
@@ -637,13 +640,15 @@ def _component_logs(parts: ModelParts, settings: ModelSettings, resid, offset_va
 
     resid, var, extinction, logjac = _band_noise(parts, resid, extinction, band_noise)
     mask = parts.lin.mask
+    # the diagonal's log-determinant is data alone unless a per-band noise term rescales the variances
+    logdet = parts.var_logdet if band_noise is None or all(x is None for x in band_noise) else None
     # the band sums do not depend on the offset variance: formed once, shared by both components
     if extinction is None:
-        sums = band_sums(resid, var, mask)
+        sums = band_sums(resid, var, mask, logdet=logdet)
         dens = lambda s2: offset_logpdf_from_sums(sums, s2)  # noqa: E731
     else:
         a, rate = extinction
-        sums = band_sums(resid, var, mask, a)
+        sums = band_sums(resid, var, mask, a, logdet=logdet)
         dens = lambda s2: reddened_logpdf_from_sums(sums, s2, rate)  # noqa: E731
     core = dens(offset_var) + logjac
     if not outliers:
