@@ -650,11 +650,11 @@ def _grid_prior(settings, names, p):
     """ln p(phi) + ln |d phi / d ln phi| of the grid's hyperparameters (the grid is in ln phi)."""
     import jax.numpy as jnp
 
-    from .priors import prior_distribution
+    from .priors import prior_log_density
 
     lp = 0.0
     for name in names:
-        lp = lp + prior_distribution(settings.prior(name)).log_prob(p[name]) + jnp.log(p[name])
+        lp = lp + prior_log_density(settings.prior(name), p[name]) + jnp.log(p[name])
     return jnp.where(jnp.isfinite(lp), lp, -jnp.inf)
 
 

@@ -23,7 +23,7 @@ from ladder.config import DEFAULT_PRIORS, PriorSpec
 from ladder.model import model_arrays, model_parts
 from ladder.simulate import MockSettings, simulate, write_mock
 from ladder.structure import conditional_draw, conditional_mean, log_marginal
-from tolerances import (METHOD_MEAN_IN_SD, METHOD_SD_RTOL, MARGINAL_VS_DENSE_RTOL, CONDITIONAL_VS_DENSE_RTOL,
+from tolerances import (PRIOR_DENSITY_RTOL, METHOD_MEAN_IN_SD, METHOD_SD_RTOL, MARGINAL_VS_DENSE_RTOL, CONDITIONAL_VS_DENSE_RTOL,
                         CURVATURE_MASS_VS_DENSE_RTOL,
                         EXACT_DRAW_MEAN_Z)
 
@@ -234,3 +234,28 @@ def test_nuts_starting_mass_is_the_posterior_covariance_of_a_gaussian_model(tmp_
     order = np.concatenate([cols[k] for k in block])
     np.testing.assert_allclose(got, want[np.ix_(order, order)], rtol=CURVATURE_MASS_VS_DENSE_RTOL,
                                atol=CURVATURE_MASS_VS_DENSE_RTOL * np.abs(want).max())
+
+
+@pytest.mark.parametrize("spec, inside, outside", [
+    (PriorSpec("normal", (("loc", 0.5), ("scale", 2.0))), [-3.0, 0.5, 4.0], []),
+    (PriorSpec("halfnormal", (("scale", 0.3),)), [1e-3, 0.05, 1.2], [-0.1]),
+    (PriorSpec("uniform", (("low", 0.01), ("high", 0.6))), [0.01, 0.2, 0.6], [0.005, 0.61]),
+    (PriorSpec("flat", ()), [-5.0, 0.0, 7.0], []),
+])
+def test_grid_prior_densities_match_scipy_and_the_nuts_sites(spec, inside, outside):
+    # The grid of hyperparameters evaluates prior_log_density (jax alone); the NUTS models sample
+    # prior_distribution (numpyro). Both against scipy.stats (reference library), and -inf outside the support.
+    from ladder.priors import prior_distribution, prior_log_density
+
+    p = dict(spec.params)
+    ref = {"normal": lambda x: stats.norm.logpdf(x, p.get("loc"), p.get("scale")),
+           "halfnormal": lambda x: stats.halfnorm.logpdf(x, scale=p.get("scale")),
+           "uniform": lambda x: stats.uniform.logpdf(x, p.get("low"), p.get("high", 1) - p.get("low", 0)),
+           "flat": lambda x: np.zeros_like(x)}[spec.dist]
+    x = np.asarray(inside)
+    got = np.asarray(prior_log_density(spec, jnp.asarray(x)))
+    np.testing.assert_allclose(got, ref(x), rtol=PRIOR_DENSITY_RTOL, atol=PRIOR_DENSITY_RTOL)
+    np.testing.assert_allclose(got, np.asarray(prior_distribution(spec).log_prob(jnp.asarray(x))),
+                               rtol=PRIOR_DENSITY_RTOL, atol=PRIOR_DENSITY_RTOL)
+    if outside:
+        assert np.all(np.asarray(prior_log_density(spec, jnp.asarray(outside))) == -np.inf)

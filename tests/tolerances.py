@@ -152,3 +152,6 @@ CURVATURE_MASS_VS_DENSE_RTOL = 1e-7  # central differences of the autodiff gradi
 LOG_CDF_ATOL = 5e-10  # vs scipy.special.log_ndtr on t in [-1e3, 40]: rounding where erfc serves; below t = -30 the asymptotic series' first omitted term, 105/t^8 <= 1.6e-10
 LOG_CDF_RTOL = 1e-12  # relative, where |log Phi| is huge (t << 0): rounding of t^2/2 and the log; where Phi ~ 1 the absolute error is ~1e-16 (a log density needs no more)
 LOG_CDF_GRAD_RTOL = 1e-9  # d/dt log Phi = phi/Phi by autodiff vs scipy densities; series truncation 1.5e-10 relative at t = -1e3
+
+# --- prior densities (tests/test_methods.py) ---
+PRIOR_DENSITY_RTOL = 1e-12  # the same closed forms as scipy.stats and numpyro (log pdf of O(1)); float64 rounding only
