@@ -446,8 +446,9 @@ def model_parts(arrays: ModelArrays, layout: Layout, settings: ModelSettings, in
         w = np.where(m, 1.0 / v, 0.0)
         base = (w * r).sum(axis=1) / w.sum(axis=1)
         phot_var = 1.0 / w.sum(axis=1)
-    var = np.asarray(lin.var)
-    var_logdet = np.sum(np.where(mask, np.log(np.where(mask, var, 1.0)), 0.0), axis=1)
+    from .terms.noise import diagonal_logdet
+
+    var_logdet = np.asarray(diagonal_logdet(np.asarray(lin.var), np.asarray(lin.mask)))
     return ModelParts(structure, jlin, np.asarray(arrays.star_host, np.int64), np.asarray(arrays.wavelength),
                       np.asarray(arrays.parallax, float), np.asarray(arrays.parallax_err, float), base, phot_var,
                       bias_slots, np.where(mask, obs, 0.0), np.asarray(arrays.log_period, float),

@@ -3,7 +3,7 @@ independent per-band part of the intrinsic scatter, :func:`band_variances`)."""
 
 from typing import NamedTuple
 
-__all__ = ["log_normal_cdf", "BandSums", "band_sums", "offset_logpdf_from_sums", "reddened_logpdf_from_sums", "band_variances", "amplitude_scaled", "precision_weights", "offset_factor", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
+__all__ = ["log_normal_cdf", "BandSums", "band_sums", "diagonal_logdet", "offset_logpdf_from_sums", "reddened_logpdf_from_sums", "band_variances", "amplitude_scaled", "precision_weights", "offset_factor", "common_offset_normal_logpdf", "reddened_star_logpdf", "reddening_posterior_mean"]
 
 _LOG_2PI = 1.8378770664093453
 #: Below this argument :func:`log_normal_cdf` uses the asymptotic series: erfc(-t/sqrt 2) underflows near
@@ -143,18 +143,25 @@ class BandSums(NamedTuple):
     war: object = None  #: sum w_b a_b r_b
 
 
+def diagonal_logdet(var, mask):
+    """Sum of ln ``var`` over the observed bands (``mask``) of each star, (..., k) -> (...): the log-determinant
+    of the diagonal part D of its band covariance."""
+    import jax.numpy as jnp
+
+    return jnp.sum(jnp.where(mask, jnp.log(jnp.where(mask, var, 1.0)), 0.0), -1)
+
+
 def band_sums(resid, var, mask, a=None, logdet=None) -> BandSums:
     """The :class:`BandSums` of residuals ``resid``, variances ``var`` and ``mask`` (..., k), and of an
-    extinction vector ``a`` (k,) or (..., k) if given. ``logdet`` (...,): the sum of ln ``var`` over the observed
-    bands when the caller has it already (it depends on the data alone)."""
+    extinction vector ``a`` (k,) or (..., k) if given. ``logdet`` (...,): :func:`diagonal_logdet` when the caller
+    has it already (it depends on the data alone)."""
     import jax.numpy as jnp
 
     w = precision_weights(var, mask)
     r = jnp.where(mask, resid, 0.0)
     wr = w * r
     sums = dict(w=jnp.sum(w, -1), wr=jnp.sum(wr, -1), wrr=jnp.sum(wr * r, -1), n=jnp.sum(mask, -1),
-                logdet=jnp.sum(jnp.where(mask, jnp.log(jnp.where(mask, var, 1.0)), 0.0), -1) if logdet is None
-                else logdet)
+                logdet=diagonal_logdet(var, mask) if logdet is None else logdet)
     if a is not None:
         wa = w * a
         sums.update(wa=jnp.sum(wa, -1), waa=jnp.sum(wa * a, -1), war=jnp.sum(wa * r, -1))
