@@ -286,8 +286,9 @@ def _pmap_with_data(fn):
 #: (extra leapfrog steps) x (cost of a gradient, ~linear in this count). Measured: the full-ladder example (4,740)
 #: saved ~3 minutes; a 400-star, one-band mixture fit lost ~5 s per fit to the compilation.
 _CURVATURE_MIN_OBSERVATIONS = 2000
-#: Largest sampled dimension for the curvature start: the Hessian costs ~2 x dimension gradients (measured: 1,002
-#: dimensions over 10^5 stars, ~1 min and 1.2 GB on 2 busy cores), so above this NUTS starts from the identity.
+#: Largest sampled dimension for the curvature start: the Hessian costs 2 x dimension gradients (measured: 1,002
+#: dimensions over 10^5 stars, 21 s and 0.53 GB peak for the whole process on 2 cores; the batched
+#: forward-over-reverse version it replaced took ~1 min and 1.2 GB), so above this NUTS starts from the identity.
 _CURVATURE_MAX_DIMENSION = 1000
 #: Central-difference step of :func:`curvature_mass` in the unconstrained coordinates: ~0.03 posterior sd of the
 #: best-measured moduli; rounding error ~1e-12 |gradient| / step, truncation ~step^2 x third derivative.
