@@ -519,6 +519,41 @@ def _on_sigint(signum, frame):
     raise KeyboardInterrupt
 
 
+#: Delay before a signal whose KeyboardInterrupt Python swallowed is sent again (:class:`_RedeliverSwallowed`).
+_REDELIVER_S = 0.05
+
+
+class _RedeliverSwallowed:
+    """``sys.unraisablehook`` while a command runs. A signal handler above that raises inside a finalizer or a
+    garbage-collector callback (JAX runs one at every collection) has its KeyboardInterrupt swallowed by Python,
+    which prints it with a traceback and carries on; the run would then stop only at the check before writing
+    (:data:`ladder.outputs._SEEN`), after the sampling. Instead: say nothing, and send the same signal again a
+    moment later, from a timer thread, so that it is raised in ordinary code. Any other unraisable exception goes
+    to the hook that was there before."""
+
+    def __init__(self, previous):
+        self.previous, self.active = previous, True
+
+    def __call__(self, unraisable) -> None:
+        import signal
+        import threading
+
+        exc = unraisable.exc_value
+        if not isinstance(exc, KeyboardInterrupt):
+            self.previous(unraisable)
+            return
+        sig = signal.SIGTERM if isinstance(exc, _Terminated) else signal.SIGINT
+        timer = threading.Timer(_REDELIVER_S, self._send, (sig,))
+        timer.daemon = True
+        timer.start()
+
+    def _send(self, sig) -> None:
+        import os
+
+        if self.active:  # not once the command has returned
+            os.kill(os.getpid(), sig)
+
+
 def console_main() -> None:
     """The ``ladder`` command and ``python -m ladder``: :func:`main`, then exit with its code.
 
@@ -547,9 +582,10 @@ def main(argv: list[str] | None = None) -> int:
     from .outputs import note_signal
 
     args = _parser().parse_args(argv)
-    previous, previous_int = None, None
+    previous, previous_int, redeliver = None, None, None
     note_signal(None)
     if threading.current_thread() is threading.main_thread():
+        redeliver = sys.unraisablehook = _RedeliverSwallowed(sys.unraisablehook)
         previous = signal.signal(signal.SIGTERM, _on_sigterm)
         if signal.getsignal(signal.SIGINT) is signal.default_int_handler:  # an ignored SIGINT stays ignored
             previous_int = signal.signal(signal.SIGINT, _on_sigint)
@@ -567,6 +603,9 @@ def main(argv: list[str] | None = None) -> int:
             _say("ladder: interrupted; nothing was written")
         return EXIT_SIGTERM if isinstance(exc, _Terminated) else EXIT_SIGINT
     finally:
+        if redeliver is not None:
+            redeliver.active = False
+            sys.unraisablehook = redeliver.previous
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)
         if previous_int is not None:

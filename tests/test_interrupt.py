@@ -5,6 +5,7 @@ samples; exit codes follow the shell's 128 + signal number convention (SIGINT 2 
 """
 
 import signal
+import sys
 import time
 from pathlib import Path
 
@@ -99,3 +100,33 @@ def test_an_interrupt_swallowed_in_a_finalizer_still_stops_the_fit(runs, monkeyp
     assert "ladder: interrupted; nothing was written" in capsys.readouterr().err
     assert [p.name for p in out.parent.iterdir()] == [out.name]  # no .out.partial-* left behind
     assert _snapshot(out) == before
+
+
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["SIGINT", "SIGTERM"])
+def test_an_interrupt_swallowed_in_a_finalizer_is_sent_again_without_a_traceback(sig, capsys):
+    """Python swallows an exception raised in a finalizer or a gc callback (JAX runs one at every collection),
+    printing it with a traceback: a signal handled there must still stop the run, and print nothing."""
+    import gc
+
+    from ladder.cli import _REDELIVER_S, _RedeliverSwallowed, _Terminated
+
+    class RaisesOnCollect:
+        def __del__(self):
+            raise _Terminated() if sig == signal.SIGTERM else KeyboardInterrupt()
+
+    received = []
+    previous_handler = signal.signal(sig, lambda s, f: received.append(s))
+    previous_hook = sys.unraisablehook
+    hook = sys.unraisablehook = _RedeliverSwallowed(previous_hook)
+    try:
+        RaisesOnCollect()  # collected at once: the KeyboardInterrupt goes to sys.unraisablehook
+        gc.collect()
+        deadline = time.monotonic() + 100 * _REDELIVER_S
+        while not received and time.monotonic() < deadline:
+            time.sleep(_REDELIVER_S / 5)
+    finally:
+        hook.active = False
+        sys.unraisablehook = previous_hook
+        signal.signal(sig, previous_handler)
+    assert received == [sig]
+    assert "Traceback" not in capsys.readouterr().err
