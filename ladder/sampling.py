@@ -282,7 +282,7 @@ def _pmap_with_data(fn):
 
 
 #: Fitted magnitudes (stars x bands observed) from which NUTS starts from the curvature (:func:`curvature_mass`):
-#: its one compiled program costs ~2-5 s, while the identity start's long first adaptation window costs about
+#: its one compiled program costs ~2-6 s (6 s on the full-ladder example), while the identity start's long first adaptation window costs about
 #: (extra leapfrog steps) x (cost of a gradient, ~linear in this count). Measured: the full-ladder example (4,740)
 #: saved ~3 minutes; a 400-star, one-band mixture fit lost ~5 s per fit to the compilation.
 _CURVATURE_MIN_OBSERVATIONS = 2000
