@@ -256,31 +256,6 @@ def _chain_method(requested: str, chains: int) -> str:
     return "parallel" if chains > 1 and devices > 1 and chains % min(devices, chains) == 0 else "sequential"
 
 
-def _pmap_with_data(fn):
-    """Parallel chains with the data as an argument of the compiled program (``in_axes=None``), not as constants
-    closed over: numpyro's own ``parallel`` method binds the model arguments into the mapped function, which
-    makes XLA fold a large catalogue into the program (minutes of compilation at 10^5 stars). With more chains
-    than devices, each device runs its share of the chains one after another (``lax.map``), all devices at once."""
-    import jax
-
-    kw = dict(fn.keywords)
-    args = kw.pop("args")
-
-    def run(map_args, data):
-        return fn.func(map_args, args=data, **kw)
-
-    def mapped(map_args):
-        n = jax.tree.leaves(map_args)[0].shape[0]
-        d = min(jax.local_device_count(), n)
-        if n == d:
-            return jax.pmap(run, in_axes=(0, None))(map_args, args)
-        split = jax.tree.map(lambda x: x.reshape((d, n // d) + x.shape[1:]), map_args)
-        out = jax.pmap(lambda m, data: jax.lax.map(lambda a: run(a, data), m), in_axes=(0, None))(split, args)
-        return jax.tree.map(lambda x: x.reshape((n,) + x.shape[2:]), out)
-
-    return mapped
-
-
 #: Fitted magnitudes (stars x bands observed) from which NUTS starts from the curvature (:func:`curvature_mass`):
 #: its one compiled program costs ~2-6 s (6 s on the full-ladder example), while the identity start's long first adaptation window costs about
 #: (extra leapfrog steps) x (cost of a gradient, ~linear in this count). Measured: the full-ladder example (4,740)
@@ -384,7 +359,7 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
     ``sampler.draw_limit`` draws per chain. Returns (samples by chain, extra fields, chain method, notes)."""
     import jax
     import jax.numpy as jnp
-    from numpyro.infer import MCMC, NUTS, init_to_value
+    from numpyro.infer import NUTS, init_to_value
 
     model, array_parts = traced_model(model, parts, settings, layout)
     init_strategy = init_to_value(values={k: jnp.asarray(v) for k, v in init.items()})
@@ -399,14 +374,14 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
     kernel = NUTS(model, target_accept_prob=sampler.target_accept, max_tree_depth=sampler.max_tree_depth,
                   dense_mass=dense, inverse_mass_matrix=inverse_mass, init_strategy=init_strategy)
     method = _chain_method(sampler.chain_method, sampler.chains)
-    mcmc = MCMC(kernel, num_warmup=sampler.warmup, num_samples=sampler.draws, num_chains=sampler.chains,
-                chain_method=_pmap_with_data if method == "parallel" else method, progress_bar=bool(sampler.progress and sys.stderr.isatty()), jit_model_args=True)
-    mcmc.run(jax.random.PRNGKey(sampler.seed), array_parts, extra_fields=_EXTRA_FIELDS)
-    samples = [mcmc.get_samples(group_by_chain=True)]
-    extra = [mcmc.get_extra_fields(group_by_chain=True)]
+    chains = _Chains(kernel, array_parts, sampler, method, say if sampler.progress else None)
+    samples, extra = [], []
+    draws = chains.run(sampler.warmup, sampler.draws, jax.random.PRNGKey(sampler.seed))
+    samples.append(draws[0])
+    extra.append(draws[1])
     total = sampler.draws
     while True:
-        joined = {k: np.concatenate([np.asarray(s[k]) for s in samples], axis=1) for k in samples[0]}
+        joined = {k: np.concatenate([s[k] for s in samples], axis=1) for k in samples[0]}
         problems = _quick_gate(joined, limits) if sampler.chains > 1 else []
         step = min(sampler.draws, sampler.draw_limit - total)
         if not problems or step <= 0:
@@ -415,15 +390,115 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
                f"(no new warm-up; limit max_draws = {sampler.draw_limit})")
         say(f"ladder: {msg}")
         notes.append(msg)
-        mcmc.post_warmup_state = mcmc.last_state
-        mcmc.num_samples = step
-        mcmc._set_collection_params()
-        mcmc.run(mcmc.post_warmup_state.rng_key, array_parts, extra_fields=_EXTRA_FIELDS)
-        samples.append(mcmc.get_samples(group_by_chain=True))
-        extra.append(mcmc.get_extra_fields(group_by_chain=True))
+        more = chains.run(0, step)
+        samples.append(more[0])
+        extra.append(more[1])
         total += step
-    joined_extra = {k: np.concatenate([np.asarray(e[k]) for e in extra], axis=1) for k in extra[0]}
+    joined_extra = {k: np.concatenate([e[k] for e in extra], axis=1) for k in extra[0]}
     return joined, joined_extra, method, notes
+
+
+#: Iterations per compiled block of :class:`_Chains` (fewer when the run is short): one block costs one call
+#: from Python, so the chains report progress and can be interrupted between blocks.
+_BLOCK_ITERATIONS = 50
+#: Seconds between progress lines of a long run.
+_PROGRESS_EVERY_S = 10.0
+
+
+class _Chains:
+    """NUTS chains advanced in blocks of iterations by one compiled program, from the warm-up through the draws
+    to any extension: numpyro's ``MCMC.run`` compiles a new program for each call with a different length, so an
+    extension of the chains recompiled the whole sampler (~14 s on the full-ladder example). Chains run on one
+    CPU device each (``parallel``; more chains than devices: each device runs its share one after another), one
+    after another on one device (``sequential``) or batched (``vectorized``). The data is an argument of the
+    program, never a constant folded into it (that took minutes of compilation at 10^5 stars).
+
+    ``run(warmup, draws, key)`` starts the chains (numpyro's ``NUTS.init`` with the warm-up schedule of
+    ``warmup`` iterations, Stan's windowed adaptation); ``run(0, draws)`` continues them. Each returns
+    ``(samples, extra)``: dicts of (chains, draws, ...) numpy arrays, the samples in the constrained space with
+    the deterministic sites (numpyro's ``postprocess_fn``), ``extra`` the fields of :data:`_EXTRA_FIELDS`."""
+
+    def __init__(self, kernel, data, sampler: SamplerSettings, method: str, say=None):
+        import jax
+
+        self.kernel, self.data, self.say = kernel, data, say
+        self.n_chains, self.warmup_total, self.done = sampler.chains, sampler.warmup, 0
+        self.devices = min(jax.local_device_count(), self.n_chains) if method == "parallel" else 1
+        self.method = method
+        self.state = None
+        total = sampler.warmup + sampler.draws
+        self.block = max(1, min(_BLOCK_ITERATIONS, -(-total // 20)))
+        self._step = self._init = None
+
+    def _per_device(self, fn):
+        """``fn(one_chain, data)`` over this device's chains: batched (vectorized) or one after another."""
+        import jax
+
+        if self.method == "vectorized":
+            return lambda xs, data: jax.vmap(fn, in_axes=(0, None))(xs, data)
+        return lambda xs, data: jax.lax.map(lambda x: fn(x, data), xs)
+
+    def _compiled(self, fn):
+        """``fn(chain, data)`` over all chains, the chains as (devices, chains per device, ...): one program per
+        device (pmap), or one jit when there is one device."""
+        import jax
+
+        inner = self._per_device(fn)
+        if self.devices > 1:
+            return jax.pmap(inner, in_axes=(0, None))
+        return jax.jit(lambda xs, data: jax.tree.map(lambda x: x[None], inner(
+            jax.tree.map(lambda x: x[0], xs), data)))
+
+    def _programs(self):
+        import jax
+
+        kernel, block = self.kernel, self.block
+        warmup = self.warmup_total
+
+        def init_one(key, data):
+            return kernel.init(key, warmup, None, model_args=(data,), model_kwargs={})
+
+        def block_one(state, data):
+            post = kernel.postprocess_fn((data,), {})
+
+            def body(s, _):
+                s = kernel.sample(s, (data,), {})
+                return s, (post(s.z), {f: getattr(s, f) for f in _EXTRA_FIELDS[:-1]}
+                           | {"potential_energy": s.potential_energy})
+
+            return jax.lax.scan(body, state, None, length=block)
+
+        self._init = self._compiled(init_one)
+        self._step = self._compiled(block_one)
+
+    def run(self, warmup: int, draws: int, key=None):
+        import jax
+
+        if self.state is None:
+            self._programs()
+            keys = jax.random.split(key, self.n_chains)
+            self.state = self._init(keys.reshape((self.devices, -1) + keys.shape[1:]), self.data)
+        todo, skip = warmup + draws, warmup
+        start, last = time.perf_counter(), time.perf_counter()
+        kept_s, kept_e, done = [], [], 0
+        while done < todo:
+            self.state, (s, e) = self._step(self.state, self.data)
+            lo = max(skip - done, 0)
+            hi = min(todo - done, self.block)
+            if hi > lo:  # (devices, chains per device, block, ...) -> (chains, kept, ...)
+                cut = lambda x: (lambda a: a.reshape((-1,) + a.shape[2:])[:, lo:hi])(np.asarray(x))  # noqa: E731
+                kept_s.append(jax.tree.map(cut, s))
+                kept_e.append(jax.tree.map(cut, e))
+            done += self.block
+            if self.say and time.perf_counter() - last >= _PROGRESS_EVERY_S and done < todo:
+                last = time.perf_counter()
+                phase = (f"warm-up {min(done, skip)}/{skip}" if done < skip
+                         else f"draws {min(done, todo) - skip}/{draws}")
+                self.say(f"ladder: NUTS {phase} iterations per chain ({self.n_chains} chains, "
+                         f"{last - start:.0f} s)")
+        self.done += done
+        join = lambda parts: {k: np.concatenate([p[k] for p in parts], axis=1) for k in parts[0]}  # noqa: E731
+        return join(kept_s), join(kept_e)
 
 
 def _say(msg: str) -> None:

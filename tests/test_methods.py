@@ -236,6 +236,29 @@ def test_nuts_starting_mass_is_the_posterior_covariance_of_a_gaussian_model(tmp_
                                atol=CURVATURE_MASS_VS_DENSE_RTOL * np.abs(want).max())
 
 
+def test_extension_continues_the_same_chains(tmp_path_factory):
+    """Issue 6, item 5: when the gate fails, ``fit`` extends the chains without a new warm-up. The extension is the
+    same Markov chains run on: 100 + 100 draws per chain with an extension forced (an ESS limit no run meets) give
+    the draws of one run of 200, and the diagnostics say what was done. Same process and environment, so the
+    numbers agree to rounding (rtol 1e-9)."""
+    from ladder.config import DiagnosticThresholds
+
+    cfg, data, _ = _mock(tmp_path_factory, "extend", n_hosts=4, n_anchors=1, n_cepheids=120)
+    model = dataclasses.replace(cfg.model, outliers="mixture")  # a NUTS-only term: the Markov chain path
+    base = dataclasses.replace(cfg.sampler, chains=2, warmup=100, progress=False, seed=4)
+    strict = DiagnosticThresholds(min_ess_bulk=1e9)
+    extended = ladder.fit(data, model, dataclasses.replace(base, draws=100, max_draws=200), strict)
+    once = ladder.fit(data, model, dataclasses.replace(base, draws=200, max_draws=200), strict)
+    assert extended.method == once.method == "nuts"
+    notes = " ".join(extended.diagnostics.notes)
+    assert "extending the same chains by 100 draws" in notes and "no new warm-up" in notes, notes
+    for name in ("pl_zero_point", "pl_slope", "scatter", "mu"):
+        a, b = np.asarray(extended.idata.posterior[name]), np.asarray(once.idata.posterior[name])
+        assert a.shape == b.shape and a.shape[:2] == (2, 200), (name, a.shape, b.shape)
+        np.testing.assert_allclose(a, b, rtol=1e-9, err_msg=name)
+    np.testing.assert_array_equal(extended.idata.sample_stats["n_steps"], once.idata.sample_stats["n_steps"])
+
+
 @pytest.mark.parametrize("spec, inside, outside", [
     (PriorSpec("normal", (("loc", 0.5), ("scale", 2.0))), [-3.0, 0.5, 4.0], []),
     (PriorSpec("halfnormal", (("scale", 0.3),)), [1e-3, 0.05, 1.2], [-0.1]),
