@@ -116,7 +116,7 @@ def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
     from .model import full_model, split_static, with_structure
 
     n_par = parts.parallax.shape[0]
-    fixed = {"parallax_star_u": np.zeros(n_par)} if n_par else {}
+    fixed = {"parallax_star_v": np.zeros(n_par)} if n_par else {}
     st, array_parts = split_static(parts)
 
     def forward(key, ap):  # the data as a traced argument: one compiled program per structure (see _compile_cache)
@@ -132,7 +132,7 @@ def draw_truth(model, layout, parts, rng: np.random.Generator) -> dict:
         if length is None:
             length = float(np.asarray(t["parallax_length_scale"]))
         t["log_distance_pc"] = np.log(rng.gamma(3.0, length, n_par))
-        t.pop("parallax_star_u", None)
+        t.pop("parallax_star_v", None)
     return t
 
 

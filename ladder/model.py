@@ -476,6 +476,13 @@ def _scatter_sites(parts: ModelParts, settings: ModelSettings, n_gal: int):
 def _parallax_sites(parts: ModelParts, settings: ModelSettings, base, scale, common=None):
     r"""Parallax stars: mu_j = base_j - scale_j u_j, EDSD prior on d_j (with the Jacobian), parallax likelihood.
 
+    Without ``common`` (the full model) the sampler's coordinate is ``v`` with ``u = sinh(v)`` (Jacobian
+    ``cosh v``): with the outlier mixture a star's modulus has a peak of width ~1 in ``u`` and, where the outlier
+    component frees it from its photometry, a flat tail as long as its parallax allows (~1 mag, ~12 in ``u``).
+    Measured on the full-ladder example: in ``u`` those stars have kurtosis 15-29, their adapted metric is 0.2-6x
+    their posterior variance, they set NUTS' step size, and one of them kept R-hat above 1.01 at 1000 draws per
+    chain; in ``v`` every parallax star's kurtosis is below 1. Near ``u = 0`` the map is the identity.
+
     With ``common`` (a fixed unit vector), ``u = H w`` for the Householder reflection H that takes the first axis
     to ``common``: an orthogonal change of variables (Jacobian 1) that puts the stars' common shift -- set by the
     shared zero point, which the marginal sampler has integrated out -- on one coordinate, so that a diagonal
@@ -490,8 +497,11 @@ def _parallax_sites(parts: ModelParts, settings: ModelSettings, base, scale, com
     from .terms.parallax import log_prior_in_log_distance, parallax_log_likelihood
 
     n_par = parts.parallax.shape[0]
+    log_jac = 0.0
     if common is None:
-        u = numpyro.sample("parallax_star_u", dist.ImproperUniform(constraints.real, (n_par,), ()))
+        v = numpyro.sample("parallax_star_v", dist.ImproperUniform(constraints.real, (n_par,), ()))
+        u = jnp.sinh(v)
+        log_jac = jnp.sum(_log_cosh(v))
     else:
         w = numpyro.sample("parallax_star_w", dist.ImproperUniform(constraints.real, (n_par,), ()))
         v = common - jnp.zeros(n_par).at[0].set(1.0)
@@ -503,13 +513,21 @@ def _parallax_sites(parts: ModelParts, settings: ModelSettings, base, scale, com
         length = numpyro.deterministic("parallax_length_scale", jnp.exp(log_l))
     else:
         length = settings.parallax.length_scale_pc
-    # d(log d)/du = -scale ln10 / 5: the change of variables u -> log d
+    # d(log d)/du = -scale ln10 / 5: the change of variables u -> log d (and du/dv = cosh v, above)
     numpyro.factor("distance_prior", jnp.sum(log_prior_in_log_distance(log_d, length))
-                   + jnp.sum(jnp.log(scale)) + n_par * np.log(np.log(10.0) / 5.0))
+                   + jnp.sum(jnp.log(scale)) + n_par * np.log(np.log(10.0) / 5.0) + log_jac)
     offset = sample_parameter("parallax_offset", settings.prior("parallax_offset"))
     numpyro.factor("parallax_lik", jnp.sum(parallax_log_likelihood(parts.parallax, parts.parallax_err,
                                                                    jnp.exp(log_d), offset)))
     return 5.0 * log_d / np.log(10.0) - 5.0
+
+
+def _log_cosh(v):
+    """ln cosh v without overflow: |v| + ln(1 + e^{-2|v|}) - ln 2."""
+    import jax.numpy as jnp
+
+    a = jnp.abs(v)
+    return a + jnp.log1p(jnp.exp(-2.0 * a)) - np.log(2.0)
 
 
 def mu_parallax(params: dict):

@@ -35,18 +35,18 @@ _EXTRA_FIELDS = ("diverging", "energy", "num_steps", "accept_prob", "potential_e
 DIMS = {
     "pl_zero_point": "band", "pl_slope": "band", "pl_slope_long": "band",
     "host_scatter": "galaxy", "host_scatter_z": "galaxy", "ebv_mean": "galaxy",
-    "log_distance_pc": "parallax_star", "parallax_star_u": "parallax_star", "parallax_star_w": "parallax_star",
+    "log_distance_pc": "parallax_star", "parallax_star_v": "parallax_star", "parallax_star_w": "parallax_star",
     "photometric_bias": "bias_galaxy", "photometric_bias_z": "bias_galaxy",
     "host_outlier_fraction": "galaxy", "host_outlier_fraction_z": "galaxy",
     "metallicity_coef": "band", "band_scatter": "band", "offset_amplitude": "band",  # vectors only in per-band modes
     "offset_log_amplitude_free": "band_free", "band_bias": "band_bias_entry", "band_bias_z": "band_bias_entry",
 }
 #: Sampler coordinates that are not model parameters: kept in the ``sampler_aux`` group, out of ``posterior``.
-AUX_SITES = ("host_scatter_z", "photometric_bias_z", "parallax_star_u", "parallax_star_w", "parallax_log_length_scale",
+AUX_SITES = ("host_scatter_z", "photometric_bias_z", "parallax_star_v", "parallax_star_w", "parallax_log_length_scale",
              "host_outlier_fraction_z", "offset_log_amplitude_free", "band_bias_z")
 #: Per-star and per-galaxy latent vectors: many, nearly independent, standardised; a dense mass matrix over
 #: them cannot be estimated in a short warm-up, so they get a diagonal one.
-_DIAGONAL_SITES = ("parallax_star_u", "parallax_star_w", "host_scatter_z", "photometric_bias_z", "ebv_mean",
+_DIAGONAL_SITES = ("parallax_star_v", "parallax_star_w", "host_scatter_z", "photometric_bias_z", "ebv_mean",
                    "host_outlier_fraction_z", "offset_log_amplitude_free", "band_bias_z")
 #: ``log_likelihood = "auto"`` keeps per-star values up to this many (stars x draws).
 AUTO_STAR_LIMIT = 20_000_000
@@ -186,7 +186,7 @@ def initial_values(parts: ModelParts, layout: Layout, settings: ModelSettings, m
         init["scatter_spread"] = 0.1
         init["host_scatter_z"] = np.zeros(len(layout.galaxies))
     if layout.parallax_stars:
-        init["parallax_star_u" if method == "nuts" else "parallax_star_w"] = np.zeros(len(layout.parallax_stars))
+        init["parallax_star_v" if method == "nuts" else "parallax_star_w"] = np.zeros(len(layout.parallax_stars))
         init["parallax_offset"] = 0.0
         if settings.parallax.length_scale_pc is None:
             d = 10 ** (np.asarray(parts.par_base) / 5 + 1)
@@ -483,6 +483,7 @@ class _Chains:
         kept_s, kept_e, done = [], [], 0
         while done < todo:
             self.state, (s, e) = self._step(self.state, self.data)
+            jax.block_until_ready(e)  # dispatch is asynchronous: progress and interrupts follow the computation
             lo = max(skip - done, 0)
             hi = min(todo - done, self.block)
             if hi > lo:  # (devices, chains per device, block, ...) -> (chains, kept, ...)

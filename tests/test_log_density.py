@@ -101,7 +101,7 @@ def _random_point(rng, data, settings, layout):
         v["band_bias_z"] = rng.normal(0, 1, len(layout.band_bias_labels))
     if layout.parallax_stars:
         n = len(layout.parallax_stars)
-        v["parallax_star_u"], v["parallax_offset"] = rng.normal(0, 1, n), rng.normal(0, 0.02)
+        v["parallax_star_v"], v["parallax_offset"] = rng.normal(0, 1, n), rng.normal(0, 0.02)
         v["parallax_log_length_scale"] = rng.uniform(6.0, 8.0)
     if layout.has_sn:
         v["sn_abs_mag"], v["sn_scatter"], v["h0"] = rng.normal(-19.2, 0.1), rng.uniform(0.05, 0.2), rng.uniform(60, 80)
@@ -184,10 +184,12 @@ def _reference(v, data, settings, layout):
             w = 1.0 / err[j] ** 2
             base = np.sum(w * (mag[j] - pred0[j])) / w.sum()  # the star's photometric modulus
             c = np.sqrt(1.0 / w.sum() + scatter[data.star_host[j]] ** 2)
-            mu_j = base - c * v["parallax_star_u"][k]
+            u = np.sinh(v["parallax_star_v"][k])  # the sampler's coordinate v, u = sinh v
+            mu_j = base - c * u
             d = 10 ** (mu_j / 5 + 1)
-            # EDSD prior (Bailer-Jones 2015): Gamma(3, L) in d; density of u = |dd/du| p(d), dd/du = -d c ln10 / 5
-            lp += stats.gamma.logpdf(d, 3.0, scale=L) + np.log(d * c * np.log(10) / 5)
+            # EDSD prior (Bailer-Jones 2015): Gamma(3, L) in d; density of v = |dd/dv| p(d),
+            # dd/dv = -d c (ln10 / 5) cosh v
+            lp += stats.gamma.logpdf(d, 3.0, scale=L) + np.log(d * c * np.log(10) / 5 * np.cosh(v["parallax_star_v"][k]))
             lp += N(data.parallax[j], 1000.0 / d + v["parallax_offset"], data.parallax_err[j])
             star_mu[j] = mu_j
     a = _ratio_f99([settings.wavelength(b) for b in bands], rv) * rv if settings.multiband else None
