@@ -431,22 +431,22 @@ def _targets(rows, scale_rows, full=None) -> list[str]:
             "the same JAX and numpyro imports, so the ratio is a ratio of fixed costs"
             + (f" (in this run `ladder` {lad['wall']:.1f} s for a min ESS of {lad['min_ess']:.0f}, centered NUTS "
                f"{cen['wall']:.1f} s for {cen['min_ess']:.0f})." if "wall" in lad and "wall" in cen else "."), "",
-            "The full-ladder example (NUTS, 179 dimensions; profile of 2026-12-02): one gradient costs ~0.93 ms "
-            "(was ~1.05: the log of the normal distribution function in each star's reddening integral now takes one "
-            "erfc and one log, and the photometric log-determinants are formed once), of which the per-star "
-            "densities (mixture of two reddened components, 1,580 stars, value and gradient in every input) are "
-            "~0.55 ms. The curvature start's program compiles in ~6 s (central differences of the gradient; the "
-            "batched forward-over-reverse Hessian took ~20 s), numpyro's NUTS program ~15 s. The sampler takes 31 "
-            "leapfrog steps per iteration at a step size of ~0.16; that count did not move with the mixture, the "
-            "extinction, the per-galaxy scatter or the photometric biases switched off, with target_accept 0.8, or "
-            "with the per-galaxy scatters or E(B-V) means in the dense mass block (2 chains x 500 + 500 each): after "
-            "the warm-up the adapted dense block still differs from the posterior covariance by factors 0.06 to 3.7 "
-            "in its eigenvalues. At 1000 draws the R-hat gate fails on one parallax star's distance (1.012-1.013): "
-            "its posterior has a peak (sd 0.08 mag) and a plateau ~1 mag long holding ~6% of the mass, where the "
-            "outlier component lets its parallax pull it; the chains are extended once (a new compilation and "
-            "1000 more draws per chain). Integrating each parallax star's distance out by quadrature would remove "
-            "that plateau and the extension, at the price of ~20-60 density evaluations per parallax star per "
-            "gradient.", ""]
+            "The full-ladder example (NUTS, 179 dimensions; profile of 2026-12-02, third stop): ~135 s whole "
+            "process, of which ~100 s is sampling (4 chains x 2000 iterations, two at a time on 2 cores; ~56 s of "
+            "it the warm-up, whose first ~250 iterations take 60-110 leapfrog steps), ~18 s compiling (the curvature "
+            "start ~4 s, the chains' initialisation ~4 s, the block of NUTS iterations ~10 s), ~7 s assembling the "
+            "output, ~6 s writing and ~5 s start-up. One gradient costs ~0.55-0.7 ms (a quarter of it fixed "
+            "per-operation cost: 4x the stars cost 2.6x the time). After the warm-up NUTS takes 31 leapfrog steps "
+            "per iteration (17-21 in some chains) at a step size of 0.16-0.2. Two changes of this stop: the chains "
+            "run in compiled blocks of iterations from one program, so an extension no longer compiles the sampler "
+            "again (-14 s when it happens); and each parallax star is sampled in v with u = sinh(v): in u the "
+            "outlier mixture gave some stars a flat tail ~12 sd long (kurtosis 15-29, adapted metric 0.2-6x their "
+            "posterior variance), which kept one star's R-hat at 1.012-1.014 after 1000 draws and forced an "
+            "extension of 1000 draws per chain; in v their kurtosis is below 1 and the gate passes at 1000 draws "
+            "(187 s -> 135 s). What limits it now: the adapted metric still differs from the posterior covariance "
+            "by factors ~0.1 to ~3.4 in its eigenvalues, in directions made of the photometric biases' coordinates "
+            "(correlated with the galaxies' moduli; in the dense block they moved one of two chains from 31 to 21 "
+            "steps, not yet adopted), and the warm-up's early windows.", ""]
     return out
 
 
