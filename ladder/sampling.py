@@ -422,7 +422,7 @@ class _Chains:
         import jax
 
         self.kernel, self.data, self.say = kernel, data, say
-        self.n_chains, self.warmup_total, self.done = sampler.chains, sampler.warmup, 0
+        self.n_chains, self.warmup_total = sampler.chains, sampler.warmup
         self.devices = min(jax.local_device_count(), self.n_chains) if method == "parallel" else 1
         self.method = method
         self.state = None
@@ -463,8 +463,7 @@ class _Chains:
 
             def body(s, _):
                 s = kernel.sample(s, (data,), {})
-                return s, (post(s.z), {f: getattr(s, f) for f in _EXTRA_FIELDS[:-1]}
-                           | {"potential_energy": s.potential_energy})
+                return s, (post(s.z), {f: getattr(s, f) for f in _EXTRA_FIELDS})
 
             return jax.lax.scan(body, state, None, length=block)
 
@@ -486,8 +485,11 @@ class _Chains:
             jax.block_until_ready(e)  # dispatch is asynchronous: progress and interrupts follow the computation
             lo = max(skip - done, 0)
             hi = min(todo - done, self.block)
-            if hi > lo:  # (devices, chains per device, block, ...) -> (chains, kept, ...)
-                cut = lambda x: (lambda a: a.reshape((-1,) + a.shape[2:])[:, lo:hi])(np.asarray(x))  # noqa: E731
+            if hi > lo:
+                def cut(x):  # (devices, chains per device, block, ...) -> (chains, kept iterations, ...)
+                    a = np.asarray(x)
+                    return a.reshape((-1,) + a.shape[2:])[:, lo:hi]
+
                 kept_s.append(jax.tree.map(cut, s))
                 kept_e.append(jax.tree.map(cut, e))
             done += self.block
@@ -497,7 +499,6 @@ class _Chains:
                          else f"draws {min(done, todo) - skip}/{draws}")
                 self.say(f"ladder: NUTS {phase} iterations per chain ({self.n_chains} chains, "
                          f"{last - start:.0f} s)")
-        self.done += done
         join = lambda parts: {k: np.concatenate([p[k] for p in parts], axis=1) for k in parts[0]}  # noqa: E731
         return join(kept_s), join(kept_e)
 
