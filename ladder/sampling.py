@@ -375,13 +375,11 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
                   dense_mass=dense, inverse_mass_matrix=inverse_mass, init_strategy=init_strategy)
     method = _chain_method(sampler.chain_method, sampler.chains)
     chains = _Chains(kernel, array_parts, sampler, method, say if sampler.progress else None)
-    samples, extra = [], []
-    draws = chains.run(sampler.warmup, sampler.draws, jax.random.PRNGKey(sampler.seed))
-    samples.append(draws[0])
-    extra.append(draws[1])
+    first, first_extra = chains.run(sampler.warmup, sampler.draws, jax.random.PRNGKey(sampler.seed))
+    samples, extra = [first], [first_extra]
     total = sampler.draws
     while True:
-        joined = {k: np.concatenate([s[k] for s in samples], axis=1) for k in samples[0]}
+        joined = _join_draws(samples)
         problems = _quick_gate(joined, limits) if sampler.chains > 1 else []
         step = min(sampler.draws, sampler.draw_limit - total)
         if not problems or step <= 0:
@@ -390,12 +388,16 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
                f"(no new warm-up; limit max_draws = {sampler.draw_limit})")
         say(f"ladder: {msg}")
         notes.append(msg)
-        more = chains.run(0, step)
-        samples.append(more[0])
-        extra.append(more[1])
+        more, more_extra = chains.run(0, step)
+        samples.append(more)
+        extra.append(more_extra)
         total += step
-    joined_extra = {k: np.concatenate([e[k] for e in extra], axis=1) for k in extra[0]}
-    return joined, joined_extra, method, notes
+    return joined, _join_draws(extra), method, notes
+
+
+def _join_draws(parts: list[dict]) -> dict:
+    """Dicts of (chains, draws, ...) arrays joined along the draws."""
+    return {k: np.concatenate([p[k] for p in parts], axis=1) for k in parts[0]}
 
 
 #: Iterations per compiled block of :class:`_Chains` (fewer when the run is short): one block costs one call
@@ -499,8 +501,7 @@ class _Chains:
                          else f"draws {min(done, todo) - skip}/{draws}")
                 self.say(f"ladder: NUTS {phase} iterations per chain ({self.n_chains} chains, "
                          f"{last - start:.0f} s)")
-        join = lambda parts: {k: np.concatenate([p[k] for p in parts], axis=1) for k in parts[0]}  # noqa: E731
-        return join(kept_s), join(kept_e)
+        return _join_draws(kept_s), _join_draws(kept_e)
 
 
 def _say(msg: str) -> None:
