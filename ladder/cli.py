@@ -392,10 +392,12 @@ def _calibrate(args) -> int:
         rows = coverage[coverage["parameter"] == name]
         cells = [f"{r['empirical']:.2f}+/-{r['binomial_sd']:.2f}{'' if r['within_2sd'] else '!'}" if r["n"] else "-"
                  for r in rows]
+        p = p_of.get(name, float("nan"))
         print(f"{name:<28s} {int(rows['n'][0]):>4d} " + " ".join(f"{c:>13s}" for c in cells)
-              + f" {p_of.get(name, float('nan')):>9.3f}")
+              + f" {'-' if p != p else f'{p:.3f}':>9s}")
     print("empirical coverage +/- binomial sd per nominal level (!: more than 2 sd from nominal); uniform p: "
-          "chi-square test of the ranks (coverage.ecsv, uniformity.ecsv)")
+          "chi-square test of the ranks (-: too few replications for it, 10 at least; coverage.ecsv, "
+          "uniformity.ecsv)")
     return _gate_exit(ranks.meta["failed"], ranks.meta["failed_diagnostics"], "replication",
                       args.strict or cfg.sampler.strict)
 
