@@ -394,7 +394,7 @@ def _calibrate(args) -> int:
                  for r in rows]
         p = p_of.get(name, float("nan"))
         print(f"{name:<28s} {int(rows['n'][0]):>4d} " + " ".join(f"{c:>13s}" for c in cells)
-              + f" {'-' if p != p else f'{p:.3f}':>9s}")
+              + f" {'-' if np.isnan(p) else f'{p:.3f}':>9s}")
     print("empirical coverage +/- binomial sd per nominal level (!: more than 2 sd from nominal); uniform p: "
           "chi-square test of the ranks (-: too few replications for it, 10 at least; coverage.ecsv, "
           "uniformity.ecsv)")
