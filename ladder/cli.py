@@ -396,8 +396,7 @@ def _calibrate(args) -> int:
         print(f"{name:<28s} {int(rows['n'][0]):>4d} " + " ".join(f"{c:>13s}" for c in cells)
               + f" {'-' if np.isnan(p) else f'{p:.3f}':>9s}")
     print("empirical coverage +/- binomial sd per nominal level (!: more than 2 sd from nominal); uniform p: "
-          "chi-square test of the ranks (-: too few replications for it, 10 at least; coverage.ecsv, "
-          "uniformity.ecsv)")
+          "chi-square test of the ranks (-: too few replications for it; coverage.ecsv, uniformity.ecsv)")
     return _gate_exit(ranks.meta["failed"], ranks.meta["failed_diagnostics"], "replication",
                       args.strict or cfg.sampler.strict)
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import contextlib
+
 import numpy as np
 
 from ladder.catalog import LadderData
@@ -183,6 +185,20 @@ def fit_ensemble(root, seeds, n_hosts=4, n_cepheids=120, draws=400, cache=None):
     return out
 
 
+@contextlib.contextmanager
+def default_sigint():
+    """SIGINT with Python's default handler inside the block, as from an interactive shell: a pytest started in
+    the background inherits an ignored SIGINT (and so would a child it starts); the CLI leaves an ignored SIGINT
+    ignored."""
+    import signal
+
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
 def signal_mid_run(args, marker: str, delay_s: float, sig, timeout: float = 300) -> tuple[int, str, str]:
     """Run ``python -m ladder ARGS`` as a real process, send ``sig`` ``delay_s`` seconds after a stderr line
     containing ``marker``; return (exit code, stdout, stderr).
@@ -190,19 +206,15 @@ def signal_mid_run(args, marker: str, delay_s: float, sig, timeout: float = 300)
     A child inherits an ignored SIGINT (e.g. pytest started in the background); with a handler here it starts
     with the default disposition, as from an interactive shell.
     """
-    import signal
     import subprocess
     import sys
     import time
     from pathlib import Path
 
-    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
-    try:
+    with default_sigint():  # the child starts with the disposition it inherits
         proc = subprocess.Popen([sys.executable, "-m", "ladder", *map(str, args)],
                                 cwd=Path(__file__).resolve().parents[1], stdout=subprocess.PIPE,
                                 stderr=subprocess.PIPE, text=True)
-    finally:
-        signal.signal(signal.SIGINT, previous)
     try:
         head = []
         for line in proc.stderr:

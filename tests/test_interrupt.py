@@ -13,7 +13,7 @@ import pytest
 
 from ladder.cli import EXIT_SIGINT, EXIT_SIGTERM, main
 from ladder.simulate import MockSettings, simulate, write_mock
-from helpers import signal_mid_run
+from helpers import default_sigint, signal_mid_run
 
 #: Sequential chains of this length keep the process sampling for several seconds after compilation, and a
 #: signal is acted on at the latest when the chain in progress ends (a few seconds).
@@ -96,14 +96,8 @@ def test_an_interrupt_swallowed_in_a_finalizer_still_stops_the_fit(runs, monkeyp
 
     monkeypatch.setattr(ladder, "fit", fit_then_swallowed_sigint)
     tiny = long_run.parent.parent / "tiny" / long_run.name
-    # SIGINT with its default disposition, as from an interactive shell: a pytest started in the background
-    # inherits an ignored SIGINT, which the CLI leaves ignored (then no SIGINT can be recorded at all)
-    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
-    try:
-        code = main(["fit", str(tiny), "--out", str(out), "--force", "--no-plots"])
-    finally:
-        signal.signal(signal.SIGINT, previous)
-    assert code == EXIT_SIGINT
+    with default_sigint():  # else, under a pytest started in the background, no SIGINT could be recorded at all
+        assert main(["fit", str(tiny), "--out", str(out), "--force", "--no-plots"]) == EXIT_SIGINT
     assert "ladder: interrupted; nothing was written" in capsys.readouterr().err
     assert [p.name for p in out.parent.iterdir()] == [out.name]  # no .out.partial-* left behind
     assert _snapshot(out) == before
