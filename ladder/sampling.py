@@ -555,16 +555,18 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
     elif grid_names:
         program = _Program(parts, layout, settings, method,
                            _ll_mode(output, parts.lin.y0.shape[0], sampler.chains * sampler.draws), grid_names)
-        samples = _grid_draws(program, sampler, grid_names)
-        extra, chain_method = None, "vectorized"
         notes.append(f"hyperparameters {', '.join(grid_names)} drawn independently from their exact marginal "
                      "posterior on a grid (no Markov chain): every draw independent")
+        samples, drawn, more = _grid_rounds(program, sampler, grid_names, limits, say)
+        extra, chain_method = None, "vectorized"
+        notes += more
     else:
         model = marginal_model if method == "marginal" else full_model
         init = initial_values(parts, layout, settings, method)  # a Markov chain needs a starting point
         samples, extra, chain_method, more = _run_mcmc(model, parts, layout, settings, sampler, init, limits, say)
         notes += more
-    idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra, program)
+    idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra, program,
+                                            drawn if grid_names else None)
     notes += bound_notes
     wall = time.perf_counter() - start
     return SampleRun(idata, derived, wall, chain_method, method, notes, parts)
@@ -585,12 +587,11 @@ def _grid_hyperparameters(settings: ModelSettings, layout: Layout) -> list[str] 
     return names or None
 
 
-def _grid_draws(program: "_Program", sampler, names) -> dict:
-    r"""Independent draws of 1 or 2 positive hyperparameters from their exact marginal posterior
+def _grid_table(program: "_Program", names) -> tuple:
+    r"""The exact marginal posterior of 1 or 2 positive hyperparameters,
     :math:`p(\phi \mid y) \propto p(\phi)\,p(y \mid \phi)` (:func:`ladder.structure.log_marginal`), tabulated in
-    :math:`\ln\phi` on a grid spanning +-8 posterior sd around the mode (found by a coarse scan, then a fine one),
-    drawn by inverse CDF over the cells, uniform within a cell. Returns the draws by name, shaped (chains, draws)
-    like a sampler's."""
+    :math:`\ln\phi` on a grid spanning +-8 posterior sd around the mode (found by a coarse scan, then a fine one).
+    Returns ``(mesh (M, k), weights (M,), cell widths (k,))`` for :func:`_grid_sample`."""
     table = program.log_posterior  # (M, k) ln phi -> (M,)
     k = len(names)
     lo, hi = np.full(k, np.log(1e-4)), np.full(k, np.log(5.0))
@@ -631,12 +632,73 @@ def _grid_draws(program: "_Program", sampler, names) -> dict:
             break
     else:
         raise RuntimeError("the grid over the hyperparameters does not hold their posterior (mass at its edge)")
-    S = sampler.chains * sampler.draws
-    rng = np.random.default_rng([sampler.seed, 2])  # the draws are a function of the seed alone
+    return mesh, w, np.array([a[1] - a[0] for a in axes])
+
+
+def _round_seed(seed: int, stream: int, round_: int) -> list[int]:
+    """Seed of one stream of random numbers (1: the linear block's normals, 2: the grid's draws) in round
+    ``round_`` of independent draws (0: the first ``draws``; 1, 2, ...: each extension): every draw is a function
+    of the seed alone, and an extension leaves the earlier draws as they were."""
+    return [seed, stream] if round_ == 0 else [seed, stream, round_]
+
+
+def _grid_sample(table: tuple, names, chains: int, draws: int, seed: int, round_: int = 0) -> dict:
+    """Independent draws from the grid of :func:`_grid_table`: a cell by inverse CDF over the cells, uniform
+    within it. Returns the draws by name, shaped (chains, draws) like a sampler's."""
+    mesh, w, steps = table
+    S = chains * draws
+    rng = np.random.default_rng(_round_seed(seed, 2, round_))
     cell = rng.choice(w.size, size=S, p=w / w.sum())
-    steps = np.array([a[1] - a[0] for a in axes])
-    x = mesh[cell] + (rng.random((S, k)) - 0.5) * steps
-    return {nm: np.exp(x[:, i]).reshape(sampler.chains, sampler.draws) for i, nm in enumerate(names)}
+    x = mesh[cell] + (rng.random((S, len(names))) - 0.5) * steps
+    return {nm: np.exp(x[:, i]).reshape(chains, draws) for i, nm in enumerate(names)}
+
+
+def _grid_rounds(program: "_Program", sampler, names, limits, say) -> tuple:
+    """The grid's independent draws with their exact draws of the linear block and the pass over them, then, while
+    R-hat or bulk ESS fail (:func:`_quick_gate` on every output parameter; with independent draws a short run
+    fails by chance only), ``draws`` more per chain up to ``sampler.draw_limit``, the earlier draws kept, as the
+    NUTS path extends its chains. Returns ``(hyperparameter draws (chains, total), the pass's output as
+    _Program.draws gives it, notes)``."""
+    table = _grid_table(program, names)
+    chains, rounds, notes, total = sampler.chains, [], [], 0
+    while True:
+        step = sampler.draws if not rounds else min(sampler.draws, sampler.draw_limit - total)
+        if rounds:
+            problems = _quick_gate({k: v.reshape((chains, total) + v.shape[1:]) for k, v in merged[0].items()},
+                                   limits) if chains > 1 else []
+            if not problems or step <= 0:
+                return hyper, merged, notes
+            msg = (f"{', '.join(problems)} after {total} draws per chain: {step} more independent draws per chain "
+                   f"(limit max_draws = {sampler.draw_limit})")
+            say(f"ladder: {msg}")
+            notes.append(msg)
+        h = _grid_sample(table, names, chains, step, sampler.seed, len(rounds))
+        rounds.append((h, program.draws(h, chains, step, sampler.seed, len(rounds))))
+        total += step
+        hyper = {k: np.concatenate([r[0][k] for r in rounds], axis=1) for k in names}
+        merged = _merge_rounds([r[1] for r in rounds], [r[0][names[0]].shape[1] for r in rounds], chains)
+
+
+def _merge_rounds(outs: list, draws: list, chains: int) -> tuple:
+    """Rounds of :meth:`_Program.draws` (flat (chains x draws_r, ...) arrays, chain-major) as one: the arrays
+    joined along each chain's draws, the per-star means weighted by their draws."""
+    if len(outs) == 1:
+        return outs[0]
+
+    def join(parts):
+        out = {}
+        for n in parts[0]:
+            rest = np.shape(parts[0][n])[1:]
+            if np.shape(parts[0][n])[:1] != (chains * draws[0],):  # not per draw (an empty placeholder)
+                out[n] = parts[0][n]
+                continue
+            out[n] = np.concatenate([np.asarray(q[n]).reshape((chains, d) + rest) for q, d in zip(parts, draws)],
+                                    axis=1).reshape((chains * sum(draws),) + rest)
+        return out
+
+    total = float(sum(draws))
+    derived = {n: sum(o[1][n] * d for o, d in zip(outs, draws)) / total for n in outs[0][1]}
+    return join([o[0] for o in outs]), derived, join([o[2] for o in outs])
 
 
 #: Points per call of the fit's compiled program (grid points or draws): one compiled shape for every call.
@@ -780,13 +842,14 @@ class _Program:
         out = [np.asarray(o[1][0])[:k] for o, k in self._calls(hyper, normals, mesh.shape[0], False)]
         return np.concatenate(out)
 
-    def draws(self, samples: dict, chains: int, draws: int, seed: int):
+    def draws(self, samples: dict, chains: int, draws: int, seed: int, round_: int = 0):
         """Every posterior draw with every output parameter (for ``marginal`` and ``gls`` each gets its exact draw
-        of the linear block; standard normals from ``numpy.random.default_rng([seed, 1])``), and the pass over
-        them. Returns ``(flat (S, ...) arrays by output name, per-star means, pointwise values)``."""
+        of the linear block; standard normals from ``numpy.random.default_rng([seed, 1])``, or
+        ``[seed, 1, round_]`` for an extension: :func:`_round_seed`), and the pass over them. Returns ``(flat
+        (S, ...) arrays by output name, per-star means, pointwise values)``."""
         S = chains * draws
         flat = {k: np.asarray(v).reshape((S,) + np.shape(v)[2:]) for k, v in samples.items()}
-        normals = self._normals(np.random.default_rng([seed, 1]), S)  # the draws are a function of the seed alone
+        normals = self._normals(np.random.default_rng(_round_seed(seed, 1, round_)), S)
         sums, drawn, ys = None, [], []
         for (carry, (_, d, y)), k in self._calls(flat, normals, S, True):
             sums = [np.asarray(c) for c in carry] if sums is None else [a + np.asarray(c) for a, c in zip(sums, carry)]
@@ -797,7 +860,9 @@ class _Program:
         return {**flat, **cat(drawn)}, derived, cat(ys)
 
 
-def _assemble(parts, layout, settings, sampler, output, method, samples, extra, program=None):
+def _assemble(parts, layout, settings, sampler, output, method, samples, extra, program=None, drawn=None):
+    """The InferenceData of a run from its sampled draws (chains, draws, ...) and, unless ``drawn`` holds it
+    already (the grid's rounds), the pass over them (:meth:`_Program.draws`)."""
     import arviz as az
     import xarray as xr
 
@@ -810,7 +875,7 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
     mode = _ll_mode(output, parts.lin.y0.shape[0], S)
     if program is None:
         program = _Program(parts, layout, settings, method, mode)
-    flat, derived, ys = program.draws(samples, chains, draws, sampler.seed)
+    flat, derived, ys = drawn if drawn is not None else program.draws(samples, chains, draws, sampler.seed)
 
     def _da(x, dim=None):
         x = np.asarray(x).reshape((chains, draws) + np.shape(x)[1:])

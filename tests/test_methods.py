@@ -259,6 +259,30 @@ def test_extension_continues_the_same_chains(tmp_path_factory):
     np.testing.assert_array_equal(extended.idata.sample_stats["n_steps"], once.idata.sample_stats["n_steps"])
 
 
+def test_grid_extension_adds_independent_draws(tmp_path_factory):
+    """Issue 6, item 5, for the grid of the marginal method (every draw independent): a failed gate adds draws
+    per chain and keeps the earlier ones, so the first 100 of a run extended to 200 are the draws of a run of 100
+    (same process and environment: equal to rounding, rtol 1e-9), and the per-star means are over all the draws."""
+    from ladder.config import DiagnosticThresholds
+
+    cfg, data, _ = _mock(tmp_path_factory, "grid-extend", n_hosts=4, n_anchors=1, n_cepheids=120)
+    base = dataclasses.replace(cfg.sampler, chains=2, progress=False, seed=4)
+    strict = DiagnosticThresholds(min_ess_bulk=1e9)
+    extended = ladder.fit(data, cfg.model, dataclasses.replace(base, draws=100, max_draws=200), strict)
+    short = ladder.fit(data, cfg.model, dataclasses.replace(base, draws=100, max_draws=100), strict)
+    assert extended.method == short.method == "marginal"
+    notes = " ".join(extended.diagnostics.notes)
+    assert "after 100 draws per chain: 100 more independent draws per chain" in notes, notes
+    assert "more independent draws" not in " ".join(short.diagnostics.notes)
+    for name in ("pl_zero_point", "scatter", "mu"):
+        a, b = np.asarray(extended.idata.posterior[name]), np.asarray(short.idata.posterior[name])
+        assert a.shape[:2] == (2, 200) and b.shape[:2] == (2, 100), (name, a.shape, b.shape)
+        np.testing.assert_allclose(a[:, :100], b, rtol=1e-9, err_msg=name)
+        assert not np.allclose(a[:, 100:], b), name  # the extension is new draws, not the first ones again
+    resid = np.asarray(extended.derived["residual"])
+    assert np.all(np.isfinite(resid)) and not np.allclose(resid, np.asarray(short.derived["residual"]))
+
+
 @pytest.mark.parametrize("spec, inside, outside", [
     (PriorSpec("normal", (("loc", 0.5), ("scale", 2.0))), [-3.0, 0.5, 4.0], []),
     (PriorSpec("halfnormal", (("scale", 0.3),)), [1e-3, 0.05, 1.2], [-0.1]),
