@@ -380,19 +380,30 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
     total = sampler.draws
     while True:
         joined = _join_draws(samples)
-        problems = _quick_gate(joined, limits) if sampler.chains > 1 else []
-        step = min(sampler.draws, sampler.draw_limit - total)
-        if not problems or step <= 0:
+        step = _extension(joined, total, sampler, limits, say, notes, "extending the same chains by {} draws",
+                          "no new warm-up; ")
+        if not step:
             break
-        msg = (f"{', '.join(problems)} after {total} draws per chain: extending the same chains by {step} draws "
-               f"(no new warm-up; limit max_draws = {sampler.draw_limit})")
-        say(f"ladder: {msg}")
-        notes.append(msg)
         more, more_extra = chains.run(0, step)
         samples.append(more)
         extra.append(more_extra)
         total += step
     return joined, _join_draws(extra), method, notes
+
+
+def _extension(samples: dict, total: int, sampler, limits, say, notes: list, what: str, detail: str = "") -> int:
+    """Draws per chain to add after the gate of ``samples`` ((chains, draws, ...) arrays; :func:`_quick_gate`), 0
+    when it passes, there is one chain, or ``sampler.draw_limit`` is reached. An extension is said and noted:
+    ``what`` (with ``{}`` for the draws) and ``detail`` say what it is."""
+    step = min(sampler.draws, sampler.draw_limit - total)
+    problems = _quick_gate(samples, limits) if sampler.chains > 1 and step > 0 else []
+    if not problems:
+        return 0
+    msg = (f"{', '.join(problems)} after {total} draws per chain: {what.format(step)} "
+           f"({detail}limit max_draws = {sampler.draw_limit})")
+    say(f"ladder: {msg}")
+    notes.append(msg)
+    return step
 
 
 def _join_draws(parts: list[dict]) -> dict:
@@ -660,23 +671,17 @@ def _grid_rounds(program: "_Program", sampler, names, limits, say) -> tuple:
     NUTS path extends its chains. Returns ``(hyperparameter draws (chains, total), the pass's output as
     _Program.draws gives it, notes)``."""
     table = _grid_table(program, names)
-    chains, rounds, notes, total = sampler.chains, [], [], 0
-    while True:
-        step = sampler.draws if not rounds else min(sampler.draws, sampler.draw_limit - total)
-        if rounds:
-            problems = _quick_gate({k: v.reshape((chains, total) + v.shape[1:]) for k, v in merged[0].items()},
-                                   limits) if chains > 1 else []
-            if not problems or step <= 0:
-                return hyper, merged, notes
-            msg = (f"{', '.join(problems)} after {total} draws per chain: {step} more independent draws per chain "
-                   f"(limit max_draws = {sampler.draw_limit})")
-            say(f"ladder: {msg}")
-            notes.append(msg)
-        h = _grid_sample(table, names, chains, step, sampler.seed, len(rounds))
-        rounds.append((h, program.draws(h, chains, step, sampler.seed, len(rounds))))
-        total += step
-        hyper = {k: np.concatenate([r[0][k] for r in rounds], axis=1) for k in names}
-        merged = _merge_rounds([r[1] for r in rounds], [r[0][names[0]].shape[1] for r in rounds], chains)
+    chains, steps, hypers, outs, notes = sampler.chains, [], [], [], []
+    step = sampler.draws
+    while step:
+        hypers.append(_grid_sample(table, names, chains, step, sampler.seed, len(steps)))
+        outs.append(program.draws(hypers[-1], chains, step, sampler.seed, len(steps)))
+        steps.append(step)
+        total = sum(steps)
+        merged = _merge_rounds(outs, steps, chains)
+        step = _extension({k: v.reshape((chains, total) + v.shape[1:]) for k, v in merged[0].items()}, total,
+                          sampler, limits, say, notes, "{} more independent draws per chain")
+    return {k: np.concatenate([h[k] for h in hypers], axis=1) for k in names}, merged, notes
 
 
 def _merge_rounds(outs: list, draws: list, chains: int) -> tuple:
