@@ -677,33 +677,31 @@ def _grid_rounds(program: "_Program", sampler, names, limits, say) -> tuple:
         hypers.append(_grid_sample(table, names, chains, step, sampler.seed, len(steps)))
         outs.append(program.draws(hypers[-1], chains, step, sampler.seed, len(steps)))
         steps.append(step)
-        total = sum(steps)
-        merged = _merge_rounds(outs, steps, chains)
-        step = _extension({k: v.reshape((chains, total) + v.shape[1:]) for k, v in merged[0].items()}, total,
-                          sampler, limits, say, notes, "{} more independent draws per chain")
-    return {k: np.concatenate([h[k] for h in hypers], axis=1) for k in names}, merged, notes
+        params = _join_draws([_by_chain(o[0], chains, d) for o, d in zip(outs, steps)])
+        step = _extension(params, sum(steps), sampler, limits, say, notes, "{} more independent draws per chain")
+    return _join_draws(hypers), _merge_rounds(outs, steps, chains), notes
+
+
+def _by_chain(arrays: dict, chains: int, draws: int) -> dict:
+    """Flat (chains x draws, ...) arrays, chain-major, as (chains, draws, ...); arrays not per draw (empty
+    placeholders) are left out."""
+    return {n: np.reshape(v, (chains, draws) + np.shape(v)[1:]) for n, v in arrays.items()
+            if np.shape(v)[:1] == (chains * draws,)}
 
 
 def _merge_rounds(outs: list, draws: list, chains: int) -> tuple:
-    """Rounds of :meth:`_Program.draws` (flat (chains x draws_r, ...) arrays, chain-major) as one: the arrays
-    joined along each chain's draws, the per-star means weighted by their draws."""
+    """Rounds of :meth:`_Program.draws` as one: the per-draw arrays joined along each chain's draws
+    (:func:`_join_draws`), flat again; the per-star means weighted by their draws."""
     if len(outs) == 1:
         return outs[0]
+    S = chains * sum(draws)
 
-    def join(parts):
-        out = {}
-        for n in parts[0]:
-            rest = np.shape(parts[0][n])[1:]
-            if np.shape(parts[0][n])[:1] != (chains * draws[0],):  # not per draw (an empty placeholder)
-                out[n] = parts[0][n]
-                continue
-            out[n] = np.concatenate([np.asarray(q[n]).reshape((chains, d) + rest) for q, d in zip(parts, draws)],
-                                    axis=1).reshape((chains * sum(draws),) + rest)
-        return out
+    def join(i):
+        joined = _join_draws([_by_chain(o[i], chains, d) for o, d in zip(outs, draws)])
+        return {**outs[0][i], **{n: v.reshape((S,) + v.shape[2:]) for n, v in joined.items()}}
 
-    total = float(sum(draws))
-    derived = {n: sum(o[1][n] * d for o, d in zip(outs, draws)) / total for n in outs[0][1]}
-    return join([o[0] for o in outs]), derived, join([o[2] for o in outs])
+    derived = {n: sum(o[1][n] * d for o, d in zip(outs, draws)) / sum(draws) for n in outs[0][1]}
+    return join(0), derived, join(2)
 
 
 #: Points per call of the fit's compiled program (grid points or draws): one compiled shape for every call.
