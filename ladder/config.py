@@ -343,7 +343,8 @@ LOG_LIKELIHOOD_MODES = ("auto", "star", "galaxy", "none")
 class OutputSettings:
     """What ``posterior.nc`` keeps. ``log_likelihood``: pointwise Cepheid log-likelihoods per ``star``, summed per
     ``galaxy`` (the unit of host-level model comparison), or ``none``; ``auto`` (default) is ``star`` up to
-    2e7 values (stars x draws, ~80 MB as float32) and ``galaxy`` beyond."""
+    2e7 values (stars x requested draws, ~80 MB as float32) and ``galaxy`` beyond; an extension of the run keeps
+    the choice."""
 
     log_likelihood: str = "auto"
 

@@ -354,9 +354,12 @@ def traced_model(model, parts: ModelParts, settings: ModelSettings, layout: Layo
     return bound, array_parts
 
 
-def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
+def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say, program=None):
     """NUTS with warm-up, then extensions of the same chains (no new warm-up) while R-hat or ESS fail, up to
-    ``sampler.draw_limit`` draws per chain. Returns (samples by chain, extra fields, chain method, notes)."""
+    ``sampler.draw_limit`` draws per chain. With ``program`` (the marginal method) each run of the chains gets its
+    exact draws of the linear block and the pass over them (:meth:`_Program.draws`, a new random stream per
+    extension), and the gate covers every output parameter, the linear block's included. Returns (samples by
+    chain, extra fields, chain method, notes, the pass's output over all draws or None)."""
     import jax
     import jax.numpy as jnp
     from numpyro.infer import NUTS, init_to_value
@@ -376,19 +379,23 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say):
     method = _chain_method(sampler.chain_method, sampler.chains)
     chains = _Chains(kernel, array_parts, sampler, method, say if sampler.progress else None)
     first, first_extra = chains.run(sampler.warmup, sampler.draws, jax.random.PRNGKey(sampler.seed))
-    samples, extra = [first], [first_extra]
-    total = sampler.draws
+    samples, extra, steps, outs = [first], [first_extra], [sampler.draws], []
     while True:
         joined = _join_draws(samples)
-        step = _extension(joined, total, sampler, limits, say, notes, "extending the same chains by {} draws",
+        gated = joined
+        if program is not None:
+            outs.append(program.draws(samples[-1], sampler.chains, steps[-1], sampler.seed, len(steps) - 1))
+            gated = _join_draws([_by_chain(o[0], sampler.chains, d) for o, d in zip(outs, steps)])
+        step = _extension(gated, sum(steps), sampler, limits, say, notes, "extending the same chains by {} draws",
                           "no new warm-up; ")
         if not step:
             break
         more, more_extra = chains.run(0, step)
         samples.append(more)
         extra.append(more_extra)
-        total += step
-    return joined, _join_draws(extra), method, notes
+        steps.append(step)
+    drawn = _merge_rounds(outs, steps, sampler.chains) if outs else None
+    return joined, _join_draws(extra), method, notes, drawn
 
 
 def _extension(samples: dict, total: int, sampler, limits, say, notes: list, what: str, detail: str = "") -> int:
@@ -559,13 +566,14 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
     parts = model_parts(arrays, layout, settings)
     _import_in_background()
     notes = [f"method {method}: {reason}"]
-    program = None
+    program = drawn = None
     grid_names = _grid_hyperparameters(settings, layout) if method == "marginal" and sampler.method != "nuts" else None
+    # ``auto`` pointwise values are decided from the requested draws: an extension keeps the output's shape
+    mode = _ll_mode(output, parts.lin.y0.shape[0], sampler.chains * sampler.draws)
     if method == "gls":
         samples, extra, chain_method = {}, None, "vectorized"
     elif grid_names:
-        program = _Program(parts, layout, settings, method,
-                           _ll_mode(output, parts.lin.y0.shape[0], sampler.chains * sampler.draws), grid_names)
+        program = _Program(parts, layout, settings, method, mode, grid_names)
         notes.append(f"hyperparameters {', '.join(grid_names)} drawn independently from their exact marginal "
                      "posterior on a grid (no Markov chain): every draw independent")
         samples, drawn, more = _grid_rounds(program, sampler, grid_names, limits, say)
@@ -574,10 +582,15 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
     else:
         model = marginal_model if method == "marginal" else full_model
         init = initial_values(parts, layout, settings, method)  # a Markov chain needs a starting point
-        samples, extra, chain_method, more = _run_mcmc(model, parts, layout, settings, sampler, init, limits, say)
+        if method == "marginal":  # the linear block is drawn with each run of the chains, so the gate sees it
+            program = _Program(parts, layout, settings, method, mode)
+        samples, extra, chain_method, more, drawn = _run_mcmc(model, parts, layout, settings, sampler, init, limits,
+                                                              say, program)
         notes += more
+    if program is None:
+        program = _Program(parts, layout, settings, method, mode)
     idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra, program,
-                                            drawn if grid_names else None)
+                                            drawn)
     notes += bound_notes
     wall = time.perf_counter() - start
     return SampleRun(idata, derived, wall, chain_method, method, notes, parts)
@@ -816,7 +829,7 @@ class _Program:
     def __init__(self, parts, layout, settings, method: str, mode: str, grid_names=None):
         from .model import split_static
 
-        self.parts, self.settings, self.grid_names = parts, settings, grid_names
+        self.parts, self.settings, self.grid_names, self.mode = parts, settings, grid_names, mode
         self.linear = method != "nuts"
         st, self.array_parts = split_static(parts)
         self._run = _compiled_program(st, settings, self.linear, mode, tuple(grid_names or ()), len(layout.galaxies))
@@ -875,9 +888,9 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
     S = chains * draws
     coords = _coords(layout)
     dims = dict(DIMS, mu=mu_dim(layout))
-    mode = _ll_mode(output, parts.lin.y0.shape[0], S)
     if program is None:
-        program = _Program(parts, layout, settings, method, mode)
+        program = _Program(parts, layout, settings, method, _ll_mode(output, parts.lin.y0.shape[0], S))
+    mode = program.mode  # decided before any extension: an extended run keeps its shape of output
     flat, derived, ys = drawn if drawn is not None else program.draws(samples, chains, draws, sampler.seed)
 
     def _da(x, dim=None):

@@ -259,13 +259,22 @@ def test_extension_continues_the_same_chains(tmp_path_factory):
     np.testing.assert_array_equal(extended.idata.sample_stats["n_steps"], once.idata.sample_stats["n_steps"])
 
 
-def test_grid_extension_adds_independent_draws(tmp_path_factory):
+def _stars(data, model) -> int:
+    arrays, layout = model_arrays(data, model)
+    return int(model_parts(arrays, layout, model).lin.y0.shape[0])
+
+
+def test_grid_extension_adds_independent_draws(tmp_path_factory, monkeypatch):
     """Issue 6, item 5, for the grid of the marginal method (every draw independent): a failed gate adds draws
     per chain and keeps the earlier ones, so the first 100 of a run extended to 200 are the draws of a run of 100
-    (same process and environment: equal to rounding, rtol 1e-9), and the per-star means are over all the draws."""
+    (same process and environment: equal to rounding, rtol 1e-9), and the per-star means are over all the draws.
+    ``log_likelihood = "auto"`` is decided from the requested draws (here per star for 2 x 100 draws, not for
+    2 x 200), and the extended run keeps that shape."""
+    from ladder import sampling
     from ladder.config import DiagnosticThresholds
 
     cfg, data, _ = _mock(tmp_path_factory, "grid-extend", n_hosts=4, n_anchors=1, n_cepheids=120)
+    monkeypatch.setattr(sampling, "AUTO_STAR_LIMIT", _stars(data, cfg.model) * 2 * 100)
     base = dataclasses.replace(cfg.sampler, chains=2, progress=False, seed=4)
     strict = DiagnosticThresholds(min_ess_bulk=1e9)
     extended = ladder.fit(data, cfg.model, dataclasses.replace(base, draws=100, max_draws=200), strict)
@@ -281,6 +290,31 @@ def test_grid_extension_adds_independent_draws(tmp_path_factory):
         assert not np.allclose(a[:, 100:], b), name  # the extension is new draws, not the first ones again
     resid = np.asarray(extended.derived["residual"])
     assert np.all(np.isfinite(resid)) and not np.allclose(resid, np.asarray(short.derived["residual"]))
+    ll = extended.idata.log_likelihood["cepheid_mag"]
+    assert ll.dims == ("chain", "draw", "star") and ll.shape[:2] == (2, 200), (ll.dims, ll.shape)
+
+
+def test_marginal_chains_gate_the_linear_block(tmp_path_factory, monkeypatch):
+    """The marginal method with NUTS on its hyperparameters (per-galaxy scatter): the linear block is drawn with
+    each run of the chains, so the R-hat/ESS gate that decides an extension sees the PL relation and the moduli,
+    not only the hyperparameters; an extension adds their draws (per chain, 100 + 100 here; at the limit the
+    final diagnostics judge, not the gate)."""
+    from ladder import sampling
+    from ladder.config import DiagnosticThresholds
+
+    gated, gate = [], sampling._quick_gate
+    monkeypatch.setattr(sampling, "_quick_gate", lambda samples, limits: gated.append(set(samples)) or gate(samples, limits))
+    cfg, data, _ = _mock(tmp_path_factory, "marginal-extend", n_hosts=4, n_anchors=1, n_cepheids=120)
+    model = dataclasses.replace(cfg.model, scatter_model="per_host")
+    sampler = dataclasses.replace(cfg.sampler, chains=2, warmup=100, draws=100, max_draws=200, progress=False, seed=4)
+    fit = ladder.fit(data, model, sampler, DiagnosticThresholds(min_ess_bulk=1e9))
+    assert fit.method == "marginal" and fit.idata.sample_stats["n_steps"].shape == (2, 200)
+    assert "extending the same chains by 100 draws" in " ".join(fit.diagnostics.notes)
+    assert len(gated) == 1 and all({"mu", "pl_zero_point", "pl_slope", "scatter"} <= g for g in gated), gated
+    for name in ("mu", "pl_zero_point"):
+        a = np.asarray(fit.idata.posterior[name])
+        assert a.shape[:2] == (2, 200) and np.all(np.isfinite(a)), name
+        assert not np.allclose(a[:, 100:], a[:, :100]), name  # the extension's draws are new ones
 
 
 @pytest.mark.parametrize("spec, inside, outside", [
