@@ -325,19 +325,21 @@ def curvature_mass(model, array_parts, init_strategy, dense):
 
 
 def _quick_gate(samples: dict, limits) -> list[str]:
-    """R-hat / bulk-ESS problems of the sampled sites (group_by_chain arrays)."""
+    """R-hat / bulk-ESS problems of the sampled sites (group_by_chain arrays), each with its worst variable."""
     import arviz as az
 
+    from .diagnostics import _worst
+
     ds = az.convert_to_dataset({k: np.asarray(v) for k, v in samples.items()})
-    rhat = az.rhat(ds, method="rank")
-    ess = az.ess(ds, method="bulk")
-    worst_r = max((float(np.nanmax(np.asarray(v))) for v in rhat.data_vars.values()), default=1.0)
-    worst_e = min((float(np.nanmin(np.asarray(v))) for v in ess.data_vars.values()), default=np.inf)
+    if not ds.data_vars:
+        return []
     out = []
+    worst_r, name_r = _worst(az.rhat(ds, method="rank"), np.nanmax)
     if not worst_r <= limits.max_r_hat:
-        out.append(f"R-hat {worst_r:.4f}")
+        out.append(f"R-hat {worst_r:.4f} ({name_r.partition('[')[0]})")
+    worst_e, name_e = _worst(az.ess(ds, method="bulk"), np.nanmin)
     if not worst_e >= limits.min_ess_bulk:
-        out.append(f"bulk ESS {worst_e:.0f}")
+        out.append(f"bulk ESS {worst_e:.0f} ({name_e.partition('[')[0]})")
     return out
 
 
