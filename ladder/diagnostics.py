@@ -43,10 +43,14 @@ class Diagnostics:
         d["notes"] = list(self.notes)
         return d
 
+    def _bfmi_text(self) -> str:
+        """E-BFMI needs the sampler's energy: independent draws (grid, gls) have none."""
+        return f"min E-BFMI {self.min_bfmi:.2f}" if np.isfinite(self.min_bfmi) else "E-BFMI n/a (no Markov chain)"
+
     def report(self) -> str:
         head = "diagnostics PASSED" if self.passed else "DIAGNOSTICS FAILED"
         lines = [f"{head}: max R-hat {self.max_r_hat:.4f}, min bulk ESS {self.min_ess_bulk:.0f}, "
-                 f"min tail ESS {self.min_ess_tail:.0f}, divergences {self.divergences}, min E-BFMI {self.min_bfmi:.2f} "
+                 f"min tail ESS {self.min_ess_tail:.0f}, divergences {self.divergences}, {self._bfmi_text()} "
                  f"({self.method}, {plural(self.chains, 'chain')} x {plural(self.draws, 'draw')}, {self.wall_seconds:.1f} s)"]
         lines += [f"  FAIL: {p}" for p in self.problems]
         lines += [f"  warning: {w}" for w in self.warnings]

@@ -10,6 +10,7 @@ one and while a partial set is removed, so a signal can neither leave the target
 from __future__ import annotations
 
 import json
+import math
 import os
 import shutil
 import tempfile
@@ -96,7 +97,24 @@ class _SignalsHeld:
 
 
 def _json(path: Path, obj) -> None:
-    path.write_text(json.dumps(obj, indent=2, sort_keys=False, default=_jsonable) + "\n", encoding="utf-8")
+    """``obj`` as strict JSON (RFC 8259 has no NaN or infinity: a non-finite number is written as null), so that
+    any JSON reader, not only Python's, reads it back."""
+    path.write_text(json.dumps(_finite_or_null(obj), indent=2, sort_keys=False, default=_jsonable, allow_nan=False)
+                    + "\n", encoding="utf-8")
+
+
+def _finite_or_null(x):
+    import numpy as np
+
+    if isinstance(x, np.generic):
+        x = x.item()
+    if isinstance(x, float):
+        return x if math.isfinite(x) else None
+    if isinstance(x, dict):
+        return {k: _finite_or_null(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_finite_or_null(v) for v in x]
+    return x
 
 
 def _jsonable(x):

@@ -195,6 +195,8 @@ def _e(x) -> str:
 
 
 def _num(x, fmt: str = ".3f") -> str:
+    if x is None:  # a JSON null: a number that could not be computed
+        return "n/a"
     try:
         v = float(x)
     except (TypeError, ValueError):
@@ -259,10 +261,15 @@ def _diagnostic_rows(diag: dict, limits: dict) -> list[list[str]]:
     ok = d <= lim
     rows.append(["divergent transitions", _num(d, ".0f"), f"&le; {_num(lim, '.0f')}", ok,
                  reason(f"{d} divergent", ok, "the sampler met no region it could not follow", problems)])
-    b, lim = diag.get("min_bfmi", math.nan), limits.get("min_bfmi", 0.3)
-    okb = isinstance(b, (int, float)) and (b >= lim)
-    rows.append(["E-BFMI (smallest chain; a warning only)", _num(b, ".2f"), f"&ge; {_num(lim, 'g')}",
-                 True if okb else "warn", reason("e-bfmi", okb, "momentum resampling explores the energy well", warns)])
+    b, lim = diag.get("min_bfmi"), limits.get("min_bfmi", 0.3)
+    if isinstance(b, (int, float)) and math.isfinite(b):
+        okb = b >= lim
+        rows.append(["E-BFMI (smallest chain; a warning only)", _num(b, ".2f"), f"&ge; {_num(lim, 'g')}",
+                     True if okb else "warn", reason("e-bfmi", okb, "momentum resampling explores the energy well",
+                                                     warns)])
+    else:  # independent draws (the grid, gls): no sampler energy to diagnose
+        rows.append(["E-BFMI (smallest chain; a warning only)", "n/a", f"&ge; {_num(lim, 'g')}", "info",
+                     _e("no Markov chain: the draws are independent, there is no sampler energy to check")])
     t = diag.get("min_ess_tail", math.nan)
     rows.append(["tail effective sample size (smallest; reported)", _num(t, ".0f"), "&mdash;", "info",
                  _e("for the 5% and 95% quantiles; no threshold")])

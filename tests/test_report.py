@@ -79,6 +79,10 @@ def test_report_numbers_are_those_of_the_tables(fit_dir):
     diag = json.loads((fit_dir / "diagnostics.json").read_text())
     assert ("diagnostics <b>passed</b>" in text) == diag["passed"]
     assert ("diagnostics <b>FAILED</b>" in text) == (not diag["passed"])
+    # independent draws (this fit's grid): no sampler energy, so E-BFMI is "n/a" and not a warning
+    bfmi = re.search(r"E-BFMI \(smallest chain; a warning only\)</td><td class=\"n\">([^<]*)</td><td>[^<]*</td>"
+                     r"<td>(.*?)</td>", text)
+    assert diag["min_bfmi"] is None and bfmi and bfmi.group(1) == "n/a" and "WARN" not in bfmi.group(2), bfmi
 
 
 def test_report_warns_about_few_cepheids_and_says_no_predictive_check(fit_dir, tmp_path):
