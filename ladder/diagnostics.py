@@ -17,7 +17,7 @@ import numpy as np
 from .config import DiagnosticThresholds
 from .errors import plural
 
-__all__ = ["Diagnostics", "diagnose"]
+__all__ = ["Diagnostics", "diagnose", "rank_rhat"]
 
 
 @dataclass(frozen=True)
@@ -85,6 +85,29 @@ def _element_name(var, name: str, reducer) -> str:
     return f"{name}[{', '.join(labels)}]"
 
 
+def rank_rhat(ds):
+    """Rank-normalised split R-hat (Vehtari et al. 2021, Bayesian Analysis 16, 667; arviz) of every variable of
+    ``ds`` (chain, draw, ...): the one R-hat of the gate, the tables and the extensions. A single chain (>= 8
+    draws) is first cut into its two halves, as Stan does for one chain."""
+    import arviz as az
+
+    one = ds.sizes["chain"] == 1 and ds.sizes["draw"] >= 8
+    return az.rhat(_halves(ds) if one else ds, method="rank")
+
+
+def _halves(post):
+    """One chain as two (its first and second halves; an odd first draw left out), for the split R-hat of a single
+    chain (Gelman et al. 2013, Bayesian Data Analysis, 3rd ed., sec. 11.4): arviz's R-hat needs two chains and
+    then splits each again, as it does for every run."""
+    import xarray as xr
+
+    half = post.sizes["draw"] // 2
+    start = post.sizes["draw"] - 2 * half
+    parts = [post.isel(chain=[0], draw=slice(a, a + half)).assign_coords(draw=np.arange(half))
+             for a in (start, start + half)]
+    return xr.concat(parts, dim="chain").assign_coords(chain=[0, 1])
+
+
 def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = DiagnosticThresholds(), *,
              method: str = "nuts", notes: tuple = ()) -> Diagnostics:
     """Compute the diagnostics of a fit and judge them against ``limits`` (every posterior variable and the
@@ -96,7 +119,7 @@ def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = Diagnost
     if "sampler_aux" in idata.groups():
         post = xr.merge([post, idata.sampler_aux])
     chains, draws = post.sizes["chain"], post.sizes["draw"]
-    rhat = az.rhat(post, method="rank")
+    rhat = rank_rhat(post)
     ess_b = az.ess(post, method="bulk")
     ess_t = az.ess(post, method="tail")
     max_rhat, rhat_name = _worst(rhat, np.nanmax)
@@ -108,8 +131,11 @@ def diagnose(idata, wall_seconds: float, limits: DiagnosticThresholds = Diagnost
     problems, warnings = [], [n[len("WARNING: "):] for n in notes if n.startswith("WARNING: ")]
     notes = tuple(n for n in notes if not n.startswith("WARNING: "))
     if chains < 2:
-        warnings.append("a single chain: R-hat cannot detect chains stuck in different places; run >= 4 chains")
-    if not max_rhat <= limits.max_r_hat:
+        warnings.append("a single chain: R-hat (from its two halves) cannot detect chains stuck in different places; "
+                        "run >= 4 chains")
+    if not np.isfinite(max_rhat):
+        problems.append("R-hat could not be computed (too few draws)")
+    elif not max_rhat <= limits.max_r_hat:
         problems.append(f"R-hat {max_rhat:.4f} > {limits.max_r_hat} (worst: {rhat_name})")
     if not min_bulk >= limits.min_ess_bulk:
         problems.append(f"bulk ESS {min_bulk:.0f} < {limits.min_ess_bulk:.0f} (worst: {bulk_name})")

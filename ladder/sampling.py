@@ -328,13 +328,13 @@ def _quick_gate(samples: dict, limits) -> list[str]:
     """R-hat / bulk-ESS problems of the sampled sites (group_by_chain arrays), each with its worst variable."""
     import arviz as az
 
-    from .diagnostics import _worst
+    from .diagnostics import _worst, rank_rhat
 
     ds = az.convert_to_dataset({k: np.asarray(v) for k, v in samples.items()})
     if not ds.data_vars:
         return []
     out = []
-    worst_r, name_r = _worst(az.rhat(ds, method="rank"), np.nanmax)
+    worst_r, name_r = _worst(rank_rhat(ds), np.nanmax)
     if not worst_r <= limits.max_r_hat:
         out.append(f"R-hat {worst_r:.4f} ({name_r.partition('[')[0]})")
     worst_e, name_e = _worst(az.ess(ds, method="bulk"), np.nanmin)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from .catalog import LadderData
+from .diagnostics import rank_rhat
 from .distance import modulus_to_mpc
 
 __all__ = ["distances_table", "parameters_table", "stars_table", "QUANTILES", "UNITS"]
@@ -35,7 +36,7 @@ def distances_table(idata, data: LadderData):
     index = [data.host_names.index(h) for h in hosts]
     mu = _flat(post)  # (samples, n)
     q = np.quantile(mu, QUANTILES, axis=0)
-    rhat = np.asarray(az.rhat(idata.posterior[["mu"]], method="rank")["mu"])
+    rhat = np.asarray(rank_rhat(idata.posterior[["mu"]])["mu"])
     ess = np.asarray(az.ess(idata.posterior[["mu"]], method="bulk")["mu"])
     t = Table()
     t["host"] = hosts
@@ -104,7 +105,7 @@ def parameters_table(idata, names):
     post = idata.posterior
     names = [n for n in names if n in post]
     if names:
-        rhat = az.rhat(post[names], method="rank")
+        rhat = rank_rhat(post[names])
         ess_b = az.ess(post[names], method="bulk")
         ess_t = az.ess(post[names], method="tail")
     for n in names:

@@ -170,6 +170,26 @@ def test_diagnostics_name_the_worst_element():
     assert "(nuts, 2 chains x 500 draws, 1.0 s)" in d.report()
 
 
+def test_one_chain_gets_the_split_r_hat_of_its_halves():
+    # One chain: R-hat of its two halves (Gelman et al. 2013, BDA3 sec. 11.4; reference: arviz's rank R-hat of the
+    # two halves given as two chains), finite and judged, not "nan"; a drift between the halves fails the gate.
+    import arviz as az
+
+    from ladder.diagnostics import diagnose
+
+    rng = np.random.default_rng(5)
+    steady = rng.normal(size=(1, 801))
+    drifting = steady + np.r_[np.zeros(401), np.full(400, 1.5)][None, :]
+    for x, passes in ((steady, True), (drifting, False)):
+        idata = az.from_dict(posterior={"pl_slope": x}, sample_stats={"diverging": np.zeros(x.shape, bool)})
+        d = diagnose(idata, 1.0)
+        want = float(az.rhat(az.convert_to_dataset({"a": x[:, 1:].reshape(2, 400)}), method="rank")["a"])
+        assert np.isclose(d.max_r_hat, want, rtol=1e-12, atol=0), (d.max_r_hat, want)
+        assert (not any(p.startswith("R-hat") for p in d.problems)) == passes, d.problems
+        assert any(w.startswith("a single chain") for w in d.warnings)
+    assert want > 1.1  # the drifting chain's halves disagree
+
+
 def _python(code, env):
     return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=REPO, env=env,
                           timeout=120)
