@@ -591,8 +591,7 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
         notes += more
     if program is None:
         program = _Program(parts, layout, settings, method, mode)
-    idata, derived, bound_notes = _assemble(parts, layout, settings, sampler, output, method, samples, extra, program,
-                                            drawn)
+    idata, derived, bound_notes = _assemble(parts, layout, sampler, method, samples, extra, program, drawn)
     notes += bound_notes
     wall = time.perf_counter() - start
     return SampleRun(idata, derived, wall, chain_method, method, notes, parts)
@@ -884,9 +883,9 @@ class _Program:
         return {**flat, **cat(drawn)}, derived, cat(ys)
 
 
-def _assemble(parts, layout, settings, sampler, output, method, samples, extra, program=None, drawn=None):
+def _assemble(parts, layout, sampler, method, samples, extra, program: "_Program", drawn=None):
     """The InferenceData of a run from its sampled draws (chains, draws, ...) and, unless ``drawn`` holds it
-    already (the grid's rounds), the pass over them (:meth:`_Program.draws`)."""
+    already (the grid's rounds, the marginal method's chains), the pass over them (:meth:`_Program.draws`)."""
     import arviz as az
     import xarray as xr
 
@@ -896,9 +895,7 @@ def _assemble(parts, layout, settings, sampler, output, method, samples, extra, 
     S = chains * draws
     coords = _coords(layout)
     dims = dict(DIMS, mu=mu_dim(layout))
-    if program is None:
-        program = _Program(parts, layout, settings, method, _ll_mode(output, parts.lin.y0.shape[0], S))
-    mode = program.mode  # decided before any extension: an extended run keeps its shape of output
+    mode = program.mode  # decided from the requested draws: an extended run keeps its shape of output
     flat, derived, ys = drawn if drawn is not None else program.draws(samples, chains, draws, sampler.seed)
 
     def _da(x, dim=None):
