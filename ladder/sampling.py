@@ -356,12 +356,11 @@ def traced_model(model, parts: ModelParts, settings: ModelSettings, layout: Layo
     return bound, array_parts
 
 
-def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say, program=None):
+def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say, program: "_Program"):
     """NUTS with warm-up, then extensions of the same chains (no new warm-up) while R-hat or ESS fail, up to
-    ``sampler.draw_limit`` draws per chain. With ``program`` (the marginal method) each run of the chains gets its
-    exact draws of the linear block and the pass over them (:meth:`_Program.draws`, a new random stream per
-    extension), and the gate covers every output parameter, the linear block's included. Returns (samples by
-    chain, extra fields, chain method, notes, the pass's output over all draws or None)."""
+    ``sampler.draw_limit`` draws per chain (:func:`_rounds`: each run of the chains gets the pass over its draws,
+    with the marginal method its exact draws of the linear block, so the gate covers every output parameter).
+    Returns (samples by chain, extra fields, chain method, notes, the pass's output over all draws)."""
     import jax
     import jax.numpy as jnp
     from numpyro.infer import NUTS, init_to_value
@@ -380,24 +379,16 @@ def _run_mcmc(model, parts, layout, settings, sampler, init, limits, say, progra
                   dense_mass=dense, inverse_mass_matrix=inverse_mass, init_strategy=init_strategy)
     method = _chain_method(sampler.chain_method, sampler.chains)
     chains = _Chains(kernel, array_parts, sampler, method, say if sampler.progress else None)
-    first, first_extra = chains.run(sampler.warmup, sampler.draws, jax.random.PRNGKey(sampler.seed))
-    samples, extra, steps, outs = [first], [first_extra], [sampler.draws], []
-    while True:
-        joined = _join_draws(samples)
-        gated = joined
-        if program is not None:
-            outs.append(program.draws(samples[-1], sampler.chains, steps[-1], sampler.seed, len(steps) - 1))
-            gated = _join_draws([_by_chain(o[0], sampler.chains, d) for o, d in zip(outs, steps)])
-        step = _extension(gated, sum(steps), sampler, limits, say, notes, "extending the same chains by {} draws",
-                          "no new warm-up; ")
-        if not step:
-            break
-        more, more_extra = chains.run(0, step)
-        samples.append(more)
+    key, extra = jax.random.PRNGKey(sampler.seed), []
+
+    def run(round_, draws):
+        more, more_extra = chains.run(sampler.warmup, draws, key) if round_ == 0 else chains.run(0, draws)
         extra.append(more_extra)
-        steps.append(step)
-    drawn = _merge_rounds(outs, steps, sampler.chains) if outs else None
-    return joined, _join_draws(extra), method, notes, drawn
+        return more
+
+    samples, drawn, more = _rounds(run, program, sampler, limits, say, "extending the same chains by {} draws",
+                                   "no new warm-up; ")
+    return samples, _join_draws(extra), method, notes + more, drawn
 
 
 def _extension(samples: dict, total: int, sampler, limits, say, notes: list, what: str, detail: str = "") -> int:
@@ -568,30 +559,29 @@ def run_sampler(arrays: ModelArrays, layout: Layout, settings: ModelSettings, sa
     parts = model_parts(arrays, layout, settings)
     _import_in_background()
     notes = [f"method {method}: {reason}"]
-    program = drawn = None
     grid_names = _grid_hyperparameters(settings, layout) if method == "marginal" and sampler.method != "nuts" else None
     # ``auto`` pointwise values are decided from the requested draws: an extension keeps the output's shape
     mode = _ll_mode(output, parts.lin.y0.shape[0], sampler.chains * sampler.draws)
+    program = _Program(parts, layout, settings, method, mode, grid_names)
     if method == "gls":
         samples, extra, chain_method = {}, None, "vectorized"
+        drawn = program.draws(samples, sampler.chains, sampler.draws, sampler.seed)
     elif grid_names:
-        program = _Program(parts, layout, settings, method, mode, grid_names)
         notes.append(f"hyperparameters {', '.join(grid_names)} drawn independently from their exact marginal "
                      "posterior on a grid (no Markov chain): every draw independent")
-        samples, drawn, more = _grid_rounds(program, sampler, grid_names, limits, say)
+        table = _grid_table(program, grid_names)
+        samples, drawn, more = _rounds(lambda round_, draws: _grid_sample(table, grid_names, sampler.chains, draws,
+                                                                          sampler.seed, round_),
+                                       program, sampler, limits, say, "{} more independent draws per chain")
         extra, chain_method = None, "vectorized"
         notes += more
     else:
         model = marginal_model if method == "marginal" else full_model
         init = initial_values(parts, layout, settings, method)  # a Markov chain needs a starting point
-        if method == "marginal":  # the linear block is drawn with each run of the chains, so the gate sees it
-            program = _Program(parts, layout, settings, method, mode)
         samples, extra, chain_method, more, drawn = _run_mcmc(model, parts, layout, settings, sampler, init, limits,
                                                               say, program)
         notes += more
-    if program is None:
-        program = _Program(parts, layout, settings, method, mode)
-    idata, derived, bound_notes = _assemble(parts, layout, sampler, method, samples, extra, program, drawn)
+    idata, derived, bound_notes = _assemble(parts, layout, sampler, method, samples, extra, drawn, mode)
     notes += bound_notes
     wall = time.perf_counter() - start
     return SampleRun(idata, derived, wall, chain_method, method, notes, parts)
@@ -684,22 +674,23 @@ def _grid_sample(table: tuple, names, chains: int, draws: int, seed: int, round_
     return {nm: np.exp(x[:, i]).reshape(chains, draws) for i, nm in enumerate(names)}
 
 
-def _grid_rounds(program: "_Program", sampler, names, limits, say) -> tuple:
-    """The grid's independent draws with their exact draws of the linear block and the pass over them, then, while
-    R-hat or bulk ESS fail (:func:`_quick_gate` on every output parameter; with independent draws a short run
-    fails by chance only), ``draws`` more per chain up to ``sampler.draw_limit``, the earlier draws kept, as the
-    NUTS path extends its chains. Returns ``(hyperparameter draws (chains, total), the pass's output as
+def _rounds(run, program: "_Program", sampler, limits, say, what: str, detail: str = "") -> tuple:
+    """Draws in rounds, for the Markov chains and the grid alike: ``run(round_, draws)`` gives the next ``draws``
+    per chain of the sampled sites ((chains, draws, ...) arrays); each round gets the pass over its draws
+    (:meth:`_Program.draws`: the linear block's exact draws, a new random stream per round, the pointwise values,
+    the per-star sums), and while R-hat or bulk ESS fail on every output parameter (:func:`_extension`; ``what``
+    and ``detail`` say what an extension is), another round of ``draws`` up to ``sampler.draw_limit``, the
+    earlier draws kept. Returns ``(sampled sites (chains, total, ...), the pass's output over all rounds as
     _Program.draws gives it, notes)``."""
-    table = _grid_table(program, names)
-    chains, steps, hypers, outs, notes = sampler.chains, [], [], [], []
+    chains, samples, outs, steps, notes = sampler.chains, [], [], [], []
     step = sampler.draws
     while step:
-        hypers.append(_grid_sample(table, names, chains, step, sampler.seed, len(steps)))
-        outs.append(program.draws(hypers[-1], chains, step, sampler.seed, len(steps)))
+        samples.append(run(len(steps), step))
+        outs.append(program.draws(samples[-1], chains, step, sampler.seed, len(steps)))
         steps.append(step)
         params = _join_draws([_by_chain(o[0], chains, d) for o, d in zip(outs, steps)])
-        step = _extension(params, sum(steps), sampler, limits, say, notes, "{} more independent draws per chain")
-    return _join_draws(hypers), _merge_rounds(outs, steps, chains), notes
+        step = _extension(params, sum(steps), sampler, limits, say, notes, what, detail)
+    return _join_draws(samples), _merge_rounds(outs, steps, chains), notes
 
 
 def _by_chain(arrays: dict, chains: int, draws: int) -> dict:
@@ -836,7 +827,7 @@ class _Program:
     def __init__(self, parts, layout, settings, method: str, mode: str, grid_names=None):
         from .model import split_static
 
-        self.parts, self.settings, self.grid_names, self.mode = parts, settings, grid_names, mode
+        self.parts, self.settings, self.grid_names = parts, settings, grid_names
         self.linear = method != "nuts"
         st, self.array_parts = split_static(parts)
         self._run = _compiled_program(st, settings, self.linear, mode, tuple(grid_names or ()), len(layout.galaxies))
@@ -883,9 +874,9 @@ class _Program:
         return {**flat, **cat(drawn)}, derived, cat(ys)
 
 
-def _assemble(parts, layout, sampler, method, samples, extra, program: "_Program", drawn=None):
-    """The InferenceData of a run from its sampled draws (chains, draws, ...) and, unless ``drawn`` holds it
-    already (the grid's rounds, the marginal method's chains), the pass over them (:meth:`_Program.draws`)."""
+def _assemble(parts, layout, sampler, method, samples, extra, drawn: tuple, mode: str):
+    """The InferenceData of a run from its sampled draws (chains, draws, ...) and the pass over them (``drawn``,
+    as :meth:`_Program.draws` gives it; ``mode``: its pointwise values per star, per galaxy or none)."""
     import arviz as az
     import xarray as xr
 
@@ -895,8 +886,7 @@ def _assemble(parts, layout, sampler, method, samples, extra, program: "_Program
     S = chains * draws
     coords = _coords(layout)
     dims = dict(DIMS, mu=mu_dim(layout))
-    mode = program.mode  # decided from the requested draws: an extended run keeps its shape of output
-    flat, derived, ys = drawn if drawn is not None else program.draws(samples, chains, draws, sampler.seed)
+    flat, derived, ys = drawn
 
     def _da(x, dim=None):
         x = np.asarray(x).reshape((chains, draws) + np.shape(x)[1:])
